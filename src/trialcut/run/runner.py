@@ -1,0 +1,206 @@
+"""Plan × data cut -> Results: the one function that turns a frozen plan and a checked data
+cut into plain, JSON-able results by calling the statistics layer.
+
+Nothing here reads or writes files; the command line hands in what was loaded and the
+record layer writes what comes back.  Run metadata (ids, times) sits only under
+``results["run"]`` so that two runs of the same inputs differ nowhere else.
+"""
+from __future__ import annotations
+
+import hashlib
+import time
+import warnings
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from trialcut.errors import FitError, ModelSpecificationError
+from trialcut.run.context import RunContext
+from trialcut.run.methods import METHODS
+from trialcut.run.tables import plain, table
+
+RESULTS_FORMAT = 1
+
+
+@dataclass
+class StepTimer:
+    """Collects how long each step took, for the audit record (not for results)."""
+
+    steps: list[dict[str, Any]] = field(default_factory=list)
+
+    def time(self, name: str):
+        timer = self
+
+        class _Step:
+            def __enter__(self):
+                self.start = time.perf_counter()
+
+            def __exit__(self, *exc):
+                timer.steps.append({"step": name, "seconds": round(time.perf_counter() - self.start, 4)})
+                return False
+
+        return _Step()
+
+
+def run_plan(plan, cut, context: RunContext, *, plan_block: dict[str, Any], data_block: dict[str, Any],
+             run_block: dict[str, Any], timer: StepTimer | None = None) -> dict[str, Any]:
+    """Run every analysis of every endpoint of ``plan`` on ``cut`` (a prepared DataCut)."""
+    timer = timer or StepTimer()
+    results: dict[str, Any] = {
+        "format": RESULTS_FORMAT,
+        "run": run_block,
+        "plan": plan_block,
+        "data": data_block,
+        "conformance": plain(cut.conformance.to_dict()) | {"derivations": plain(list(cut.derivations))},
+        "populations": _population_counts(plan, cut),
+        "disposition": table(cut.disposition(), "Disposition by arm"),
+        "endpoints": [],
+        "warnings": [],
+    }
+    for endpoint in plan.endpoints:
+        with timer.time(f"endpoint {endpoint.id}"):
+            results["endpoints"].append(_run_endpoint(plan, cut, endpoint, context, timer, results["warnings"]))
+    results["multiplicity"] = _multiplicity(plan, results)
+    return results
+
+
+def _population_counts(plan, cut) -> dict[str, Any]:
+    endpoint = plan.endpoints[0]
+    rows = []
+    for population in plan.populations:
+        data = cut.analysis_data(endpoint.id, population_id=population.id)
+        per_arm = data.frame.groupby(data.arm, observed=False)[data.subject].nunique()
+        for arm in data.arms:
+            rows.append({"population": population.id, "label": population.label, "arm": arm,
+                         "participants": int(per_arm.get(arm, 0))})
+    return table(pd.DataFrame(rows), "Participants in each analysis population")
+
+
+def _analysis_population(plan, analysis) -> str:
+    if analysis.population is not None:
+        return analysis.population
+    return plan.estimand(analysis.estimand).population
+
+
+def _run_endpoint(plan, cut, endpoint, context, timer, run_warnings) -> dict[str, Any]:
+    from trialcut.stats.descriptive import describe_by_arm_visit, missing_by_visit, missing_patterns
+
+    primary = endpoint.analyses.primary
+    primary_population = _analysis_population(plan, primary)
+    observed = cut.analysis_data(endpoint.id, population_id=primary_population)
+    primary_data = cut.analysis_data(endpoint.id, estimand_id=primary.estimand, population_id=primary_population)
+    columns = [c for c in (plan.columns.value, plan.columns.change) if c and c in observed.frame.columns]
+    roles = dict(subject=primary_data.subject, arm=primary_data.arm, visit=primary_data.visit,
+                 visits=list(primary_data.visits), arms=list(primary_data.arms))
+    entry: dict[str, Any] = {
+        "id": endpoint.id, "label": endpoint.label, "analysed": endpoint.analysed,
+        "primary_visit": endpoint.primary_visit, "decimals": endpoint.decimals,
+        "population": primary_population,
+        "descriptive": table(describe_by_arm_visit(observed.frame, columns=tuple(columns), **roles),
+                             "Summary statistics by arm and visit (observed data)"),
+        "missing_by_visit": table(missing_by_visit(primary_data.frame, outcome=primary_data.outcome, **roles),
+                                  "Missing outcomes by arm and visit"),
+        "missing_patterns": table(missing_patterns(primary_data.frame, outcome=primary_data.outcome, **roles),
+                                  "Patterns of observed (X) and missing (.) visits"),
+        "trajectories": _trajectory_sample(observed, plan.report.trajectories_sample, context),
+        "analyses": [],
+    }
+    analyses = [("primary", primary)] + [("sensitivity", a) for a in endpoint.analyses.sensitivity]
+    for role, analysis in analyses:
+        with timer.time(f"analysis {analysis.id}"):
+            entry["analyses"].append(_run_analysis(plan, cut, endpoint, analysis, role, context, run_warnings))
+    return entry
+
+
+def _trajectory_sample(data, size: int, context: RunContext) -> dict[str, Any]:
+    """A seeded sample of participants' observed outcomes for the trajectory figure."""
+    subjects = np.array(sorted(data.frame[data.subject].unique()))
+    rng = np.random.default_rng(context.seed_sequence("trajectory sample"))
+    chosen = set(rng.choice(subjects, size=min(size, len(subjects)), replace=False)) if len(subjects) else set()
+    frame = data.frame[data.frame[data.subject].isin(chosen) & data.frame[data.outcome].notna()]
+    frame = frame[[data.subject, data.arm, data.visit, data.outcome]]
+    frame.columns = ["subject", "arm", "visit", "outcome"]
+    frame = frame.assign(arm=frame["arm"].astype(str), visit=frame["visit"].astype(str))
+    return table(frame.sort_values(["subject", "visit"], key=_visit_sort_key(data.visits)),
+                 f"Observed outcomes of {len(chosen)} participants drawn at random")
+
+
+def _visit_sort_key(visits):
+    order = {v: i for i, v in enumerate(visits)}
+
+    def key(column: pd.Series) -> pd.Series:
+        return column.map(order) if column.name == "visit" else column
+
+    return key
+
+
+def _run_analysis(plan, cut, endpoint, analysis, role, context, run_warnings) -> dict[str, Any]:
+    population = _analysis_population(plan, analysis)
+    entry: dict[str, Any] = {
+        "id": analysis.id, "label": analysis.label, "role": role, "method": analysis.method,
+        "estimand": analysis.estimand, "population": population,
+        "options": plain(analysis.options.model_dump(mode="json")),
+        "status": "ok", "error": None, "tables": {}, "fit": {}, "diagnostics": {}, "warnings": [],
+    }
+    data = cut.analysis_data(endpoint.id, estimand_id=analysis.estimand, population_id=population)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            entry.update(METHODS[analysis.method](data, analysis, context))
+        except (FitError, ModelSpecificationError) as error:
+            entry["status"] = "failed"
+            entry["error"] = error.render()
+            if isinstance(error, FitError):
+                entry["fit"] = {"attempts": plain(error.attempts)}
+    entry["warnings"] = sorted({f"{w.category.__name__}: {w.message}" for w in caught})
+    run_warnings.extend(f"{analysis.id}: {w}" for w in entry["warnings"])
+    if entry["status"] == "failed":
+        run_warnings.append(f"{analysis.id}: analysis failed — {entry['error'].splitlines()[0]}")
+    return entry
+
+
+def _multiplicity(plan, results) -> dict[str, Any]:
+    from trialcut.stats.multiplicity import adjust
+
+    declared = plan.multiplicity
+    hypotheses = []
+    for h in declared.hypotheses:
+        p_value = _find_p_value(plan, results, h)
+        hypotheses.append({"id": h.id, "analysis": h.analysis, "arm": h.arm,
+                           "visit": h.visit, "weight": h.weight, "p": p_value})
+    outcome = adjust(
+        [h["p"] for h in hypotheses], method=declared.method, alpha=declared.alpha,
+        weights=[h["weight"] for h in hypotheses],
+        transitions=[list(row) for row in declared.transitions] or None,
+    ) if hypotheses else {"adjusted_p": [], "rejected": []}
+    for h, adjusted, rejected in zip(hypotheses, outcome["adjusted_p"], outcome["rejected"]):
+        h["adjusted_p"] = adjusted
+        h["rejected"] = rejected
+    return {"method": declared.method, "alpha": declared.alpha,
+            "hypotheses": table(pd.DataFrame(hypotheses), "Multiplicity-adjusted tests") if hypotheses else None}
+
+
+def _find_p_value(plan, results, hypothesis) -> float | None:
+    for endpoint, declared in zip(results["endpoints"], plan.endpoints):
+        visit = hypothesis.visit or declared.primary_visit
+        for analysis in endpoint["analyses"]:
+            if analysis["id"] != hypothesis.analysis or "differences" not in analysis["tables"]:
+                continue
+            frame = pd.DataFrame(analysis["tables"]["differences"]["data"],
+                                 columns=analysis["tables"]["differences"]["columns"])
+            row = frame[(frame["arm"] == hypothesis.arm) & (frame["visit"] == visit)]
+            if len(row) == 1 and row["p"].notna().all():
+                return float(row["p"].iloc[0])
+    return None
+
+
+def participant_hashes(frame: pd.DataFrame, subject: str) -> dict[str, str]:
+    """SHA-256 of each participant's records (sorted, as CSV) so that two cuts can be compared."""
+    hashes = {}
+    text = frame.astype(str)
+    for subject_id, rows in text.groupby(subject, sort=True):
+        body = rows.sort_values(list(rows.columns)).to_csv(index=False, lineterminator="\n")
+        hashes[str(subject_id)] = hashlib.sha256(body.encode("utf-8")).hexdigest()
+    return hashes
