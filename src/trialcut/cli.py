@@ -1,0 +1,115 @@
+"""The command line: parse arguments, call one command function, map errors to exit codes.
+
+Exit statuses: 0 ok; 1 a verification found a difference; 2 bad input or usage;
+3 an internal fault (the traceback goes to a log file whose path is printed);
+130 interrupted.  ``--debug`` shows tracebacks instead.
+"""
+from __future__ import annotations
+
+import argparse
+import sys
+import tempfile
+import time
+import traceback
+from pathlib import Path
+from typing import Sequence
+
+from trialcut import __version__
+from trialcut.errors import TrialcutError
+
+
+class UsageError(TrialcutError):
+    exit_status = 2
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message: str):  # argparse would exit; we want main() to return 2
+        raise UsageError(f"{self.prog}: {message} (see '{self.prog} --help')")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(prog="trialcut", description="Lock an analysis plan, check a data cut, run and record it.")
+    parser.add_argument("--version", action="version", version=f"trialcut {__version__}")
+    parser.add_argument("--debug", action="store_true", help="show tracebacks")
+    commands = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+
+    check = commands.add_parser("check", help="validate an analysis plan and show what it declares")
+    check.add_argument("plan", type=Path)
+
+    commands.add_parser("schema", help="print the JSON Schema of plan files (for editors)")
+
+    lock = commands.add_parser("lock", help="freeze a plan (or record an amendment)")
+    lock.add_argument("plan", type=Path)
+    lock.add_argument("--by", required=True, help="who locks it")
+    lock.add_argument("--reason", required=True, help="why (e.g. 'final before unblinding')")
+
+    run = commands.add_parser("run", help="check a data cut and run the locked plan on it")
+    run.add_argument("plan", type=Path)
+    run.add_argument("--data", required=True, type=Path, help="data cut: .csv, .parquet or Dataset-JSON .json")
+    run.add_argument("--cut", required=True, help="label of the data cut, e.g. 'interim-1'")
+    run.add_argument("--out", type=Path, default=Path("outputs"), help="output root (default: outputs)")
+    run.add_argument("--unlocked", action="store_true", help="rehearse with a plan that is not locked")
+    run.add_argument("--dummy-arms", type=int, metavar="SEED", help="blinded dry run: permute arm codes with SEED")
+    run.add_argument("--workers", type=int, default=1, help="local worker processes for imputation work")
+    run.add_argument("--scheduler", metavar="ADDRESS",
+                     help="Dask scheduler address, or 'local' for a local cluster")
+
+    history = commands.add_parser("history", help="list recorded runs")
+    history.add_argument("--out", type=Path, default=Path("outputs"))
+    history.add_argument("--study")
+    history.add_argument("--cut")
+
+    verify = commands.add_parser("verify", help="re-hash a run folder (or all runs) and walk the registry chain")
+    verify.add_argument("run_folder", nargs="?", type=Path)
+    verify.add_argument("--out", type=Path, default=Path("outputs"))
+    verify.add_argument("--registry", type=Path, help="registry file (default: OUT/registry.sqlite)")
+
+    render = commands.add_parser("render", help="rebuild the documents of a past run from its results")
+    render.add_argument("run_folder", type=Path)
+    render.add_argument("--to", type=Path, help="output folder (default: a new folder beside the run)")
+
+    compare = commands.add_parser("compare", help="compare two runs (plan, data and estimates)")
+    compare.add_argument("run_a", type=Path)
+    compare.add_argument("run_b", type=Path)
+    compare.add_argument("--to", type=Path, help="output folder (default: OUT/comparisons/A-vs-B)")
+
+    demo = commands.add_parser("demo", help="invent a trial, lock the demo plan and run two data cuts")
+    demo.add_argument("--out", type=Path, default=Path("outputs"))
+    demo.add_argument("--seed", type=int, default=20261202)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    argv = list(sys.argv[1:] if argv is None else argv)
+    debug = "--debug" in argv
+    try:
+        args = build_parser().parse_args(argv)
+        if args.command is None:
+            build_parser().print_help()
+            return 2
+        from trialcut import commands
+
+        return getattr(commands, f"command_{args.command}")(args)
+    except TrialcutError as error:
+        if debug:
+            traceback.print_exc()
+        print(f"error: {error.render()}", file=sys.stderr)
+        return error.exit_status
+    except KeyboardInterrupt:
+        print("interrupted: nothing was recorded", file=sys.stderr)
+        return 130
+    except SystemExit as exit_:  # --help and --version
+        return int(exit_.code or 0)
+    except Exception:  # an internal fault: keep the traceback, show a short message
+        if debug:
+            traceback.print_exc()
+            return 3
+        log = Path(tempfile.gettempdir()) / f"trialcut-fault-{time.strftime('%Y%m%dT%H%M%S')}.log"
+        log.write_text(traceback.format_exc(), encoding="utf-8")
+        print(f"internal error: this is a fault in trialcut, not in your input; details in {log}",
+              file=sys.stderr)
+        return 3
+
+
+def entry_point() -> None:
+    sys.exit(main())

@@ -1,0 +1,54 @@
+"""The layers import only downwards (DEVELOPERS.md): checked by parsing every module's imports."""
+import ast
+from pathlib import Path
+
+import pytest
+
+PACKAGE = Path(__file__).resolve().parents[1] / "src" / "trialcut"
+ORDER = ["errors", "stats", "plan", "data", "run", "report", "record", "cli"]
+# Top-level modules that belong to the command-line layer.
+CLI_MODULES = {"cli", "commands", "__init__", "__main__"}
+
+
+def _layer(module: str) -> str | None:
+    parts = module.split(".")
+    if parts[0] != "trialcut":
+        return None
+    if len(parts) == 1:
+        return "cli"
+    name = parts[1]
+    if name in CLI_MODULES:
+        return "cli"
+    return name if name in ORDER else None
+
+
+def _imports(path: Path):
+    tree = ast.parse(path.read_text(encoding="utf-8"))
+    for node in ast.walk(tree):
+        if isinstance(node, ast.Import):
+            yield from (alias.name for alias in node.names)
+        elif isinstance(node, ast.ImportFrom) and node.module and node.level == 0:
+            yield node.module
+
+
+MODULES = sorted(PACKAGE.rglob("*.py"))
+
+
+@pytest.mark.parametrize("path", MODULES, ids=[str(p.relative_to(PACKAGE)) for p in MODULES])
+def test_imports_go_only_downwards(path):
+    module = "trialcut." + ".".join(path.relative_to(PACKAGE).with_suffix("").parts)
+    own = _layer(module)
+    for imported in _imports(path):
+        other = _layer(imported)
+        if other is None or own is None or other == "errors":
+            continue
+        assert ORDER.index(other) <= ORDER.index(own), f"{module} ({own}) imports {imported} ({other})"
+
+
+def test_statistics_layer_uses_only_its_libraries():
+    allowed = {"numpy", "scipy", "pandas", "statsmodels", "trialcut", "__future__", "dataclasses",
+               "typing", "math", "warnings", "functools", "itertools", "collections", "abc", "enum",
+               "time", "zlib", "concurrent", "os", "threading", "numbers", "operator", "string", "re"}
+    for path in (PACKAGE / "stats").rglob("*.py"):
+        for imported in _imports(path):
+            assert imported.split(".")[0] in allowed, f"{path.name} imports {imported}"
