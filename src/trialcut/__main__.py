@@ -1,0 +1,3 @@
+from trialcut.cli import entry_point
+
+entry_point()
