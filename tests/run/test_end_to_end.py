@@ -93,3 +93,12 @@ def test_compare_two_runs(two_runs, tmp_path):
     _, first, second = two_runs
     assert main(["compare", str(first), str(second), "--to", str(tmp_path / "cmp")]) == 0
     assert list((tmp_path / "cmp").glob("*.html"))
+
+
+def test_results_follow_the_shipped_json_schema(two_runs):
+    import jsonschema
+
+    from trialcut.run.results_schema import results_schema
+
+    _, folder, _ = two_runs
+    jsonschema.validate(json.loads((folder / "results.json").read_text()), results_schema())
