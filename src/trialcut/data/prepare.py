@@ -1,0 +1,366 @@
+"""From a checked data cut to the analysis data of one endpoint, estimand and population.
+
+:func:`prepare_cut` runs the conformance checks, derives what the export may lack (baseline
+value, change from baseline, analysis visit), optionally replaces the arms by dummy arms
+for a blinded dry run, and returns a frozen :class:`DataCut`.  ``DataCut.analysis_data``
+then applies the population and the estimand's intercurrent-event strategies.
+
+Choices (documented because the report states them):
+- ``records`` keeps the baseline record and the one analysed record per participant and
+  visit; the visit column holds the *analysis* visit, the label as collected is kept in
+  ``visit_collected`` and the source row number in ``source_row``.
+- The change from baseline is taken from the change column where it is filled, else
+  derived as value − baseline; the baseline is the baseline column where filled, else the
+  value of the participant's baseline record.
+- An intercurrent event affects a visit when its day is on or before the visit's study
+  day (the record's own day; the planned day when the visit is missing).  When several
+  events affect a visit, the earliest event whose strategy changes the outcome
+  (hypothetical or composite) governs it; if none does, the earliest event is reported.
+  ``intercurrent_event`` and ``strategy`` name the governing event.
+- Composite strategy: the *analysed* variable (the change when the endpoint is analysed
+  as change) is set to the plan's ``composite_value``; ``outcome_set_composite`` flags it.
+- The arm column of ``AnalysisData.frame`` holds plain strings; ``AnalysisData.arms``
+  gives the plan's order.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from trialcut.data.conformance import (ANALYSIS_VISIT, CHOSEN, ROLE, ROW, ConformanceReport, check_cut,
+                                       subject_level_columns)
+from trialcut.data.readers import RawCut
+from trialcut.errors import PlanError, Problem
+
+SOURCE_ROW = "source_row"
+VISIT_COLLECTED = "visit_collected"
+DEFAULT_REASON_COLUMN = "DCSREAS"
+
+
+@dataclass(frozen=True)
+class AnalysisData:
+    """What an analysis method receives: one row per participant × scheduled visit."""
+
+    frame: pd.DataFrame
+    subject: str
+    arm: str
+    visit: str
+    outcome: str
+    baseline: str
+    visits: tuple[str, ...]
+    visit_days: dict[str, float | None]
+    arms: tuple[str, ...]
+    reference: str
+    primary_visit: str
+    population: str | None
+    estimand: str | None
+    endpoint: str = ""
+
+    @property
+    def n_subjects(self) -> int:
+        return int(self.frame[self.subject].nunique())
+
+
+@dataclass(frozen=True)
+class DataCut:
+    plan: Any
+    manifest: dict[str, Any]
+    records: pd.DataFrame
+    subjects: pd.DataFrame
+    conformance: ConformanceReport
+    derivations: tuple[dict[str, Any], ...]
+    dummy_arms_seed: int | None = None
+    reason_column: str | None = None
+
+    # ------------------------------------------------------------------ summaries
+    def summary(self) -> dict[str, Any]:
+        """The ``data`` section of results.json."""
+        keys = ("file", "format", "size", "sha256", "rows", "columns")
+        data = {k: self.manifest.get(k) for k in keys}
+        data["participants"] = int(len(self.subjects))
+        return data
+
+    def population_counts(self) -> pd.DataFrame:
+        """Participants per population (rows) and arm (columns), with a total."""
+        rows = []
+        for population in self.plan.populations:
+            members = self.subjects[_members(self.subjects, population)]
+            rows.append(self._per_arm(population.label, members))
+        return pd.DataFrame(rows, columns=["population", *self._arm_order(), "Total"])
+
+    def disposition(self) -> pd.DataFrame:
+        """Per arm: randomised, in each population, observed at the primary visit, events, reasons."""
+        subjects, cols = self.subjects, self.plan.columns
+        rows = [self._per_arm("Randomised", subjects)]
+        rows += [self._per_arm(f"In population: {p.label}", subjects[_members(subjects, p)])
+                 for p in self.plan.populations]
+        endpoint = self.plan.endpoints[0]
+        observed = self._observed_at(endpoint, endpoint.primary_visit)
+        rows.append(self._per_arm(f"Observed at {endpoint.primary_visit} ({endpoint.id})",
+                                  subjects[subjects[cols.subject].isin(observed)]))
+        for event in self.plan.intercurrent_events:
+            if event.day_column in subjects.columns:
+                rows.append(self._per_arm(f"Event: {event.label}", subjects[subjects[event.day_column].notna()]))
+        if self.reason_column:
+            reasons = subjects[self.reason_column]
+            rows.append(self._per_arm("Left the study early", subjects[reasons.notna()]))
+            for reason in sorted(reasons.dropna().unique()):
+                rows.append(self._per_arm(f"  Reason: {reason}", subjects[reasons == reason]))
+        return pd.DataFrame(rows, columns=["measure", *self._arm_order(), "Total"])
+
+    def _arm_order(self) -> list[str]:
+        return list(self.plan.arm_codes)
+
+    def _per_arm(self, label: str, members: pd.DataFrame) -> list[Any]:
+        counts = members[self.plan.columns.arm].value_counts()
+        return [label, *(int(counts.get(a, 0)) for a in self._arm_order()), int(len(members))]
+
+    def _observed_at(self, endpoint, visit: str) -> set[Any]:
+        cols = self.plan.columns
+        records = self._endpoint_records(endpoint)
+        outcome = _outcome_column(self.plan, endpoint)
+        hit = (records[cols.visit] == visit) & records[outcome].notna() & (records[ROLE_COLUMN] == "post")
+        return set(records.loc[hit, cols.subject])
+
+    def _endpoint_records(self, endpoint) -> pd.DataFrame:
+        cols = self.plan.columns
+        if endpoint.parameter and cols.parameter in self.records.columns:
+            return self.records[self.records[cols.parameter] == endpoint.parameter]
+        return self.records
+
+    # ------------------------------------------------------------------ analysis data
+    def analysis_data(self, endpoint_id: str, estimand_id: str | None = None,
+                      population_id: str | None = None) -> AnalysisData:
+        plan = self.plan
+        endpoint = _find(plan.endpoints, endpoint_id, "endpoint")
+        estimand = _find(plan.estimands, estimand_id, "estimand") if estimand_id else None
+        population_id = population_id or (estimand.population if estimand else None)
+        population = _find(plan.populations, population_id, "population") if population_id else None
+        subjects = self.subjects
+        if population is not None:
+            subjects = subjects[_members(subjects, population)]
+        frame = self._grid(endpoint, subjects)
+        frame = _apply_events(plan, estimand, frame, _outcome_column(plan, endpoint), self._visit_days())
+        cols = plan.columns
+        return AnalysisData(
+            frame=frame.reset_index(drop=True), subject=cols.subject, arm=cols.arm, visit=cols.visit,
+            outcome=_outcome_column(plan, endpoint), baseline=_baseline_column(plan),
+            visits=plan.visit_labels, visit_days=self._visit_days(), arms=plan.arm_codes,
+            reference=plan.arms.reference, primary_visit=endpoint.primary_visit,
+            population=population.id if population else None, estimand=estimand.id if estimand else None,
+            endpoint=endpoint.id)
+
+    def _visit_days(self) -> dict[str, float | None]:
+        return {v.label: v.day for v in self.plan.visits.schedule}
+
+    def _grid(self, endpoint, subjects: pd.DataFrame) -> pd.DataFrame:
+        """Every participant × scheduled visit, the analysed record where there is one."""
+        cols, plan = self.plan.columns, self.plan
+        records = self._endpoint_records(endpoint)
+        post = records[records[ROLE_COLUMN] == "post"].drop(columns=[ROLE_COLUMN])
+        ids = subjects[cols.subject].tolist()
+        grid = pd.DataFrame([(s, v) for s in ids for v in plan.visit_labels], columns=[cols.subject, cols.visit])
+        subject_columns = [c for c in subjects.columns if c != cols.subject]
+        record_columns = [c for c in post.columns if c not in subject_columns or c == cols.subject]
+        frame = grid.merge(post[record_columns], on=[cols.subject, cols.visit], how="left")
+        frame = frame.merge(subjects, on=cols.subject, how="left")
+        baseline = _baseline_column(plan)
+        base_values = self._baseline_values(endpoint)
+        frame[baseline] = frame[cols.subject].map(base_values).astype(float)
+        if cols.visit_number:
+            frame[cols.visit_number] = frame[cols.visit].map({v.label: float(v.order) for v in plan.visits.schedule})
+        order = {label: i for i, label in enumerate(plan.visit_labels)}
+        frame["__order"] = frame[cols.visit].map(order)
+        frame = frame.sort_values([cols.subject, "__order"], kind="stable").drop(columns="__order")
+        return frame
+
+    def _baseline_values(self, endpoint) -> pd.Series:
+        cols, baseline = self.plan.columns, _baseline_column(self.plan)
+        records = self._endpoint_records(endpoint)
+        values = records[[cols.subject, baseline]].dropna().drop_duplicates(cols.subject)
+        return values.set_index(cols.subject)[baseline]
+
+
+ROLE_COLUMN = "record_role"
+
+
+def _find(items, item_id: str, kind: str):
+    for item in items:
+        if item.id == item_id:
+            return item
+    known = ", ".join(i.id for i in items)
+    raise PlanError(f"unknown {kind} {item_id!r}",
+                    [Problem(code=f"data.unknown_{kind}", message=f"the plan declares no {kind} {item_id!r}",
+                             expected=f"one of {known}", got=repr(item_id))])
+
+
+def _members(subjects: pd.DataFrame, population) -> pd.Series:
+    if not population.flag:
+        return pd.Series(True, index=subjects.index)
+    return subjects[population.flag] == "Y"
+
+
+def _outcome_column(plan, endpoint) -> str:
+    if endpoint.analysed == "change":
+        return plan.columns.change or "CHG"
+    return plan.columns.value
+
+
+def _baseline_column(plan) -> str:
+    return plan.columns.baseline or "BASE"
+
+
+# --------------------------------------------------------------------------- intercurrent events
+def _apply_events(plan, estimand, frame: pd.DataFrame, outcome: str,
+                  visit_days: dict[str, float | None]) -> pd.DataFrame:
+    cols = plan.columns
+    frame = frame.copy()
+    strategies = {h.event: h for h in estimand.intercurrent_events} if estimand else {}
+    day = _visit_study_day(frame, cols, visit_days)
+    governing = np.full(len(frame), None, dtype=object)
+    strategy = np.full(len(frame), None, dtype=object)
+    decided = np.zeros(len(frame), dtype=bool)   # governed by an outcome-changing event
+    events = [e for e in plan.intercurrent_events if e.day_column in frame.columns]
+    # Earliest event first, per row: sort the events by their day row by row.
+    event_days = np.column_stack([frame[e.day_column].astype(float).to_numpy() for e in events]) if events \
+        else np.zeros((len(frame), 0))
+    order = np.argsort(np.where(np.isnan(event_days), np.inf, event_days), axis=1, kind="stable")
+    for rank in range(len(events)):
+        pick = order[:, rank] if len(frame) else np.array([], dtype=int)
+        for position, index in enumerate(pick):
+            event = events[index]
+            event_day = event_days[position, index]
+            if np.isnan(event_day) or not (event_day <= day[position]) or decided[position]:
+                continue
+            handling = strategies.get(event.id)
+            changes = handling is not None and handling.strategy in ("hypothetical", "composite")
+            if governing[position] is None or changes:
+                governing[position] = event.id
+                strategy[position] = handling.strategy if handling else None
+                decided[position] = changes
+    frame["intercurrent_event"] = governing
+    frame["strategy"] = strategy
+    values = frame[outcome].astype(float)
+    hypothetical = frame["strategy"].eq("hypothetical").to_numpy()
+    frame["outcome_set_missing"] = hypothetical & values.notna().to_numpy()
+    frame.loc[hypothetical, outcome] = np.nan
+    composite = frame["strategy"].eq("composite").to_numpy()
+    composite_values = frame["intercurrent_event"].map(
+        {e: h.composite_value for e, h in strategies.items() if h.strategy == "composite"})
+    frame.loc[composite, outcome] = composite_values[composite].astype(float)
+    frame["outcome_set_composite"] = composite
+    return frame
+
+
+def _visit_study_day(frame: pd.DataFrame, cols, visit_days: dict[str, float | None]) -> np.ndarray:
+    planned = frame[cols.visit].map(visit_days).astype(float).to_numpy()
+    if cols.study_day and cols.study_day in frame.columns:
+        actual = frame[cols.study_day].astype(float).to_numpy()
+        return np.where(np.isnan(actual), planned, actual)
+    return planned
+
+
+# --------------------------------------------------------------------------- preparing a cut
+def prepare_cut(plan, raw: RawCut, dummy_arms_seed: int | None = None) -> DataCut:
+    """Check ``raw`` against ``plan`` (DataError on any error-severity failure) and derive."""
+    checked = check_cut(plan, raw)
+    log = list(checked.derivations)
+    work = _derive_baseline_and_change(plan, checked.records, log)
+    records = _analysed_records(plan, work)
+    reason = _reason_column(plan, records)
+    subjects = _subjects_table(plan, records, reason)
+    if dummy_arms_seed is not None:
+        subjects, records = _dummy_arms(plan, subjects, records, dummy_arms_seed, log)
+    return DataCut(plan=plan, manifest=dict(raw.manifest), records=records, subjects=subjects,
+                   conformance=checked.report, derivations=tuple(log),
+                   dummy_arms_seed=dummy_arms_seed, reason_column=reason)
+
+
+def _derive_baseline_and_change(plan, work: pd.DataFrame, log: list[dict[str, Any]]) -> pd.DataFrame:
+    cols = plan.columns
+    work = work.copy()
+    keys = [cols.subject] + ([cols.parameter] if cols.parameter and cols.parameter in work.columns else [])
+    baseline, change = _baseline_column(plan), plan.columns.change or "CHG"
+    from_record = (work[work[ROLE] == "baseline"][keys + [cols.value]]
+                   .drop_duplicates(keys).rename(columns={cols.value: "__base_record"}))
+    work = work.merge(from_record, on=keys, how="left").set_index(work.index)
+    if baseline not in work.columns:
+        work[baseline] = np.nan
+    fill = work[baseline].isna() & work["__base_record"].notna()
+    work.loc[fill, baseline] = work.loc[fill, "__base_record"]
+    if fill.any():
+        log.append({"step": "baseline", "count": int(fill.sum()),
+                    "reason": f"{baseline} taken from the baseline record's {cols.value} where empty or absent"})
+    if change not in work.columns:
+        work[change] = np.nan
+    post = work[ROLE] == "post"
+    derive = post & work[change].isna() & work[cols.value].notna() & work[baseline].notna()
+    work.loc[derive, change] = work.loc[derive, cols.value] - work.loc[derive, baseline]
+    if derive.any():
+        log.append({"step": "change_from_baseline", "count": int(derive.sum()),
+                    "reason": f"{change} = {cols.value} − {baseline} where {change} was empty or absent"})
+    return work.drop(columns="__base_record")
+
+
+def _analysed_records(plan, work: pd.DataFrame) -> pd.DataFrame:
+    cols = plan.columns
+    keep = (work[ROLE] == "baseline") | work[CHOSEN].astype(bool)
+    records = work[keep].copy()
+    records[VISIT_COLLECTED] = records[cols.visit] if cols.visit in records.columns else None
+    post = records[ROLE] == "post"
+    records.loc[post, cols.visit] = records.loc[post, ANALYSIS_VISIT]
+    if cols.visit_number and cols.visit_number in records.columns:
+        orders = {v.label: float(v.order) for v in plan.visits.schedule}
+        records.loc[post, cols.visit_number] = records.loc[post, cols.visit].map(orders)
+    records = records.rename(columns={ROW: SOURCE_ROW, ROLE: ROLE_COLUMN})
+    records = records.drop(columns=[ANALYSIS_VISIT, CHOSEN])
+    return records.sort_values(SOURCE_ROW, kind="stable").reset_index(drop=True)
+
+
+def _reason_column(plan, records: pd.DataFrame) -> str | None:
+    name = getattr(plan.columns, "discontinuation_reason", None) or DEFAULT_REASON_COLUMN
+    return name if name in records.columns else None
+
+
+def _subjects_table(plan, records: pd.DataFrame, reason: str | None) -> pd.DataFrame:
+    """One row per participant: arm, strata, flags, event days, reason and other constant columns."""
+    subject = plan.columns.subject
+    wanted = [plan.columns.arm, *subject_level_columns(plan)] + ([reason] if reason else [])
+    constant = [c for c in records.columns if c not in wanted and c != subject and not c.startswith("__")
+                and _constant_within(records, subject, c)]
+    columns = list(dict.fromkeys([c for c in wanted if c in records.columns] + constant))
+    grouped = records.groupby(subject, sort=True, dropna=True)[columns].first()
+    return grouped.reset_index()
+
+
+def _constant_within(records: pd.DataFrame, subject: str, column: str) -> bool:
+    if column in (SOURCE_ROW, ROLE_COLUMN, VISIT_COLLECTED):
+        return False
+    try:
+        return bool((records.groupby(subject)[column].nunique(dropna=False) <= 1).all())
+    except TypeError:
+        return False
+
+
+def _dummy_arms(plan, subjects: pd.DataFrame, records: pd.DataFrame, seed: int,
+                log: list[dict[str, Any]]) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Permute the participants' arms at random (within strata): sizes stay, the link is broken."""
+    subject, arm = plan.columns.subject, plan.columns.arm
+    strata = [s for s in plan.arms.strata if s in subjects.columns]
+    generator = np.random.default_rng(np.random.SeedSequence(seed))
+    subjects = subjects.sort_values(subject, kind="stable").reset_index(drop=True)
+    dummy = subjects[arm].copy()
+    groups = subjects.groupby(strata, sort=True, dropna=False).groups if strata else {"all": subjects.index}
+    for key in sorted(groups, key=str):
+        index = list(groups[key])
+        dummy.loc[index] = generator.permutation(subjects.loc[index, arm].to_numpy())
+    subjects = subjects.assign(**{arm: dummy})
+    records = records.assign(**{arm: records[subject].map(dict(zip(subjects[subject], dummy)))})
+    log.append({"step": "dummy_arms", "seed": int(seed), "count": int(len(subjects)),
+                "reason": "arms replaced by a seeded random permutation of the participants' arms"
+                          + (f" within strata {', '.join(strata)}" if strata else "")
+                          + " (blinded dry run: results carry no treatment information)"})
+    return subjects, records

@@ -1,0 +1,115 @@
+"""Assigning post-baseline records to analysis visits from the study day.
+
+The rule (common practice for visit windows in trial analysis datasets; our statement of it):
+
+1. A record belongs to a visit when its study day lies inside ``planned day ± window``.
+   If windows overlap, the visit whose planned day is closest wins; a tie goes to the
+   later visit.  A record inside no window is left unassigned and logged.
+2. When several records of one participant fall to the same visit, the one closest to the
+   planned day is analysed; a tie goes to the later record (the later measurement is the
+   more complete picture of the period).  Every such choice is logged with the rejected days.
+
+Two records of one participant on the same study day cannot be chosen between by this
+rule; the conformance checks report them as an error before windowing runs.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any, Sequence
+
+import numpy as np
+import pandas as pd
+
+
+@dataclass(frozen=True)
+class Window:
+    label: str
+    day: float
+    half_width: float
+
+
+@dataclass(frozen=True)
+class WindowAssignment:
+    """``visit``: the assigned label per record (None when unassigned), aligned with the input;
+    ``chosen``: True for the one record analysed per participant and visit;
+    ``log``: one entry per choice or unassigned record."""
+
+    visit: pd.Series
+    chosen: pd.Series
+    log: tuple[dict[str, Any], ...]
+
+
+def windows_from_schedule(schedule: Sequence[Any]) -> tuple[Window, ...]:
+    """Plan visits (with ``label``, ``day``, ``window``) -> windows."""
+    return tuple(Window(v.label, float(v.day), float(v.window)) for v in schedule)
+
+
+def assign_visits(days: pd.Series, participants: pd.Series, windows: Sequence[Window],
+                  parameters: pd.Series | None = None) -> WindowAssignment:
+    """Assign each record (one study day each) to a visit and choose one record per visit."""
+    visit = pd.Series([_window_of(d, windows) for d in days.to_numpy(dtype=float)],
+                      index=days.index, dtype=object)
+    chosen = pd.Series(False, index=days.index)
+    log: list[dict[str, Any]] = []
+    keys = _group_keys(participants, parameters)
+    for position, index in enumerate(days.index):
+        if visit[index] is None:
+            log.append(_entry(keys[position], None, None, [days[index]],
+                              _unassigned_reason(days[index])))
+    planned = {w.label: w.day for w in windows}
+    frame = pd.DataFrame({"key": keys, "visit": visit.to_numpy(), "day": days.to_numpy(dtype=float)},
+                         index=days.index)
+    frame = frame[frame["visit"].notna()]
+    for (key, label), group in frame.groupby(["key", "visit"], sort=True):
+        winner, reason = _choose(group["day"], planned[label])
+        chosen[winner] = True
+        if len(group) > 1:
+            rejected = sorted(float(d) for i, d in group["day"].items() if i != winner)
+            log.append(_entry(key, label, float(group.at[winner, "day"]), rejected, reason))
+    return WindowAssignment(visit, chosen, tuple(log))
+
+
+def _window_of(day: float, windows: Sequence[Window]) -> str | None:
+    if not np.isfinite(day):
+        return None
+    inside = [w for w in windows if abs(day - w.day) <= w.half_width]
+    if not inside:
+        return None
+    # Closest planned day; on a tie the later visit (max of (-distance, planned day)).
+    return max(inside, key=lambda w: (-abs(day - w.day), w.day)).label
+
+
+def _choose(days: pd.Series, planned: float) -> tuple[Any, str]:
+    distance = (days - planned).abs()
+    closest = distance[distance == distance.min()]
+    if len(closest) == 1:
+        return closest.index[0], f"closest to planned day {planned:g}"
+    candidates = days[closest.index]
+    later = candidates[candidates == candidates.max()]
+    return later.index[-1], f"equally close to planned day {planned:g}; the later record wins"
+
+
+def _unassigned_reason(day: float) -> str:
+    if not np.isfinite(day):
+        return "no study day, so the record cannot be placed in a visit window"
+    return f"day {day:g} is outside every visit window"
+
+
+def _group_keys(participants: pd.Series, parameters: pd.Series | None) -> list[tuple[Any, Any]]:
+    subjects = participants.to_numpy(dtype=object)
+    params = parameters.to_numpy(dtype=object) if parameters is not None else [None] * len(subjects)
+    return list(zip(subjects, params))
+
+
+def _entry(key: tuple[Any, Any], visit: str | None, chosen_day: float | None,
+           rejected: list[float], reason: str) -> dict[str, Any]:
+    participant, parameter = key
+    entry = {"step": "visit_window", "participant": participant, "visit": visit,
+             "chosen_day": chosen_day, "rejected_days": [_plain(d) for d in rejected], "reason": reason}
+    if parameter is not None:
+        entry["parameter"] = parameter
+    return entry
+
+
+def _plain(day: float) -> float | None:
+    return float(day) if np.isfinite(day) else None
