@@ -1,17 +1,22 @@
 """The analysis plan: one pydantic schema, the only place a plan's shape is defined.
 
 Every model is frozen and forbids unknown keys, so a typo in a plan is an error, not a
-silently ignored setting.  Cross-field rules (the reference arm is one of the arms, an
-estimand names a known population, ...) are checked in the ``AnalysisPlan`` validator and
-reported with the path of the offending field.  Allowed names of covariance structures,
+silently ignored setting.  Rules that span fields (the reference arm is one of the arms,
+visits are in time order, an estimand names a known population, ...) collect every
+:class:`RuleIssue` they find, each with the path of the offending field relative to the
+model that checks it, and raise them together as one ``plan_rule`` error; the loader
+(:mod:`trialcut.plan.load`) turns each issue into its own located problem.  Allowed names of covariance structures,
 df methods and imputation assumptions come from :mod:`trialcut.stats.names`, the lists the
 engine dispatches on.
 """
 from __future__ import annotations
 
-from typing import Annotated, Any, Literal, Union
+import difflib
+from dataclasses import dataclass
+from typing import Annotated, Any, Iterable, Iterator, Literal, Union
 
 from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
+from pydantic_core import PydanticCustomError
 
 from trialcut.stats.names import (
     COVARIANCE_STRUCTURES,
@@ -33,7 +38,39 @@ PLAN_FORMAT_VERSION = 1
 
 
 class Strict(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True)
+    # NaN and infinity never mean anything in a plan and would break the canonical JSON.
+    model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
+
+
+@dataclass(frozen=True)
+class RuleIssue:
+    """One broken rule; ``path`` is relative to the model whose validator found it."""
+
+    path: tuple[str | int, ...]
+    message: str
+    expected: str | None = None
+    got: str | None = None
+    hint: str | None = None
+    code: str = "plan.rule"
+
+
+def _raise_issues(issues: Iterable[RuleIssue]) -> None:
+    issues = tuple(issues)
+    if issues:
+        summary = "; ".join(issue.message for issue in issues)
+        raise PydanticCustomError("plan_rule", "{summary}", {"summary": summary, "issues": issues})
+
+
+def suggestion(word: object, choices: Iterable[str]) -> str | None:
+    """'did you mean ...?' for a near miss, else None."""
+    if not isinstance(word, str):
+        return None
+    close = difflib.get_close_matches(word, list(choices), n=1, cutoff=0.6)
+    return f"did you mean {close[0]!r}?" if close else None
+
+
+def _one_of(choices: Iterable[str]) -> str:
+    return "one of " + ", ".join(str(c) for c in choices)
 
 
 # --------------------------------------------------------------------------- study, columns
@@ -74,12 +111,21 @@ class Arms(Strict):
 
     @model_validator(mode="after")
     def _reference_is_an_arm(self) -> "Arms":
-        codes = [a.code for a in self.list]
-        if len(set(codes)) != len(codes):
-            raise ValueError(f"arm codes must be unique; got {codes}")
-        if self.reference not in codes:
-            raise ValueError(f"reference arm {self.reference!r} is not among the arms {codes}")
+        _raise_issues(_arms_issues(self))
         return self
+
+
+def _arms_issues(arms: Arms) -> Iterator[RuleIssue]:
+    codes = [a.code for a in arms.list]
+    for index, code in enumerate(codes):
+        if code in codes[:index]:
+            yield RuleIssue(("list", index, "code"), f"arm code {code!r} is used twice",
+                            expected="a different code for every arm", got=repr(code), code="plan.duplicate_arm")
+    if arms.reference not in codes:
+        yield RuleIssue(("reference",), f"reference arm {arms.reference!r} is not among the arms",
+                        expected=_one_of(codes), got=repr(arms.reference),
+                        hint=suggestion(arms.reference, codes) or "name the control arm by its code",
+                        code="plan.unknown_reference_arm")
 
 
 class Visit(Strict):
@@ -96,18 +142,40 @@ class Visits(Strict):
 
     @model_validator(mode="after")
     def _ordered_and_windowed(self) -> "Visits":
-        orders = [v.order for v in self.schedule]
-        if orders != sorted(orders) or len(set(orders)) != len(orders):
-            raise ValueError(f"visit orders must increase strictly down the schedule; got {orders}")
-        labels = [v.label for v in self.schedule]
-        if len(set(labels)) != len(labels) or self.baseline in labels:
-            raise ValueError(f"visit labels must be unique and differ from the baseline label; got {labels}")
-        days = [v.day for v in self.schedule]
-        if all(d is not None for d in days) and days != sorted(days):
-            raise ValueError(f"planned days must increase with the visit order; got {days}")
-        if self.windowing and any(v.day is None or v.window is None for v in self.schedule):
-            raise ValueError("windowing needs a planned 'day' and a 'window' for every visit")
+        _raise_issues(_visits_issues(self))
         return self
+
+
+def _visits_issues(visits: Visits) -> Iterator[RuleIssue]:
+    schedule = visits.schedule
+    for index in range(1, len(schedule)):
+        before, visit = schedule[index - 1], schedule[index]
+        if visit.order <= before.order:
+            yield RuleIssue(("schedule", index, "order"), "visit orders must increase down the schedule",
+                            expected=f"more than {before.order} (the order of {before.label!r})",
+                            got=str(visit.order), hint="list the visits in time order, numbered 1, 2, 3, ...",
+                            code="plan.visit_order")
+        if visit.day is not None and before.day is not None and visit.day <= before.day:
+            yield RuleIssue(("schedule", index, "day"), "planned days must increase down the schedule",
+                            expected=f"more than {before.day:g} (the day of {before.label!r})",
+                            got=f"{visit.day:g}", code="plan.visit_day_order")
+    labels = [v.label for v in schedule]
+    for index, label in enumerate(labels):
+        if label in labels[:index]:
+            yield RuleIssue(("schedule", index, "label"), f"visit label {label!r} is used twice",
+                            expected="a different label for every visit", got=repr(label),
+                            code="plan.duplicate_visit")
+        if label == visits.baseline:
+            yield RuleIssue(("schedule", index, "label"), f"visit {label!r} has the baseline label",
+                            expected="post-baseline visits only", got=repr(label),
+                            hint="the baseline visit is named by visits.baseline, not listed in the schedule",
+                            code="plan.baseline_in_schedule")
+        if visits.windowing:
+            for key in ("day", "window"):
+                if getattr(schedule[index], key) is None:
+                    yield RuleIssue(("schedule", index), f"windowing needs a planned {key!r} for every visit",
+                                    expected=f"a {key!r} for visit {label!r}", got="none",
+                                    hint="add it, or set visits.windowing: false", code="plan.windowing")
 
 
 class Population(Strict):
@@ -135,14 +203,23 @@ class EventHandling(Strict):
 
     @model_validator(mode="after")
     def _supported(self) -> "EventHandling":
-        if self.strategy not in SUPPORTED_STRATEGIES:
-            raise ValueError(
-                f"strategy {self.strategy!r} is not supported yet; use one of {', '.join(SUPPORTED_STRATEGIES)}")
-        if self.strategy == "composite" and self.composite_value is None:
-            raise ValueError("the composite strategy needs 'composite_value'")
-        if self.strategy != "composite" and self.composite_value is not None:
-            raise ValueError("'composite_value' is only for the composite strategy")
+        _raise_issues(_event_handling_issues(self))
         return self
+
+
+def _event_handling_issues(handling: EventHandling) -> Iterator[RuleIssue]:
+    if handling.strategy not in SUPPORTED_STRATEGIES:
+        yield RuleIssue(("strategy",), f"strategy {handling.strategy!r} is not supported yet",
+                        expected=_one_of(SUPPORTED_STRATEGIES), got=repr(handling.strategy),
+                        code="plan.unsupported_strategy")
+    if handling.strategy == "composite" and handling.composite_value is None:
+        yield RuleIssue(("strategy",), "the composite strategy needs 'composite_value'",
+                        expected="composite_value: the outcome value given after the event", got="none",
+                        hint="add composite_value, e.g. the worst possible score", code="plan.composite_value")
+    if handling.strategy != "composite" and handling.composite_value is not None:
+        yield RuleIssue(("composite_value",), "'composite_value' is only for the composite strategy",
+                        expected="no composite_value", got=f"{handling.composite_value:g}",
+                        hint="remove it, or set strategy: composite", code="plan.composite_value")
 
 
 class Estimand(Strict):
@@ -176,7 +253,11 @@ class MMRMOptions(Strict):
     @model_validator(mode="after")
     def _kenward_roger_needs_reml(self) -> "MMRMOptions":
         if self.df.startswith("kenward_roger") and self.method != "reml":
-            raise ValueError("df 'kenward_roger' needs method 'reml'")
+            # Kenward-Roger adjusts the REML covariance of the fixed effects; under ML it is undefined.
+            _raise_issues([RuleIssue(
+                ("df",), f"df {self.df!r} needs method 'reml'", expected="method reml with this df",
+                got=f"method {self.method}", hint="set method: reml, or choose df: satterthwaite",
+                code="plan.kenward_roger_needs_reml")])
         return self
 
 
@@ -275,11 +356,18 @@ class Endpoint(Strict):
 
     @model_validator(mode="after")
     def _continuous_only(self) -> "Endpoint":
-        if self.type != "continuous":
-            raise ValueError(f"endpoint type {self.type!r} is reserved and not supported yet; use 'continuous'")
-        if self.range is not None and self.range[0] >= self.range[1]:
-            raise ValueError(f"range must be (low, high) with low < high; got {list(self.range)}")
+        _raise_issues(_endpoint_issues(self))
         return self
+
+
+def _endpoint_issues(endpoint: Endpoint) -> Iterator[RuleIssue]:
+    if endpoint.type != "continuous":
+        yield RuleIssue(("type",), f"endpoint type {endpoint.type!r} is reserved and not supported yet",
+                        expected="continuous", got=repr(endpoint.type), code="plan.endpoint_type")
+    if endpoint.range is not None and endpoint.range[0] >= endpoint.range[1]:
+        yield RuleIssue(("range",), "range must be [low, high] with low < high",
+                        expected="low < high", got=f"[{endpoint.range[0]:g}, {endpoint.range[1]:g}]",
+                        code="plan.range")
 
 
 # --------------------------------------------------------------------------- multiplicity, report
@@ -332,9 +420,7 @@ class AnalysisPlan(Strict):
 
     @model_validator(mode="after")
     def _cross_references(self) -> "AnalysisPlan":
-        problems = list(_cross_reference_problems(self))
-        if problems:
-            raise ValueError("; ".join(problems))
+        _raise_issues(_cross_reference_problems(self))
         return self
 
     # Convenience lookups used downstream (read-only).
@@ -356,68 +442,135 @@ class AnalysisPlan(Strict):
         return tuple(a.code for a in self.arms.list)
 
 
-def _unique(kind: str, ids: list[str]) -> list[str]:
-    seen, dup = set(), []
-    for i in ids:
-        if i in seen:
-            dup.append(i)
-        seen.add(i)
-    return [f"{kind} id {d!r} is used twice" for d in dup]
+def _not_declared(path, what: str, name: str, known: Iterable[str], code: str) -> RuleIssue:
+    known = sorted(known)
+    return RuleIssue(path, f"{what} {name!r} is not declared",
+                     expected=_one_of(known) if known else f"a declared {what}", got=repr(name),
+                     hint=suggestion(name, known), code=code)
 
 
-def _cross_reference_problems(plan: AnalysisPlan):
-    pops = {p.id for p in plan.populations}
-    events = {e.id for e in plan.intercurrent_events}
-    estimands = {e.id for e in plan.estimands}
-    visits = set(plan.visit_labels)
-    arms = set(plan.arm_codes)
-    yield from _unique("population", [p.id for p in plan.populations])
-    yield from _unique("intercurrent event", [e.id for e in plan.intercurrent_events])
-    yield from _unique("estimand", [e.id for e in plan.estimands])
-    yield from _unique("endpoint", [e.id for e in plan.endpoints])
-    for est in plan.estimands:
-        if est.population not in pops:
-            yield f"estimand {est.id!r}: population {est.population!r} is not declared (known: {sorted(pops)})"
-        for h in est.intercurrent_events:
-            if h.event not in events:
-                yield f"estimand {est.id!r}: intercurrent event {h.event!r} is not declared (known: {sorted(events)})"
+def _duplicates(section: str, ids: list[str], key: str = "id") -> Iterator[RuleIssue]:
+    for index, item_id in enumerate(ids):
+        if item_id in ids[:index]:
+            yield RuleIssue((section, index, key), f"id {item_id!r} is used twice",
+                            expected="a different id for every item", got=repr(item_id), code="plan.duplicate_id")
+
+
+def _cross_reference_problems(plan: AnalysisPlan) -> Iterator[RuleIssue]:
+    yield from _duplicates("populations", [p.id for p in plan.populations])
+    yield from _duplicates("intercurrent_events", [e.id for e in plan.intercurrent_events])
+    yield from _duplicates("estimands", [e.id for e in plan.estimands])
+    yield from _duplicates("endpoints", [e.id for e in plan.endpoints])
+    yield from _estimand_references(plan)
+    yield from _endpoint_references(plan)
+    yield from _multiplicity_references(plan)
+
+
+def _estimand_references(plan: AnalysisPlan) -> Iterator[RuleIssue]:
+    populations = [p.id for p in plan.populations]
+    events = [e.id for e in plan.intercurrent_events]
+    for index, estimand in enumerate(plan.estimands):
+        if estimand.population not in populations:
+            yield _not_declared(("estimands", index, "population"), "population", estimand.population,
+                                populations, "plan.unknown_population")
+        for position, handling in enumerate(estimand.intercurrent_events):
+            if handling.event not in events:
+                yield _not_declared(("estimands", index, "intercurrent_events", position, "event"),
+                                    "intercurrent event", handling.event, events, "plan.unknown_event")
+
+
+def _analysis_paths(plan: AnalysisPlan) -> Iterator[tuple[tuple[str | int, ...], Any]]:
+    for index, endpoint in enumerate(plan.endpoints):
+        yield ("endpoints", index, "analyses", "primary"), endpoint.analyses.primary
+        for position, analysis in enumerate(endpoint.analyses.sensitivity):
+            yield ("endpoints", index, "analyses", "sensitivity", position), analysis
+
+
+def _endpoint_references(plan: AnalysisPlan) -> Iterator[RuleIssue]:
+    visits = list(plan.visit_labels)
+    for index, endpoint in enumerate(plan.endpoints):
+        if endpoint.primary_visit not in visits:
+            yield RuleIssue(("endpoints", index, "primary_visit"),
+                            f"primary visit {endpoint.primary_visit!r} is not a scheduled visit",
+                            expected=_one_of(visits), got=repr(endpoint.primary_visit),
+                            hint=suggestion(endpoint.primary_visit, visits), code="plan.unknown_visit")
     analysis_ids: list[str] = []
-    for ep in plan.endpoints:
-        if ep.primary_visit not in visits:
-            yield f"endpoint {ep.id!r}: primary_visit {ep.primary_visit!r} is not a scheduled visit ({sorted(visits)})"
-        for an in (ep.analyses.primary, *ep.analyses.sensitivity):
-            analysis_ids.append(an.id)
-            if an.estimand is not None and an.estimand not in estimands:
-                yield f"analysis {an.id!r}: estimand {an.estimand!r} is not declared (known: {sorted(estimands)})"
-            if an.population is not None and an.population not in pops:
-                yield f"analysis {an.id!r}: population {an.population!r} is not declared (known: {sorted(pops)})"
-            if an.estimand is None and an.population is None:
-                yield f"analysis {an.id!r}: name an 'estimand' or a 'population'"
-            if isinstance(an, AncovaAnalysis) and not isinstance(an.options.visits, str):
-                for v in an.options.visits:
-                    if v not in visits:
-                        yield f"analysis {an.id!r}: visit {v!r} is not a scheduled visit"
-            if isinstance(an, ImputationAnalysis) and an.options.delta is not None:
-                if len(an.options.delta) != len(visits):
-                    yield (f"analysis {an.id!r}: delta needs one value per scheduled visit "
-                           f"({len(visits)}); got {len(an.options.delta)}")
-                for a in an.options.delta_arms:
-                    if a not in arms:
-                        yield f"analysis {an.id!r}: delta arm {a!r} is not an arm"
-    yield from _unique("analysis", analysis_ids)
-    known_analyses = set(analysis_ids)
-    for h in plan.multiplicity.hypotheses:
-        if h.analysis not in known_analyses:
-            yield f"multiplicity hypothesis {h.id!r}: analysis {h.analysis!r} is not declared"
-        if h.arm not in arms or h.arm == plan.arms.reference:
-            yield f"multiplicity hypothesis {h.id!r}: arm {h.arm!r} must be a non-reference arm"
-    n_h = len(plan.multiplicity.hypotheses)
+    for path, analysis in _analysis_paths(plan):
+        if analysis.id in analysis_ids:
+            yield RuleIssue(path + ("id",), f"analysis id {analysis.id!r} is used twice",
+                            expected="a different id for every analysis", got=repr(analysis.id),
+                            code="plan.duplicate_id")
+        analysis_ids.append(analysis.id)
+        yield from _analysis_references(plan, path, analysis)
+
+
+def _analysis_references(plan: AnalysisPlan, path, analysis) -> Iterator[RuleIssue]:
+    populations = [p.id for p in plan.populations]
+    estimands = [e.id for e in plan.estimands]
+    visits = list(plan.visit_labels)
+    if analysis.estimand is not None and analysis.estimand not in estimands:
+        yield _not_declared(path + ("estimand",), "estimand", analysis.estimand, estimands, "plan.unknown_estimand")
+    if analysis.population is not None and analysis.population not in populations:
+        yield _not_declared(path + ("population",), "population", analysis.population, populations,
+                            "plan.unknown_population")
+    if analysis.estimand is None and analysis.population is None:
+        yield RuleIssue(path, f"analysis {analysis.id!r} names neither an estimand nor a population",
+                        expected="an 'estimand' or a 'population' key", got="neither",
+                        code="plan.analysis_target")
+    if isinstance(analysis, AncovaAnalysis) and not isinstance(analysis.options.visits, str):
+        for position, visit in enumerate(analysis.options.visits):
+            if visit not in visits:
+                yield RuleIssue(path + ("options", "visits", position), f"visit {visit!r} is not a scheduled visit",
+                                expected=_one_of(visits), got=repr(visit), hint=suggestion(visit, visits),
+                                code="plan.unknown_visit")
+    if isinstance(analysis, ImputationAnalysis):
+        yield from _delta_references(plan, path, analysis.options)
+
+
+def _delta_references(plan: AnalysisPlan, path, options: ImputationOptions) -> Iterator[RuleIssue]:
+    visits = plan.visit_labels
+    if options.delta is not None and len(options.delta) != len(visits):
+        yield RuleIssue(path + ("options", "delta"), "delta needs one value per scheduled visit",
+                        expected=f"{len(visits)} values", got=f"{len(options.delta)}", code="plan.delta_length")
+    for position, arm in enumerate(options.delta_arms):
+        if arm not in plan.arm_codes:
+            yield _not_declared(path + ("options", "delta_arms", position), "arm", arm, plan.arm_codes,
+                                "plan.unknown_arm")
+
+
+def _multiplicity_references(plan: AnalysisPlan) -> Iterator[RuleIssue]:
+    analyses = [analysis.id for _, analysis in _analysis_paths(plan)]
+    active_arms = [code for code in plan.arm_codes if code != plan.arms.reference]
+    hypotheses = plan.multiplicity.hypotheses
+    for index, hypothesis in enumerate(hypotheses):
+        path = ("multiplicity", "hypotheses", index)
+        if hypothesis.analysis not in analyses:
+            yield _not_declared(path + ("analysis",), "analysis", hypothesis.analysis, analyses,
+                                "plan.unknown_analysis")
+        if hypothesis.arm not in active_arms:
+            yield RuleIssue(path + ("arm",), f"hypothesis arm {hypothesis.arm!r} is not a non-reference arm",
+                            expected=_one_of(active_arms), got=repr(hypothesis.arm),
+                            hint=suggestion(hypothesis.arm, active_arms), code="plan.unknown_arm")
+        if hypothesis.visit is not None and hypothesis.visit not in plan.visit_labels:
+            yield RuleIssue(path + ("visit",), f"hypothesis visit {hypothesis.visit!r} is not a scheduled visit",
+                            expected=_one_of(plan.visit_labels), got=repr(hypothesis.visit),
+                            hint=suggestion(hypothesis.visit, plan.visit_labels), code="plan.unknown_visit")
     if plan.multiplicity.method == "graphical":
-        t = plan.multiplicity.transitions
-        if len(t) != n_h or any(len(row) != n_h for row in t):
-            yield f"multiplicity: graphical transitions must be a {n_h}×{n_h} matrix"
-        elif any(sum(row) > 1 + 1e-12 or row[i] != 0 for i, row in enumerate(t)):
-            yield "multiplicity: each transition row sums to at most 1 and has 0 on the diagonal"
+        yield from _transition_issues(plan.multiplicity.transitions, len(hypotheses))
+
+
+def _transition_issues(transitions, size: int) -> Iterator[RuleIssue]:
+    path = ("multiplicity", "transitions")
+    if len(transitions) != size or any(len(row) != size for row in transitions):
+        yield RuleIssue(path, "graphical transitions must be a square matrix, one row per hypothesis",
+                        expected=f"a {size}×{size} matrix", got=f"{len(transitions)} rows",
+                        code="plan.transitions")
+        return
+    for index, row in enumerate(transitions):
+        if sum(row) > 1 + 1e-12 or row[index] != 0 or any(weight < 0 for weight in row):
+            yield RuleIssue(path + (index,), "a transition row sums to at most 1 and has 0 on the diagonal",
+                            expected="weights ≥ 0 summing to ≤ 1, diagonal 0", got=str(list(row)),
+                            code="plan.transitions")
 
 
 def json_schema() -> dict[str, Any]:
