@@ -11,8 +11,7 @@ import pytest
 
 from trialcut.errors import InputError, TrialcutError
 from trialcut.record.manifest import MANIFEST_NAME
-from trialcut.record.recorder import record_run
-from trialcut.record.registry import append_run, find_run, list_runs, verify_chain
+from trialcut.record.registry import append_run, find_run, list_runs, record_run, verify_chain
 
 ZEROS = "0" * 64
 
@@ -223,12 +222,12 @@ def test_failed_append_removes_the_new_folder(tmp_path):
 
 
 def test_interrupted_append_removes_the_new_folder(tmp_path, monkeypatch):
-    import trialcut.record.recorder as recorder
+    import trialcut.record.registry as registry
 
     def interrupted(path, values):
         raise KeyboardInterrupt
 
-    monkeypatch.setattr(recorder, "append_run", interrupted)
+    monkeypatch.setattr(registry, "append_run", interrupted)
     with pytest.raises(KeyboardInterrupt):
         record_run(tmp_path, tmp_path / "registry.sqlite", "S", "c1", "r1", fill, RUN_ENTRY)
     assert list((tmp_path / "S" / "c1").iterdir()) == []

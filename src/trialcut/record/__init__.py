@@ -3,8 +3,8 @@ from __future__ import annotations
 
 from trialcut.record.environment import capture_environment
 from trialcut.record.manifest import MANIFEST_NAME, parse_manifest, sha256_file, write_manifest
-from trialcut.record.recorder import RecordedRun, record_run
-from trialcut.record.registry import RegistryRow, append_run, find_run, list_runs, verify_chain
+from trialcut.record.registry import (RecordedRun, RegistryRow, append_run, find_run, list_runs,
+                                     record_run, verify_chain)
 from trialcut.record.runfolder import (list_run_folders, new_run_id, safe_folder_name,
                                        write_run_folder)
 from trialcut.record.verify import VerificationReport, verify_all, verify_run

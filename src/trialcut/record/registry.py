@@ -12,6 +12,10 @@ then remembers the highest number ever used, which exposes a removed last row to
 chain proves order and integrity, not authorship: whoever can rewrite the whole file can
 rebuild a consistent chain, which is why the run folders' manifests are checked as well.
 
+``record_run`` writes a run folder and then appends its row; if the append fails the new
+folder is removed again, so a run is either fully recorded or absent, never a folder
+without its row (a row always points at a complete folder, since folders appear whole).
+
 Appends run inside ``BEGIN IMMEDIATE`` (the write lock is taken before the last row is
 read), so two processes appending at once still produce one unbroken chain.
 """
@@ -19,15 +23,19 @@ from __future__ import annotations
 
 import hashlib
 import json
+import os
 import re
+import shutil
 import sqlite3
 from contextlib import closing
 from dataclasses import asdict, dataclass, fields
 from datetime import datetime, timezone
 from pathlib import Path
-from typing import Any
+from typing import Any, Callable
 
 from trialcut.errors import InputError, Problem, TrialcutError
+from trialcut.record.manifest import MANIFEST_NAME, sha256_file
+from trialcut.record.runfolder import write_run_folder
 
 GENESIS_HASH = "0" * 64
 SCHEMA_VERSION = 1
@@ -304,3 +312,52 @@ def _read(connection: sqlite3.Connection, registry_path: Path, query: str,
 
 def _row(record: sqlite3.Row) -> RegistryRow:
     return RegistryRow(**{column: record[column] for column in COLUMNS})
+
+
+# Fields record_run fills itself; an entry may repeat them only with the same value.
+_FILLED_HERE = ("run_id", "study_id", "cut", "folder", "manifest_sha256")
+
+
+@dataclass(frozen=True)
+class RecordedRun:
+    folder: Path
+    row: RegistryRow
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"folder": str(self.folder), "row": self.row.to_dict()}
+
+
+def record_run(out_root: Path, registry_path: Path, study_id: str, cut: str, run_id: str,
+               write: Callable[[Path], None], entry: dict[str, Any]) -> RecordedRun:
+    """Write the run folder with ``write`` and append its registry row.
+
+    ``entry`` gives plan_sha256, lock_status, dummy_arms, data_sha256 and optionally
+    created_utc; the run's names, its folder (relative to the registry's folder) and the
+    manifest hash are filled in here.
+    """
+    folder = write_run_folder(out_root, study_id, cut, run_id, write)
+    try:
+        filled = {"run_id": run_id, "study_id": study_id, "cut": cut,
+                  "folder": _relative_folder(folder, Path(registry_path)),
+                  "manifest_sha256": sha256_file(folder / MANIFEST_NAME)}
+        _refuse_conflicts(entry, filled)
+        row = append_run(registry_path, {**entry, **filled})
+    except BaseException:
+        shutil.rmtree(folder, ignore_errors=True)
+        raise
+    return RecordedRun(folder=folder, row=row)
+
+
+def _relative_folder(folder: Path, registry_path: Path) -> str:
+    # Relative, so that the output folder can be moved or copied whole and still verify.
+    relative = os.path.relpath(folder.resolve(), registry_path.parent.resolve())
+    return Path(relative).as_posix()
+
+
+def _refuse_conflicts(entry: dict[str, Any], filled: dict[str, Any]) -> None:
+    problems = [Problem(code="registry.entry_field", field=key,
+                        message="record_run fills this field itself",
+                        expected=repr(filled[key]), got=repr(entry[key]))
+                for key in _FILLED_HERE if key in entry and entry[key] != filled[key]]
+    if problems:
+        raise TrialcutError("a registry entry disagrees with the run being recorded", problems)

@@ -42,6 +42,7 @@ class VerificationReport:
                 "registry_rows_checked": self.registry_rows_checked,
                 "problems": [problem.to_dict() for problem in self.problems]}
 
+    @property
     def summary(self) -> str:
         checked = (f"{len(self.run_folders)} run folder(s), {self.files_checked} file(s), "
                    f"{self.registry_rows_checked} registry row(s)")
@@ -86,7 +87,7 @@ def verify_all(out_root: Path, registry_path: Path) -> VerificationReport:
 
 def _raise_if_failed(report: VerificationReport, subject: str) -> VerificationReport:
     if report.problems:
-        raise VerificationFailed(f"{subject} does not match its records: {report.summary()}",
+        raise VerificationFailed(f"{subject} does not match its records: {report.summary}",
                                  report.problems)
     return report
 
