@@ -1,0 +1,427 @@
+"""Mixed model for repeated measures: generalised least squares with a within-participant
+covariance structure over the planned visits, fitted by REML (default) or ML.
+
+``fit_mmrm`` checks its arguments and the data once (:mod:`trialcut.stats.mmrm_design`),
+maximises the likelihood for each covariance structure in turn until one converges
+(:mod:`trialcut.stats.mmrm_likelihood`), computes every table eagerly
+(:mod:`trialcut.stats.mmrm_inference`) and returns a frozen :class:`MMRMFit` that keeps no
+reference to the data.
+
+Conventions (also stated in shared/DESIGN.md):
+
+* ``loglik`` carries the full constant (ML: sum of the participants' multivariate normal
+  log-densities; REML: -1/2[(n-p) log 2pi + sum log|Sigma_i| + log|X'V^-1X| + r'V^-1 r]).
+* AIC = -2 loglik + 2 d and BIC = -2 loglik + d log(n_subjects), where d is the number of
+  covariance parameters for REML and covariance parameters plus fixed effects for ML.
+* Marginal means set numeric covariates to their mean over the participants in the fit (each
+  counted once, at their first analysed visit) and categorical covariates to their observed
+  proportions over the same participants.
+* Joint tests: ``arm`` tests the arm means averaged over visits (equal weights); ``visit`` the
+  visit means averaged over arms; ``arm_by_visit`` the interaction contrasts; a covariate its
+  effect averaged over visits (equal weights) and ``<column>_by_visit`` its visit-specific
+  departures from the first visit.
+* ``covariance_matrix()`` and ``correlation_matrix()`` return one DataFrame (visits x visits);
+  with ``covariance_by`` the rows carry a first index level named ``group``.
+"""
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass, fields
+from typing import Any, Mapping, Sequence
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from trialcut.errors import ConvergenceError, FitError, ModelSpecificationError, Problem
+from trialcut.stats.covariance import STRUCTURES, make_structure
+from trialcut.stats.mmrm_design import Design, build_design
+from trialcut.stats.mmrm_inference import Inference
+from trialcut.stats.mmrm_likelihood import Likelihood, Maximum, maximise
+from trialcut.stats.names import DF_METHODS, ESTIMATION_METHODS
+
+FIXED_EFFECT_COLUMNS = ("term", "estimate", "se", "df", "t", "p")
+MEAN_COLUMNS = ("arm", "visit", "estimate", "se", "df", "lower", "upper")
+DIFFERENCE_COLUMNS = ("arm", "reference", "visit", "estimate", "se", "df", "t", "p", "lower", "upper")
+JOINT_COLUMNS = ("term", "num_df", "den_df", "F", "p")
+RESIDUAL_COLUMNS = ("subject", "visit", "fitted", "residual", "scaled_residual")
+
+
+# =========================================================================== result
+@dataclass(frozen=True)
+class MMRMFit:
+    """A fitted repeated-measures model: plain data, frozen, JSON-able through ``to_dict``."""
+
+    settings: dict                  # the arguments of the fit, as given
+    structure: str                  # the covariance structure used
+    method: str
+    df_method: str
+    robust: bool
+    converged: bool
+    iterations: int
+    gradient_norm: float            # max |dl/dtheta| at the estimate
+    scaled_gradient: float          # g' I^-1 g / 2 at the estimate (the convergence criterion)
+    tolerance: float
+    loglik: float
+    aic: float
+    bic: float
+    n_subjects: int
+    n_subjects_excluded: int        # participants with no observed outcome
+    excluded_subjects: tuple
+    n_obs: int
+    visits: tuple
+    arms: tuple                     # reference first
+    groups: tuple                   # covariance groups; (None,) without covariance_by
+    covariate_summary: dict
+    attempts: tuple                 # one dict per structure tried
+    warnings: tuple
+    term_names: tuple
+    coefficients: tuple
+    coefficient_covariance: tuple   # the variance used for inference (Phi_A, Phi or sandwich)
+    model_based_covariance: tuple   # Phi = (X'V^-1X)^-1
+    covariance_parameter_names: tuple
+    covariance_parameters: tuple    # theta, in the structure's parametrisation
+    covariance_parameter_covariance: tuple   # W, inverse expected information of theta
+    covariance_matrices: tuple      # per group, k x k
+    fixed_effect_rows: tuple        # (estimate, se, df) per term
+    mean_rows: tuple                # (arm, visit, estimate, se, df)
+    difference_rows: tuple          # (arm, reference, visit, estimate, se, df)
+    joint_rows: tuple               # (term, num_df, den_df, F, p)
+    residual_rows: tuple            # (subject, visit, fitted, residual, scaled_residual)
+
+    # ----------------------------------------------------------------- tables
+    @property
+    def fixed_effects(self) -> pd.DataFrame:
+        rows = []
+        for term, (estimate, se, df) in zip(self.term_names, self.fixed_effect_rows):
+            t, p = _t_test(estimate, se, df)
+            rows.append((term, estimate, se, df, t, p))
+        return pd.DataFrame(rows, columns=list(FIXED_EFFECT_COLUMNS))
+
+    def marginal_means(self, conf_level: float = 0.95) -> pd.DataFrame:
+        rows = [(arm, visit, est, se, df, *_interval(est, se, df, conf_level))
+                for arm, visit, est, se, df in self.mean_rows]
+        return pd.DataFrame(rows, columns=list(MEAN_COLUMNS))
+
+    def differences(self, conf_level: float = 0.95) -> pd.DataFrame:
+        rows = [(arm, ref, visit, est, se, df, *_t_test(est, se, df), *_interval(est, se, df, conf_level))
+                for arm, ref, visit, est, se, df in self.difference_rows]
+        return pd.DataFrame(rows, columns=list(DIFFERENCE_COLUMNS))
+
+    def joint_tests(self) -> pd.DataFrame:
+        return pd.DataFrame(list(self.joint_rows), columns=list(JOINT_COLUMNS))
+
+    def residuals(self) -> pd.DataFrame:
+        return pd.DataFrame(list(self.residual_rows), columns=list(RESIDUAL_COLUMNS))
+
+    def covariance_matrix(self) -> pd.DataFrame:
+        return self._visit_frame(np.array(self.covariance_matrices))
+
+    def correlation_matrix(self) -> pd.DataFrame:
+        matrices = np.array(self.covariance_matrices)
+        sd = np.sqrt(np.einsum("gjj->gj", matrices))
+        return self._visit_frame(matrices / (sd[:, :, None] * sd[:, None, :]))
+
+    def _visit_frame(self, matrices: np.ndarray) -> pd.DataFrame:
+        visits = list(self.visits)
+        if self.groups == (None,):
+            return pd.DataFrame(matrices[0], index=pd.Index(visits, name="visit"), columns=visits)
+        index = pd.MultiIndex.from_product([list(self.groups), visits], names=["group", "visit"])
+        return pd.DataFrame(matrices.reshape(-1, len(visits)), index=index, columns=visits)
+
+    # ----------------------------------------------------------------- serialisation
+    def to_dict(self, conf_level: float = 0.95) -> dict[str, Any]:
+        """Every field (lossless: ``MMRMFit.from_dict`` rebuilds the fit) plus the tables at
+        ``conf_level`` for readers. NaN and infinite numbers become None."""
+        data = {f.name: _plain(getattr(self, f.name)) for f in fields(self)}
+        data["tables"] = {
+            "fixed_effects": _table(self.fixed_effects),
+            "marginal_means": _table(self.marginal_means(conf_level)),
+            "differences": _table(self.differences(conf_level)),
+            "joint_tests": _table(self.joint_tests()),
+            "covariance_matrix": _table(self.covariance_matrix().reset_index()),
+            "correlation_matrix": _table(self.correlation_matrix().reset_index()),
+        }
+        data["conf_level"] = conf_level
+        return data
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> "MMRMFit":
+        values = {}
+        for f in fields(cls):
+            value = data[f.name]
+            values[f.name] = _frozen(value) if isinstance(value, list) else value
+        return cls(**values)
+
+
+def _t_test(estimate, se, df):
+    if not (se > 0 and df == df):
+        return math.nan, math.nan
+    t = estimate / se
+    return t, float(2 * stats.t.sf(abs(t), df))
+
+
+def _interval(estimate, se, df, conf_level):
+    if not 0 < conf_level < 1:
+        raise ModelSpecificationError(f"conf_level: expected a number between 0 and 1; got {conf_level!r}")
+    if not df == df:
+        return math.nan, math.nan
+    half = float(stats.t.ppf(0.5 + conf_level / 2, df)) * se
+    return estimate - half, estimate + half
+
+
+def _plain(value):
+    if isinstance(value, dict):
+        return {str(k): _plain(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple, np.ndarray)):
+        return [_plain(v) for v in value]
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
+
+
+def _frozen(value):
+    if isinstance(value, list):
+        return tuple(_frozen(v) for v in value)
+    return math.nan if value is None else value
+
+
+def _table(frame: pd.DataFrame) -> dict[str, Any]:
+    return {"columns": [str(c) for c in frame.columns], "data": _plain(frame.to_numpy(dtype=object).tolist())}
+
+
+# =========================================================================== fitting
+def fit_mmrm(data: pd.DataFrame, *, outcome: str = "CHG", subject: str = "USUBJID", visit: str = "AVISIT",
+             arm: str = "TRT01P", reference: Any, visits: Sequence | None = None,
+             covariates: Sequence[str] = (), covariates_by_visit: Sequence[str] = (),
+             covariance: str | Sequence[str] = "unstructured", covariance_by: str | None = None,
+             method: str = "reml", df: str = "kenward_roger", robust: bool = False,
+             visit_times: Mapping[Any, float] | None = None, max_iterations: int = 100,
+             tolerance: float = 1e-8) -> MMRMFit:
+    """Fit the repeated-measures model (see the module docstring and shared/DESIGN.md).
+
+    ``visit_times`` maps each visit to its planned time (used by ``spatial_exponential``;
+    default 1..k).  ``tolerance`` bounds g'I^-1 g / 2, the likelihood gain a further scoring step
+    could still bring.  Raises ModelSpecificationError for arguments or data that cannot describe
+    a model, ConvergenceError (one structure) or FitError (a list) when no structure converges.
+    """
+    names = _check_arguments(covariance, method, df, robust, max_iterations, tolerance)
+    settings = {"outcome": outcome, "subject": subject, "visit": visit, "arm": arm, "reference": reference,
+                "visits": None if visits is None else list(visits), "covariates": list(covariates),
+                "covariates_by_visit": list(covariates_by_visit), "covariance": list(names),
+                "covariance_by": covariance_by, "method": method, "df": df, "robust": robust,
+                "visit_times": None if visit_times is None else dict(visit_times),
+                "max_iterations": max_iterations, "tolerance": tolerance}
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        design = build_design(data, outcome=outcome, subject=subject, visit=visit, arm=arm, reference=reference,
+                              visits=visits, covariates=covariates, covariates_by_visit=covariates_by_visit,
+                              covariance_by=covariance_by, visit_times=visit_times)
+        name, likelihood, maximum, attempts = _fit_first_converging(design, names, method, max_iterations, tolerance)
+        inference = Inference(likelihood, maximum.evaluation, design, df, robust)
+        fit = _assemble(design, settings, name, likelihood, maximum, inference, attempts, caught)
+    return fit
+
+
+def _check_arguments(covariance, method, df, robust, max_iterations, tolerance) -> tuple[str, ...]:
+    names = (covariance,) if isinstance(covariance, str) else tuple(covariance)
+    problems = []
+    if not names:
+        problems.append(Problem("mmrm.no_structure", "covariance: give at least one structure", field="covariance"))
+    for name in names:
+        if name not in STRUCTURES:
+            problems.append(Problem("mmrm.unknown_structure", f"covariance: unknown structure {name!r}",
+                                    field="covariance", expected="one of " + ", ".join(STRUCTURES), got=repr(name)))
+    if method not in ESTIMATION_METHODS:
+        problems.append(Problem("mmrm.unknown_method", f"method: unknown estimation method {method!r}",
+                                field="method", expected=" or ".join(ESTIMATION_METHODS), got=repr(method)))
+    if df not in DF_METHODS:
+        problems.append(Problem("mmrm.unknown_df", f"df: unknown degrees-of-freedom method {df!r}",
+                                field="df", expected="one of " + ", ".join(DF_METHODS), got=repr(df)))
+    elif df.startswith("kenward_roger") and method != "reml":
+        problems.append(Problem("mmrm.kenward_roger_needs_reml", f"df {df!r} needs method 'reml'",
+                                field="df", got=f"method {method!r}",
+                                hint="use method='reml' or df='satterthwaite'"))
+    if not isinstance(robust, (bool, np.bool_)):
+        problems.append(Problem("mmrm.robust_not_bool", "robust must be True or False", field="robust",
+                                got=repr(robust)))
+    if not (isinstance(max_iterations, int) and max_iterations >= 1):
+        problems.append(Problem("mmrm.bad_iterations", "max_iterations must be a positive integer",
+                                field="max_iterations", got=repr(max_iterations)))
+    if not (isinstance(tolerance, (int, float)) and tolerance > 0):
+        problems.append(Problem("mmrm.bad_tolerance", "tolerance must be a positive number", field="tolerance",
+                                got=repr(tolerance)))
+    if problems:
+        raise ModelSpecificationError("; ".join(p.render() for p in problems), problems)
+    return names
+
+
+def _moment_covariances(design: Design) -> list[np.ndarray]:
+    """Per group, the pairwise-available covariance of OLS residuals, made positive definite."""
+    p, k = design.n_parameters, len(design.visits)
+    xtx, xty = np.zeros((p, p)), np.zeros(p)
+    for pattern in design.patterns:
+        xtx += np.einsum("jjab->ab", pattern.t_xx)
+        xty += np.einsum("jja->a", pattern.t_xy)
+    beta = np.linalg.solve(xtx, xty)
+    sums = np.zeros((len(design.groups), k, k))
+    for pattern in design.patterns:
+        residual = pattern.y - pattern.x @ beta
+        sums[pattern.group][np.ix_(pattern.visits, pattern.visits)] += residual.T @ residual
+    moments = []
+    for total, counts in zip(sums, design.pair_counts):
+        with np.errstate(invalid="ignore", divide="ignore"):
+            matrix = np.where(counts > 0, total / np.maximum(counts, 1), 0.0)
+        variances = np.diag(matrix).copy()
+        fallback = variances[variances > 0].mean() if np.any(variances > 0) else 1.0
+        variances[variances <= 0] = fallback
+        np.fill_diagonal(matrix, variances)
+        values, vectors = np.linalg.eigh(matrix)
+        values = np.maximum(values, 1e-3 * values.max())
+        moments.append((vectors * values) @ vectors.T)
+    return moments
+
+
+def _fit_first_converging(design: Design, names, method, max_iterations, tolerance):
+    moments = _moment_covariances(design)
+    k = len(design.visits)
+    attempts: list[dict[str, Any]] = []
+    only_specification = True
+    for name in names:
+        structures = [make_structure(name, k, design.visit_times) for _ in design.groups]
+        reason = _identifiability(design, structures)
+        if reason:
+            attempts.append({"structure": name, "status": "rejected", "reason": reason, "stage": "specification"})
+            continue
+        only_specification = False
+        likelihood = Likelihood(design.patterns, structures, reml=(method == "reml"))
+        theta0 = np.concatenate([s.start(m) for s, m in zip(structures, moments)])
+        try:
+            maximum = maximise(likelihood, theta0, max_iterations=max_iterations, tolerance=tolerance,
+                               structure_name=name)
+        except ConvergenceError as error:
+            attempts.append({"structure": name, "status": "rejected", "reason": str(error), "stage": "fit"})
+            continue
+        attempts.append({"structure": name, "status": "used", "reason": None, "stage": "fit",
+                         "iterations": maximum.iterations, "loglik": maximum.evaluation.loglik,
+                         "gradient_norm": maximum.gradient_norm})
+        return name, likelihood, maximum, attempts
+    summary = "; ".join(f"{a['structure']}: {a['reason']}" for a in attempts)
+    if only_specification:
+        raise ModelSpecificationError(
+            "too few participants or visits for the covariance structure: " + summary,
+            [Problem("mmrm.too_few_participants", a["reason"], field="covariance", got=a["structure"])
+             for a in attempts])
+    error_class = ConvergenceError if len(names) == 1 else FitError
+    raise error_class("no covariance structure converged: " + summary, attempts=attempts)
+
+
+def _identifiability(design: Design, structures) -> str | None:
+    for group, structure, counts in zip(design.groups, structures, design.pair_counts):
+        reason = structure.identifiability_problem(counts)
+        if reason:
+            where = f" (covariance group {group!r})" if group is not None else ""
+            return reason + where
+    n_theta = sum(s.n_parameters for s in structures)
+    spare = design.n_obs - design.n_parameters
+    if spare < n_theta:
+        return (f"{design.n_obs} observations and {design.n_parameters} fixed effects leave {spare} residual "
+                f"degrees of freedom for {n_theta} covariance parameters")
+    return None
+
+
+# =========================================================================== tables
+def _assemble(design: Design, settings, name, likelihood: Likelihood, maximum: Maximum,
+              inference: Inference, attempts, caught) -> MMRMFit:
+    evaluation = maximum.evaluation
+    p, k = design.n_parameters, len(design.visits)
+    fixed = inference.contrasts(np.eye(p))
+    cell = design.cell_means.reshape(-1, p)
+    means = inference.contrasts(cell)
+    labels = [(a, v) for a in design.arms for v in design.visits]
+    mean_rows = tuple((a, v, *map(float, values)) for (a, v), values in zip(labels, zip(*means)))
+    reference_rows = design.cell_means[0]
+    difference_matrix = (design.cell_means[1:] - reference_rows[None]).reshape(-1, p)
+    differences = inference.contrasts(difference_matrix)
+    difference_labels = [(a, design.arms[0], v) for a in design.arms[1:] for v in design.visits]
+    difference_rows = tuple((*lab, *map(float, values)) for lab, values in zip(difference_labels, zip(*differences)))
+    joint_rows = tuple((term, *inference.joint(matrix)) for term, matrix in _joint_contrasts(design).items())
+
+    n_theta = likelihood.n_parameters
+    counted = n_theta + (p if likelihood.reml is False else 0)
+    loglik = evaluation.loglik
+    notes = [str(w.message) for w in caught] + inference.notes
+    if design.excluded_subjects:
+        notes.append(f"{len(design.excluded_subjects)} participant(s) with no observed outcome left out of the fit")
+    structures = likelihood.structures
+    theta_names = tuple(f"{g}:{n}" if g is not None else n
+                        for g, s in zip(design.groups, structures) for n in s.parameter_names([str(v) for v in design.visits]))
+    fields_ = dict(
+        settings=settings, structure=name, method="reml" if likelihood.reml else "ml", df_method=inference.df_method,
+        robust=bool(inference.robust), converged=maximum.converged, iterations=maximum.iterations,
+        gradient_norm=maximum.gradient_norm, scaled_gradient=maximum.decrement, tolerance=settings["tolerance"],
+        loglik=loglik, aic=-2 * loglik + 2 * counted, bic=-2 * loglik + counted * math.log(design.n_subjects),
+        n_subjects=design.n_subjects, n_subjects_excluded=len(design.excluded_subjects),
+        excluded_subjects=design.excluded_subjects, n_obs=design.n_obs, visits=design.visits, arms=design.arms,
+        groups=design.groups, covariate_summary=design.covariate_summary, attempts=tuple(attempts),
+        warnings=tuple(notes), term_names=design.term_names, coefficients=evaluation.beta,
+        coefficient_covariance=inference.covariance, model_based_covariance=evaluation.xvx_inverse,
+        covariance_parameter_names=theta_names, covariance_parameters=evaluation.theta,
+        covariance_parameter_covariance=inference.weights, covariance_matrices=np.array(evaluation.sigmas),
+        fixed_effect_rows=np.column_stack(fixed), mean_rows=mean_rows, difference_rows=difference_rows,
+        joint_rows=joint_rows, residual_rows=_residual_rows(design, evaluation))
+    return MMRMFit(**{key: _frozen(_plain(value)) if isinstance(value, (np.ndarray, list)) else value
+                      for key, value in fields_.items()})
+
+
+def _joint_contrasts(design: Design) -> dict[str, np.ndarray]:
+    cells = design.cell_means                    # (arms, visits, p)
+    p = design.n_parameters
+    tests: dict[str, np.ndarray] = {}
+    arm_means = cells.mean(axis=1)
+    visit_means = cells.mean(axis=0)
+    if len(design.arms) > 1:
+        tests["arm"] = arm_means[1:] - arm_means[0]
+    if len(design.visits) > 1:
+        tests["visit"] = visit_means[1:] - visit_means[0]
+        tests["arm_by_visit"] = (cells[1:, 1:] - cells[:1, 1:] - cells[1:, :1] + cells[:1, :1]).reshape(-1, p)
+    for term, columns in design.term_blocks.items():
+        if term in ("arm", "visit", "arm_by_visit") or term.endswith("_by_visit") and term[:-9] in design.covariate_columns:
+            continue
+        rows = np.zeros((len(columns), p))
+        rows[np.arange(len(columns)), columns] = 1.0
+        by_visit = design.term_blocks.get(f"{term}_by_visit")
+        if by_visit:             # average the effect over visits (the first visit has no column)
+            per_column = len(design.visits) - 1
+            for i in range(len(columns)):
+                rows[i, by_visit[i * per_column:(i + 1) * per_column]] = 1.0 / len(design.visits)
+        tests[term] = rows
+    for term, columns in design.term_blocks.items():
+        if term.endswith("_by_visit") and term[:-9] in design.covariate_columns:
+            rows = np.zeros((len(columns), p))
+            rows[np.arange(len(columns)), columns] = 1.0
+            tests[term] = rows
+    return tests
+
+
+def _residual_rows(design: Design, evaluation) -> tuple:
+    subjects, visits, fitted, raw, scaled = [], [], [], [], []
+    for pattern in design.patterns:
+        sigma = evaluation.sigmas[pattern.group][np.ix_(pattern.visits, pattern.visits)]
+        factor = np.linalg.cholesky(sigma)
+        prediction = pattern.x @ evaluation.beta
+        residual = pattern.y - prediction
+        subjects.append(np.repeat(pattern.subjects, len(pattern.visits)))
+        visits.append(np.tile(pattern.visits, pattern.n))
+        fitted.append(prediction.ravel())
+        raw.append(residual.ravel())
+        scaled.append(np.linalg.solve(factor, residual.T).T.ravel())
+    subjects, visits = np.concatenate(subjects), np.concatenate(visits)
+    order = np.lexsort((visits, subjects))
+    labels = design.subject_labels[subjects[order]]
+    visit_labels = np.array(design.visits, dtype=object)[visits[order]]
+    columns = [np.concatenate(c)[order] for c in (fitted, raw, scaled)]
+    return tuple(zip(_plain(labels), _plain(visit_labels), *(c.tolist() for c in columns)))

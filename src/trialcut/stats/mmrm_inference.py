@@ -1,0 +1,173 @@
+"""Variance of the fixed effects and degrees of freedom for their contrasts.
+
+Kenward, M. G. & Roger, J. H. (1997). Small sample inference for fixed effects from restricted
+maximum likelihood. Biometrics 53:983-997.  Symbols follow the paper: Phi = (X'V^-1 X)^-1,
+P_i = -X'V^-1 V_i V^-1 X, Q_ij = X'V^-1 V_i V^-1 V_j V^-1 X, R_ij = X'V^-1 V_ij V^-1 X,
+W = the inverse of the *expected* information of theta (REML: 1/2 tr(P V_i P V_j); ML:
+1/2 tr(V^-1 V_i V^-1 V_j)), evaluated at the estimate.
+
+Degrees-of-freedom methods (``df=``):
+
+* ``kenward_roger``: variance Phi_A = Phi + 2 Phi {sum_ij W_ij (Q_ij - P_i Phi P_j - R_ij / 4)} Phi;
+  a contrast L of rank l is tested with the scaled F, lambda * F ~ F(l, m), with lambda and m from
+  the paper's moment matching (for l = 1 this is a t test on Phi_A with m = 2 (L Phi_A L')^2 / g'Wg).
+* ``kenward_roger_linear``: the same without the R_ij term (exact when Sigma is linear in theta).
+* ``satterthwaite``: variance Phi; one-df df = 2 (L Phi L')^2 / (g' W g), g_i = L dPhi/dtheta_i L';
+  for l > 1 the contrast is rotated to the eigenvectors of L Phi L', each row gets its one-df value
+  nu_m and the denominator df is 2E/(E - l) with E = sum_m nu_m / (nu_m - 2) (rows with nu_m <= 2
+  are left out of E).
+* ``between_within``: the residual df split into a between-participant part (participants minus
+  the number of columns constant within every participant, intercept included) and a
+  within-participant part (observations minus participants minus the remaining columns); a contrast
+  touching only between-participant columns gets the first, any other the second.
+* ``residual``: observations minus the number of fixed effects, for every contrast.
+
+With ``robust=True`` the variance is the empirical sandwich Phi (sum_i X_i'V_i^-1 r_i r_i'V_i^-1 X_i) Phi
+and the degrees of freedom are those the model-based analysis would give (no Kenward-Roger scaling
+of the F statistic); the fit's warnings say so.
+"""
+from __future__ import annotations
+
+import numpy as np
+from scipy import stats
+
+from trialcut.stats.mmrm_design import Design
+from trialcut.stats.mmrm_likelihood import Evaluation, Likelihood
+
+
+class Inference:
+    def __init__(self, likelihood: Likelihood, evaluation: Evaluation, design: Design, df_method: str,
+                 robust: bool):
+        self.df_method = df_method
+        self.robust = robust
+        self.beta = evaluation.beta
+        self.phi = evaluation.xvx_inverse
+        self.weights = np.linalg.inv(evaluation.information)                  # W
+        self.psi = self.phi @ evaluation.q_matrices @ self.phi                # -dPhi/dtheta_i ... sign immaterial
+        self.notes: list[str] = []
+        self.adjusted = self.phi
+        if df_method.startswith("kenward_roger"):
+            self.adjusted = self.phi + 2 * self._kenward_roger_lambda(
+                likelihood, evaluation, include_second=(df_method == "kenward_roger"))
+        self.model_based = self.adjusted
+        self.covariance = _sandwich(likelihood, evaluation) if robust else self.adjusted
+        n_between = int(design.between_columns.sum())
+        p = len(self.beta)
+        self.between = design.between_columns
+        self.df_between = design.n_subjects - n_between
+        self.df_within = design.n_obs - design.n_subjects - (p - n_between)
+        self.df_residual = design.n_obs - p
+        if robust and df_method != "residual":
+            self.notes.append(f"robust variance: standard errors are the empirical sandwich; degrees of freedom "
+                              f"({df_method}) are those of the model-based analysis")
+
+    # ----------------------------------------------------------------- Kenward-Roger
+    def _kenward_roger_lambda(self, likelihood: Likelihood, evaluation: Evaluation, include_second: bool):
+        p = len(self.beta)
+        total = np.zeros((p, p))
+        for pattern, terms in zip(likelihood.patterns, evaluation.terms):
+            block = slice(likelihood.offsets[pattern.group], likelihood.offsets[pattern.group + 1])
+            w = self.weights[block, block]
+            inner = np.einsum("ij,iab,jbc->ac", w, terms.m_d, terms.m_d) @ terms.inverse     # sum W_ij M D_i M D_j M
+            if include_second:
+                inner -= 0.25 * terms.inverse @ np.einsum("ij,ijab->ab", w, terms.d2) @ terms.inverse
+            total += np.tensordot(inner, pattern.t_xx, axes=([0, 1], [0, 1]))
+        q_mats = evaluation.q_matrices
+        total -= np.einsum("ij,iab,bc,jcd->ad", self.weights, q_mats, self.phi, q_mats, optimize=True)
+        lam = self.phi @ total @ self.phi
+        return 0.5 * (lam + lam.T)
+
+    # ----------------------------------------------------------------- one-df contrasts
+    def contrasts(self, contrast: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Estimate, standard error and df of each row of ``contrast``."""
+        contrast = np.atleast_2d(contrast)
+        estimate = contrast @ self.beta
+        variance = np.einsum("mp,pq,mq->m", contrast, self.covariance, contrast)
+        return estimate, np.sqrt(np.maximum(variance, 0.0)), self.one_df(contrast)
+
+    def one_df(self, contrast: np.ndarray) -> np.ndarray:
+        if self.df_method in ("kenward_roger", "kenward_roger_linear", "satterthwaite"):
+            centre = self.model_based if self.df_method != "satterthwaite" else self.phi
+            variance = np.einsum("mp,pq,mq->m", contrast, centre, contrast)
+            gradient = np.einsum("mp,ipq,mq->mi", contrast, self.psi, contrast)
+            spread = np.einsum("mi,ij,mj->m", gradient, self.weights, gradient)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                return np.where(spread > 1e-14 * variance ** 2, 2 * variance ** 2 / spread, np.inf)
+        return np.array([self._simple_df(row) for row in contrast])
+
+    def _simple_df(self, row: np.ndarray) -> float:
+        if self.df_method == "residual":
+            return float(self.df_residual)
+        touched = np.abs(row) > 1e-12
+        return float(self.df_between if np.all(self.between[touched]) else self.df_within)
+
+    # ----------------------------------------------------------------- joint tests
+    def joint(self, contrast: np.ndarray) -> tuple[int, float, float, float]:
+        """(num_df, den_df, F, p) for H0: contrast @ beta = 0."""
+        contrast = np.atleast_2d(contrast)
+        rank = np.linalg.matrix_rank(contrast)
+        if rank < contrast.shape[0]:       # drop rows that repeat others
+            _, _, vt = np.linalg.svd(contrast, full_matrices=False)
+            contrast = vt[:rank]
+        l = contrast.shape[0]
+        estimate = contrast @ self.beta
+        wald = estimate @ np.linalg.solve(contrast @ self.covariance @ contrast.T, estimate)
+        f_value = wald / l
+        if self.df_method.startswith("kenward_roger"):
+            scale, den_df = self._kenward_roger_f(contrast)
+            if not self.robust:
+                f_value *= scale
+        elif self.df_method == "satterthwaite":
+            den_df = self._satterthwaite_f(contrast)
+        else:
+            den_df = float(min(self._simple_df(row) for row in contrast))
+        p_value = float(stats.f.sf(f_value, l, den_df)) if np.isfinite(den_df) else float(stats.chi2.sf(f_value * l, l))
+        return l, float(den_df), float(f_value), p_value
+
+    def _kenward_roger_f(self, contrast: np.ndarray) -> tuple[float, float]:
+        l = contrast.shape[0]
+        theta = contrast.T @ np.linalg.solve(contrast @ self.model_based @ contrast.T, contrast)
+        theta_psi = theta @ self.psi                                             # (q, p, p)
+        traces = np.einsum("iaa->i", theta_psi)
+        a1 = traces @ self.weights @ traces
+        a2 = np.einsum("ij,iab,jba->", self.weights, theta_psi, theta_psi)
+        if a2 < 1e-14:
+            return 1.0, np.inf
+        b = (a1 + 6 * a2) / (2 * l)
+        g = ((l + 1) * a1 - (l + 4) * a2) / ((l + 2) * a2)
+        denominator = 3 * l + 2 * (1 - g)
+        c1, c2, c3 = g / denominator, (l - g) / denominator, (l + 2 - g) / denominator
+        e_star = 1 / (1 - a2 / l)
+        v_star = (2 / l) * (1 + c1 * b) / ((1 - c2 * b) ** 2 * (1 - c3 * b))
+        rho = v_star / (2 * e_star ** 2)
+        m = 4 + (l + 2) / (l * rho - 1)
+        scale = m / (e_star * (m - 2))
+        if not (np.isfinite(m) and m > 2 and scale > 0):
+            self.notes.append(f"Kenward-Roger F test of {l} df: the moment matching failed (m = {m:.3g}); "
+                              "the unscaled F with the smallest one-df Kenward-Roger df was used instead")
+            return 1.0, float(np.min(self.one_df(contrast)))
+        return float(scale), float(m)
+
+    def _satterthwaite_f(self, contrast: np.ndarray) -> float:
+        values, vectors = np.linalg.eigh(contrast @ self.phi @ contrast.T)
+        rotated = vectors.T @ contrast
+        nu = self.one_df(rotated)
+        l = contrast.shape[0]
+        usable = nu > 2
+        expectation = np.sum(nu[usable] / (nu[usable] - 2))
+        if expectation > l:
+            return float(2 * expectation / (expectation - l))
+        self.notes.append(f"Satterthwaite F test of {l} df: the one-df values ({np.round(nu, 2).tolist()}) give no "
+                          "valid denominator df; the smallest of them was used instead")
+        return float(np.min(nu))
+
+
+def _sandwich(likelihood: Likelihood, evaluation: Evaluation) -> np.ndarray:
+    p = len(evaluation.beta)
+    meat = np.zeros((p, p))
+    for pattern, terms in zip(likelihood.patterns, evaluation.terms):
+        residual = pattern.y - pattern.x @ evaluation.beta
+        score = np.einsum("nja,jk,nk->na", pattern.x, terms.inverse, residual)
+        meat += score.T @ score
+    phi = evaluation.xvx_inverse
+    return phi @ meat @ phi
