@@ -235,11 +235,15 @@ def verify_chain(registry_path: Path) -> list[Problem]:
     if highest_used > last_seq:
         problems.append(Problem(
             code="registry.rows_removed_at_end", file=str(registry_path),
-            field=f"runs[seq {last_seq + 1}..{highest_used}]",
+            field=f"runs[seq {_seq_range(last_seq + 1, highest_used)}]",
             message=f"rows up to seq {highest_used} were recorded but the last row now is "
                     f"seq {last_seq}: the latest rows were deleted",
             hint=_RESTORE_HINT))
     return problems
+
+
+def _seq_range(first: int, last: int) -> str:
+    return str(first) if first == last else f"{first} to {last}"
 
 
 _RESTORE_HINT = ("restore registry.sqlite from a trusted backup and find out who changed it; "

@@ -47,8 +47,8 @@ class VerificationReport:
         checked = (f"{len(self.run_folders)} run folder(s), {self.files_checked} file(s), "
                    f"{self.registry_rows_checked} registry row(s)")
         if self.ok:
-            return f"verified: {checked}; every hash matches"
-        return f"verification failed: {len(self.problems)} problem(s) in {checked}"
+            return f"{checked}; every hash matches"
+        return f"{len(self.problems)} problem(s) in {checked}"
 
 
 def verify_run(run_folder: Path, registry_path: Path | None = None) -> VerificationReport:
@@ -115,8 +115,8 @@ def _registered_folder_problems(folder: Path, row: RegistryRow,
                                 registry_path: Path) -> tuple[int, list[Problem]]:
     if not folder.is_dir():
         return 0, [Problem(
-            code="verify.folder_missing", file=str(folder), field=_row_place(row),
-            message="the registry records this run but its folder is missing",
+            code="verify.folder_missing", file=str(registry_path), field=_row_place(row),
+            message=f"the registry records this run but its folder {folder} is missing",
             expected="a run folder", got="nothing at that path",
             hint="restore the run folder from a trusted copy; the registry keeps the row")]
     files_checked, problems = _folder_problems(folder)
@@ -127,8 +127,9 @@ def _folder_problems(folder: Path) -> tuple[int, list[Problem]]:
     """Re-hash the folder against its manifest; returns (files hashed, problems)."""
     manifest = folder / MANIFEST_NAME
     if not manifest.is_file():
-        return 0, [Problem(code="verify.manifest_missing", file=str(manifest),
-                           message="the run folder's MANIFEST.sha256 is missing",
+        return 0, [Problem(code="verify.manifest_missing", file=str(folder),
+                           field=MANIFEST_NAME,
+                           message="missing: the run folder's manifest was deleted",
                            hint=_RERUN_HINT)]
     text = manifest.read_bytes().decode("utf-8", errors="replace")
     recorded, problems = parse_manifest(text, source=str(manifest))
@@ -137,9 +138,9 @@ def _folder_problems(folder: Path) -> tuple[int, list[Problem]]:
         problem = _file_problem(folder, path, recorded[path], on_disk)
         if problem is not None:
             problems.append(problem)
-    problems += [Problem(code="verify.file_added", file=str(folder / path), field=path,
-                         message=f"{path} is not listed in the run's manifest: it was added "
-                                 "after the run was recorded", hint=_RERUN_HINT)
+    problems += [Problem(code="verify.file_added", file=str(folder), field=path,
+                         message="not listed in the run's manifest: added after the run "
+                                 "was recorded", hint=_RERUN_HINT)
                  for path in sorted(on_disk - set(recorded))]
     return len(recorded), problems
 
@@ -147,18 +148,18 @@ def _folder_problems(folder: Path) -> tuple[int, list[Problem]]:
 def _file_problem(folder: Path, path: str, recorded: str, on_disk: set[str]) -> Problem | None:
     target = folder / path
     if path not in on_disk:
-        return Problem(code="verify.file_missing", file=str(target), field=path,
-                       message=f"{path} is missing from the run folder",
+        return Problem(code="verify.file_missing", file=str(folder), field=path,
+                       message="missing from the run folder",
                        expected=f"a file with SHA-256 {recorded}", got="no file",
                        hint=_RERUN_HINT)
     if target.is_symlink():
-        return Problem(code="verify.symbolic_link", file=str(target), field=path,
-                       message=f"{path} has been replaced by a symbolic link",
+        return Problem(code="verify.symbolic_link", file=str(folder), field=path,
+                       message="replaced by a symbolic link",
                        expected="a regular file", got="a symbolic link", hint=_RERUN_HINT)
     actual = sha256_file(target)
     if actual != recorded:
-        return Problem(code="verify.file_changed", file=str(target), field=path,
-                       message=f"{path} has changed since the run was recorded",
+        return Problem(code="verify.file_changed", file=str(folder), field=path,
+                       message="changed since the run was recorded",
                        expected=f"SHA-256 {recorded}", got=f"SHA-256 {actual}",
                        hint=_RERUN_HINT)
     return None
@@ -167,8 +168,9 @@ def _file_problem(folder: Path, path: str, recorded: str, on_disk: set[str]) -> 
 def _registration_problems(folder: Path, row: RegistryRow | None,
                            registry_path: Path) -> list[Problem]:
     if row is None:
-        return [Problem(code="verify.not_registered", file=str(folder), field=folder.name,
-                        message=f"run {folder.name} has no row in the registry {registry_path}",
+        return [Problem(code="verify.not_registered", file=str(folder),
+                        message=f"this run ({folder.name}) has no row in the registry "
+                                f"{registry_path}",
                         hint="check that this is the registry of the output folder the run "
                              "was written to; if it is, the row was deleted")]
     manifest = folder / MANIFEST_NAME
@@ -177,18 +179,17 @@ def _registration_problems(folder: Path, row: RegistryRow | None,
     actual = sha256_file(manifest)
     if actual == row.manifest_sha256:
         return []
-    return [Problem(code="verify.manifest_hash_mismatch", file=str(manifest),
-                    field=f"{_row_place(row)}.manifest_sha256",
-                    message="MANIFEST.sha256 does not match the hash recorded in the registry",
+    return [Problem(code="verify.manifest_hash_mismatch", file=str(folder), field=MANIFEST_NAME,
+                    message=f"does not match the hash recorded in the registry "
+                            f"({_row_place(row)}.manifest_sha256)",
                     expected=row.manifest_sha256, got=actual, hint=_RERUN_HINT)]
 
 
 def _unregistered_problems(out_root: Path, rows: list[RegistryRow],
                            registry_path: Path) -> list[Problem]:
     registered = {row.folder_path(registry_path).resolve() for row in rows}
-    return [Problem(code="verify.folder_unregistered", file=str(folder), field=folder.name,
-                    message=f"run folder {folder.name} has no row in the registry "
-                            f"{registry_path}",
+    return [Problem(code="verify.folder_unregistered", file=str(folder),
+                    message=f"this run folder has no row in the registry {registry_path}",
                     hint="its row was deleted, or it was copied here from another output "
                          "folder; do not use it until its origin is known")
             for folder in list_run_folders(out_root) if folder.resolve() not in registered]
