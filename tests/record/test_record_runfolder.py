@@ -188,3 +188,21 @@ def test_listing_filters_by_study_and_cut(tmp_path):
     assert [path.name for path in list_run_folders(tmp_path, study="A")] == ["r1", "r2"]
     assert [path.name for path in list_run_folders(tmp_path, cut="c1")] == ["r1", "r3"]
     assert list_run_folders(tmp_path, study="missing") == []
+
+
+def test_failure_to_sync_after_the_rename_removes_the_new_folder(tmp_path, monkeypatch):
+    # If the new name cannot be made durable, the folder must not stay without a registry row.
+    import trialcut.record.runfolder as runfolder
+
+    real_sync = runfolder._sync_directory
+    cut_folder = tmp_path / "S" / "c"
+
+    def sync_failing_on_the_cut_folder(folder: Path) -> None:
+        if folder == cut_folder:
+            raise OSError("input/output error")
+        real_sync(folder)
+
+    monkeypatch.setattr(runfolder, "_sync_directory", sync_failing_on_the_cut_folder)
+    with pytest.raises(OSError):
+        write_run_folder(tmp_path, "S", "c", "r1", fill)
+    assert list(cut_folder.iterdir()) == []

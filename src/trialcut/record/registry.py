@@ -271,7 +271,8 @@ def _row_problems(record: dict[str, Any], expected_seq: int, expected_previous: 
             code="registry.row_changed", file=source, field=where,
             message="this registry row was changed after it was recorded (its fields no "
                     "longer match its row_hash)",
-            expected=str(record["row_hash"]), got=recomputed, hint=_RESTORE_HINT))
+            expected=f"fields that hash to the stored row_hash {record['row_hash']}",
+            got=f"fields that hash to {recomputed}", hint=_RESTORE_HINT))
     return problems
 
 

@@ -104,7 +104,11 @@ def write_run_folder(out_root: Path, study_id: str, cut: str, run_id: str,
         # BaseException on purpose: Ctrl-C must not leave a half-written folder either.
         shutil.rmtree(temporary, ignore_errors=True)
         raise
-    _sync_directory(parent)
+    try:
+        _sync_directory(parent)   # makes the new name itself durable
+    except BaseException:
+        shutil.rmtree(final, ignore_errors=True)
+        raise
     return final
 
 
