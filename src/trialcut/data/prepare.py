@@ -353,9 +353,10 @@ def _dummy_arms(plan, subjects: pd.DataFrame, records: pd.DataFrame, seed: int,
     generator = np.random.default_rng(np.random.SeedSequence(seed))
     subjects = subjects.sort_values(subject, kind="stable").reset_index(drop=True)
     dummy = subjects[arm].copy()
-    groups = subjects.groupby(strata, sort=True, dropna=False).groups if strata else {"all": subjects.index}
-    for key in sorted(groups, key=str):
-        index = list(groups[key])
+    # Strata in sorted order and participants sorted by id: the draw depends on the seed only.
+    groups = [group.index for _, group in subjects.groupby(strata, sort=True, dropna=False)] if strata \
+        else [subjects.index]
+    for index in groups:
         dummy.loc[index] = generator.permutation(subjects.loc[index, arm].to_numpy())
     subjects = subjects.assign(**{arm: dummy})
     records = records.assign(**{arm: records[subject].map(dict(zip(subjects[subject], dummy)))})

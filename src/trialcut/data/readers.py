@@ -22,6 +22,7 @@ import datetime as _dt
 import hashlib
 import json
 import math
+import warnings
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -118,9 +119,13 @@ def _read_csv(path: Path, content: bytes):
                      hint="save the file as UTF-8") from exc
     try:
         # Everything as text: typed conversion happens in the checks, with line numbers.
-        frame = pd.read_csv(io.StringIO(text), dtype=str, keep_default_na=False,
-                            na_values=[""], skip_blank_lines=True)
-    except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError) as exc:
+        # index_col=False and warnings as errors: a line with more fields than the header
+        # must be refused, not silently read as an index or cut short.
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", pd.errors.ParserWarning)
+            frame = pd.read_csv(io.StringIO(text), dtype=str, keep_default_na=False,
+                                na_values=[""], skip_blank_lines=True, index_col=False)
+    except (pd.errors.ParserError, pd.errors.ParserWarning, pd.errors.EmptyDataError, ValueError) as exc:
         raise _error(path, "data.malformed_csv", f"the CSV file cannot be parsed: {exc}",
                      hint="check quoting and that every line has as many fields as the header") from exc
     unnamed = [c for c in frame.columns if str(c).startswith("Unnamed:")]
