@@ -11,6 +11,8 @@ from datetime import datetime, timedelta, timezone
 from pathlib import Path
 
 import pytest
+from hypothesis import HealthCheck, assume, given, settings
+from hypothesis import strategies as st
 
 from trialcut.errors import InputError, RunFolderError
 from trialcut.record.manifest import MANIFEST_NAME, parse_manifest
@@ -206,3 +208,34 @@ def test_failure_to_sync_after_the_rename_removes_the_new_folder(tmp_path, monke
     with pytest.raises(OSError):
         write_run_folder(tmp_path, "S", "c", "r1", fill)
     assert list(cut_folder.iterdir()) == []
+
+
+# Any file names a writer might use (letters of any script, digits, spaces, punctuation);
+# only the characters sha256sum would have to escape, and '/', are left out.
+FILE_NAMES = st.text(alphabet=st.characters(blacklist_categories=("Cs", "Cc"),
+                                            blacklist_characters="/\\"),
+                     min_size=1, max_size=12).filter(lambda name: name not in (".", ".."))
+
+
+@settings(max_examples=15, deadline=None,
+          suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(files=st.dictionaries(FILE_NAMES, st.binary(max_size=64), min_size=1, max_size=5))
+def test_any_plain_file_names_round_trip_through_the_manifest(tmp_path_factory, files):
+    out = tmp_path_factory.mktemp("out")
+
+    def write(folder: Path) -> None:
+        for name, content in files.items():
+            (folder / name).write_bytes(content)
+
+    try:
+        folder = write_run_folder(out, "S", "c", "r1", write)
+    except OSError:
+        assume(False)   # a name this file system cannot hold (e.g. too long in bytes)
+    hashes, problems = parse_manifest((folder / MANIFEST_NAME).read_text("utf-8"), "manifest")
+    assert problems == [] and set(hashes) == set(files) - {MANIFEST_NAME}
+    for name in hashes:   # reference: hashlib over the bytes we wrote
+        assert hashes[name] == hashlib.sha256(files[name]).hexdigest()
+    if shutil.which("sha256sum"):   # outside reference: GNU coreutils reads the same lines
+        checked = subprocess.run(["sha256sum", "-c", "--strict", "--quiet", MANIFEST_NAME],
+                                 cwd=folder, capture_output=True, timeout=30)
+        assert checked.returncode == 0, checked.stdout + checked.stderr
