@@ -46,7 +46,8 @@ def findings(call) -> list[tuple[str, str | None]]:
 def test_untouched_runs_verify(outputs):
     report = verify_run(run(outputs), outputs / "registry.sqlite")
     assert report.ok and report.files_checked == 3 and report.registry_rows_checked == 3
-    assert verify_run(run(outputs)).ok   # the folder alone, without a registry
+    alone = verify_run(run(outputs))   # the folder alone, without a registry
+    assert alone.ok and "no registry" in alone.summary
     everything = verify_all(outputs, outputs / "registry.sqlite")
     assert everything.ok and everything.files_checked == 9
     assert everything.to_dict()["problems"] == []

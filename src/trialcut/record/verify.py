@@ -44,8 +44,9 @@ class VerificationReport:
 
     @property
     def summary(self) -> str:
-        checked = (f"{len(self.run_folders)} run folder(s), {self.files_checked} file(s), "
-                   f"{self.registry_rows_checked} registry row(s)")
+        checked = f"{len(self.run_folders)} run folder(s), {self.files_checked} file(s), " + (
+            f"{self.registry_rows_checked} registry row(s)" if self.registry is not None
+            else "no registry (its chain was not checked)")
         if self.ok:
             return f"{checked}; every hash matches"
         return f"{len(self.problems)} problem(s) in {checked}"
