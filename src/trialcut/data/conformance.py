@@ -200,9 +200,9 @@ def _check_required(state: _State) -> None:
     needed = required_columns(state.plan)
     absent = [name for name in needed if name not in state.work.columns]
     state.missing.update(absent)
-    description = "columns the plan needs are present"
+    description = "columns the plan needs that are missing"
     if absent:
-        description = "columns the plan needs are missing: " + ", ".join(
+        description = "columns the plan needs that are missing: " + ", ".join(
             f"{n} ({needed[n]})" for n in absent)
     state.record("required_columns", description, "error", count=len(absent),
                  field=", ".join(absent) or None,
@@ -244,7 +244,7 @@ def _check_types(state: _State) -> None:
         else:
             state.work[name] = numbers
     if not offenders:
-        state.record("numeric_columns", "numeric columns hold numbers", "error", bad_total)
+        state.record("numeric_columns", "numeric columns holding values that are not numbers", "error", bad_total)
     for name in text_columns(state.plan):
         if state.has(name):
             state.work[name] = state.work[name].map(_clean_text)
@@ -289,7 +289,7 @@ def _parse_other_numbers(state: _State) -> None:
 def _check_identifiers(state: _State) -> None:
     cols = state.columns
     if not state.has(cols.subject, cols.arm):
-        state.record("identifiers_present", "every record names its participant and arm", "error")
+        state.record("identifiers_present", "records without a participant or an arm", "error")
         return
     mask = state.work[cols.subject].isna() | state.work[cols.arm].isna()
     state.record("identifiers_present", "records without a participant or an arm", "error", mask,
@@ -317,13 +317,13 @@ def _check_parameters(state: _State) -> None:
 def _check_arms(state: _State) -> None:
     arm = state.columns.arm
     if not state.has(arm):
-        state.record("known_arms", "arms are among the plan's arms", "error")
+        state.record("known_arms", "arms not in the plan", "error")
         return
     known = set(state.plan.arm_codes)
     values = state.work[arm]
     mask = values.notna() & ~values.isin(known)
     unknown = sorted(set(values[mask]))
-    description = "every arm is one of the plan's arms"
+    description = "arms not in the plan"
     if unknown:
         description = f"arms not in the plan: {', '.join(map(repr, unknown))}"
     state.record("known_arms", description, "error", mask, field=arm, value_column=arm,
@@ -340,7 +340,7 @@ def _varies_within_participant(state: _State, column: str) -> pd.Series:
 def _check_arm_constant(state: _State) -> None:
     arm = state.columns.arm
     if not state.has(state.columns.subject, arm):
-        state.record("arm_constant", "each participant keeps one arm", "error")
+        state.record("arm_constant", "the arm changes within a participant", "error")
         return
     mask = _varies_within_participant(state, arm)
     state.record("arm_constant", "the arm changes within a participant", "error", mask, field=arm,
@@ -356,7 +356,7 @@ def subject_level_columns(plan) -> list[str]:
 def _check_subject_level(state: _State) -> None:
     names = [n for n in subject_level_columns(state.plan) if state.has(n)]
     if not state.has(state.columns.subject):
-        state.record("participant_constant", "participant-level columns are constant", "error")
+        state.record("participant_constant", "participant-level columns varying within a participant", "error")
         return
     mask = pd.Series(False, index=state.work.index)
     varying = []
@@ -365,7 +365,7 @@ def _check_subject_level(state: _State) -> None:
         if column_mask.any():
             varying.append(name)
         mask |= column_mask
-    description = "participant-level columns are constant within each participant"
+    description = "participant-level columns varying within a participant"
     if varying:
         description = f"participant-level columns vary within a participant: {', '.join(varying)}"
     state.record("participant_constant", description, "error", mask, field=", ".join(varying) or None,
@@ -381,7 +381,7 @@ def _check_flags(state: _State) -> None:
         if column_mask.any():
             bad_columns.append(flag)
         mask |= column_mask
-    state.record("population_flags", "population flags are Y, N or blank", "error", mask,
+    state.record("population_flags", "population flags other than Y, N or blank", "error", mask,
                  field=", ".join(bad_columns) or None, value_column=bad_columns[0] if bad_columns else None,
                  hint="write population flags as Y or N")
 
@@ -396,7 +396,7 @@ def _check_finite(state: _State) -> None:
             if column_mask.any():
                 bad_columns.append(name)
             mask |= column_mask
-    state.record("finite_values", "numeric values are finite (no infinity)", "error", mask,
+    state.record("finite_values", "numeric values that are infinite", "error", mask,
                  field=", ".join(bad_columns) or None, value_column=bad_columns[0] if bad_columns else None,
                  hint="replace infinite values by the measured value or leave them empty")
 
@@ -425,7 +425,7 @@ def _check_range(state: _State) -> None:
                     bad_columns.append(name)
                 mask |= column_mask
     hint = "; ".join(f"{e.id}: {e.range[0]:g} to {e.range[1]:g}" for e in ranged)
-    state.record("value_range", "values lie inside the endpoint's declared range", "error", mask,
+    state.record("value_range", "values outside the endpoint's declared range", "error", mask,
                  field=", ".join(dict.fromkeys(bad_columns)) or None,
                  value_column=bad_columns[0] if bad_columns else None,
                  hint=f"declared ranges: {hint}; correct the values or the plan" if ranged else None)
@@ -467,7 +467,7 @@ def _assign_roles(state: _State) -> None:
 
 def _check_one_baseline(state: _State) -> None:
     if not state.has(state.columns.subject):
-        state.record("one_baseline", "one baseline record per participant", "error")
+        state.record("one_baseline", "participants with more than one baseline record", "error")
         return
     baseline = state.work[state.work[ROLE] == "baseline"]
     mask = baseline.duplicated(subset=_group_columns(state), keep=False).reindex(state.work.index, fill_value=False)
@@ -487,12 +487,12 @@ def _check_visits(state: _State) -> None:
 def _check_known_visits(state: _State) -> None:
     visit = state.columns.visit
     if not state.has(visit):
-        state.record("known_visits", "visit labels are the plan's visits", "error")
+        state.record("known_visits", "visit labels not in the plan", "error")
         return
     post = state.work[ROLE] == "post"
     mask = post & ~state.work[visit].isin(state.plan.visit_labels)
     unknown = sorted(set(state.work.loc[mask, visit].dropna().astype(str)))
-    description = "every visit label is a scheduled visit or the baseline"
+    description = "visit labels not in the plan"
     if mask.any():
         description = "visit labels not in the plan: " + (", ".join(map(repr, unknown)) or "(blank)")
     state.record("known_visits", description, "error", mask, field=visit, value_column=visit,
@@ -504,7 +504,7 @@ def _check_known_visits(state: _State) -> None:
 
 def _check_one_per_visit(state: _State) -> None:
     if not state.has(state.columns.subject, state.columns.visit):
-        state.record("one_record_per_visit", "one record per participant and visit", "error")
+        state.record("one_record_per_visit", "participants with more than one record at the same visit", "error")
         return
     post = state.work[ANALYSIS_VISIT].notna()
     keys = _group_columns(state) + [ANALYSIS_VISIT]
@@ -518,7 +518,7 @@ def _check_one_per_visit(state: _State) -> None:
 def _check_same_day(state: _State) -> None:
     day = state.columns.study_day
     if not state.has(state.columns.subject, day):
-        state.record("same_day_records", "one record per participant and study day", "error")
+        state.record("same_day_records", "participants with two different records on the same study day", "error")
         return
     post = (state.work[ROLE] == "post") & state.work[day].notna()
     keys = _group_columns(state) + [day]
@@ -531,7 +531,7 @@ def _check_same_day(state: _State) -> None:
 def _window(state: _State) -> None:
     cols = state.columns
     if not state.has(cols.subject, cols.study_day) or any(c.failed for c in state.checks if c.id == "same_day_records"):
-        state.record("visit_windows", "post-baseline records fall inside a visit window", "warning")
+        state.record("visit_windows", "post-baseline records outside every visit window (not analysed)", "warning")
         return
     post = state.work[state.work[ROLE] == "post"]
     parameters = post[cols.parameter] if state.has(cols.parameter) else None
@@ -551,7 +551,7 @@ def _window(state: _State) -> None:
 def _check_baseline_present(state: _State) -> None:
     cols = state.columns
     if not state.has(cols.subject):
-        state.record("baseline_present", "every participant has a baseline value", "warning")
+        state.record("baseline_present", "participants without a baseline value (their change cannot be computed)", "warning")
         return
     keys = _group_columns(state)
     base_record = (state.work[ROLE] == "baseline")
@@ -571,7 +571,7 @@ def _check_baseline_present(state: _State) -> None:
 def _check_post_baseline(state: _State) -> None:
     cols = state.columns
     if not state.has(cols.subject):
-        state.record("post_baseline_present", "every participant has post-baseline data", "warning")
+        state.record("post_baseline_present", "participants without post-baseline data at any analysis visit", "warning")
         return
     keys = _group_columns(state)
     analysed = state.work[CHOSEN].astype(bool)

@@ -49,6 +49,11 @@ def simulate_trial(seed: int = 20240101, n_participants: int = 300, enrolment_da
     return frame.drop(columns="__calendar").reset_index(drop=True)
 
 
+def write_csv(frame: pd.DataFrame, path) -> None:
+    """Write a simulated cut as CSV with whole numbers printed without a trailing ".0"."""
+    frame.to_csv(path, index=False, float_format="%.10g", lineterminator="\n")
+
+
 def demo_cuts(seed: int = 20240101, n_participants: int = 300) -> dict[str, pd.DataFrame]:
     """``interim`` at about 60 % of the calendar follow-up, and ``final``, from one trial."""
     enrolment_days = 240
