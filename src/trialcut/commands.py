@@ -172,8 +172,8 @@ def _record(out_root: Path, plan, cut_label, run_id, results, audit, loaded, raw
         "dummy_arms": results["run"]["dummy_arms_seed"] is not None, "data_sha256": raw.manifest["sha256"],
         "created_utc": results["run"]["started_utc"],
     }
-    row = record_run(out_root, out_root / "registry.sqlite", plan.study.id, cut_label, run_id, write, entry)
-    return Path(_field(row, "folder_path", default=None) or out_root / plan.study.id / cut_label / run_id)
+    recorded = record_run(out_root, out_root / "registry.sqlite", plan.study.id, cut_label, run_id, write, entry)
+    return Path(recorded.folder)
 
 
 def _executor(workers: int, scheduler: str | None):
@@ -239,7 +239,9 @@ def command_verify(args) -> int:
 
     registry = args.registry or args.out / "registry.sqlite"
     if args.run_folder is not None:
-        report = verify_run(args.run_folder, registry_path=registry if registry.exists() else None)
+        # An explicit --registry must exist (verify_run says so); the default may be absent.
+        use_registry = registry if (args.registry is not None or registry.exists()) else None
+        report = verify_run(args.run_folder, registry_path=use_registry)
     else:
         report = verify_all(args.out, registry)
     console.print(f"[green]verified[/green] {_field(report, 'summary', default='no differences found')}")
