@@ -182,10 +182,11 @@ class _TooLarge(Exception):
 
 
 def _parse(text: str, file: str) -> tuple[Any, SourceMap, list[Problem]]:
-    loader = yaml.SafeLoader(text)
-    builder = _Builder(loader, file)
     empty = SourceMap({}, {}, {})
+    loader = None
     try:
+        loader = yaml.SafeLoader(text)      # checks for forbidden characters already
+        builder = _Builder(loader, file)
         node = loader.get_single_node()
         if node is None:
             return None, empty, [Problem(
@@ -204,7 +205,8 @@ def _parse(text: str, file: str) -> tuple[Any, SourceMap, list[Problem]]:
             code="plan.too_large", message="the YAML is nested too deeply or its aliases expand too far",
             file=file, hint="write the plan out plainly, without deeply nested lists or chains of aliases")]
     finally:
-        loader.dispose()
+        if loader is not None:
+            loader.dispose()
     source = SourceMap(builder.keys, builder.values, builder.scalars)
     problems = list(builder.problems)
     if not problems and not isinstance(data, dict):
@@ -237,8 +239,16 @@ def _reader_problem(error: yaml.reader.ReaderError, text: str, file: str) -> Pro
     line = before.count("\n") + 1
     column = error.position - (before.rfind("\n") + 1) + 1
     return Problem(code="plan.yaml_character", message="the file contains a character YAML does not allow",
-                   file=file, line=line, column=column, got=f"character U+{ord(str(error.character)[0]):04X}"
-                   if error.character else None, hint="remove the control character")
+                   file=file, line=line, column=column, got=_character(error.character),
+                   hint="remove the control character")
+
+
+def _character(character: Any) -> str | None:
+    if isinstance(character, int):
+        return f"character U+{character:04X}"
+    if isinstance(character, str) and character:
+        return f"character U+{ord(character[0]):04X}"
+    return None
 
 
 # --------------------------------------------------------------------------- validation
