@@ -25,6 +25,7 @@ Conventions (also stated in shared/DESIGN.md):
 """
 from __future__ import annotations
 
+import contextlib
 import math
 import warnings
 from dataclasses import dataclass, fields
@@ -41,6 +42,11 @@ from trialcut.stats.mmrm_inference import Inference
 from trialcut.stats.mmrm_likelihood import Likelihood, Maximum, maximise
 from trialcut.stats.names import DF_METHODS, ESTIMATION_METHODS
 
+try:    # optional: keeps BLAS to one thread, see _one_blas_thread
+    from threadpoolctl import threadpool_limits
+except ImportError:          # pragma: no cover - the fit still works, only slower on a busy machine
+    threadpool_limits = None
+
 FIXED_EFFECT_COLUMNS = ("term", "estimate", "se", "df", "t", "p")
 MEAN_COLUMNS = ("arm", "visit", "estimate", "se", "df", "lower", "upper")
 DIFFERENCE_COLUMNS = ("arm", "reference", "visit", "estimate", "se", "df", "t", "p", "lower", "upper")
@@ -49,9 +55,14 @@ RESIDUAL_COLUMNS = ("subject", "visit", "fitted", "residual", "scaled_residual")
 
 
 # =========================================================================== result
-@dataclass(frozen=True)
+ARRAY_FIELDS = ("coefficients", "coefficient_covariance", "model_based_covariance", "covariance_parameters",
+                "covariance_parameter_covariance", "covariance_matrices", "fixed_effect_rows")
+
+
+@dataclass(frozen=True, eq=False)
 class MMRMFit:
-    """A fitted repeated-measures model: plain data, frozen, JSON-able through ``to_dict``."""
+    """A fitted repeated-measures model: plain data, frozen (arrays read-only), JSON-able
+    through ``to_dict`` and rebuilt by ``from_dict``.  Compare two fits by their ``to_dict()``."""
 
     settings: dict                  # the arguments of the fit, as given
     structure: str                  # the covariance structure used
@@ -77,26 +88,25 @@ class MMRMFit:
     attempts: tuple                 # one dict per structure tried
     warnings: tuple
     term_names: tuple
-    coefficients: tuple
-    coefficient_covariance: tuple   # the variance used for inference (Phi_A, Phi or sandwich)
-    model_based_covariance: tuple   # Phi = (X'V^-1X)^-1
+    coefficients: np.ndarray
+    coefficient_covariance: np.ndarray   # the variance used for inference (Phi_A, Phi or sandwich)
+    model_based_covariance: np.ndarray   # Phi = (X'V^-1X)^-1
     covariance_parameter_names: tuple
-    covariance_parameters: tuple    # theta, in the structure's parametrisation
-    covariance_parameter_covariance: tuple   # W, inverse expected information of theta
-    covariance_matrices: tuple      # per group, k x k
-    fixed_effect_rows: tuple        # (estimate, se, df) per term
+    covariance_parameters: np.ndarray    # theta, in the structure's parametrisation
+    covariance_parameter_covariance: np.ndarray   # W, inverse expected information of theta
+    covariance_matrices: np.ndarray      # (groups, k, k)
+    fixed_effect_rows: np.ndarray        # (estimate, se, df) per term
     mean_rows: tuple                # (arm, visit, estimate, se, df)
     difference_rows: tuple          # (arm, reference, visit, estimate, se, df)
     joint_rows: tuple               # (term, num_df, den_df, F, p)
-    residual_rows: tuple            # (subject, visit, fitted, residual, scaled_residual)
+    residual_columns: dict          # subject, visit, fitted, residual, scaled_residual -> read-only arrays
 
     # ----------------------------------------------------------------- tables
     @property
     def fixed_effects(self) -> pd.DataFrame:
         rows = []
-        for term, (estimate, se, df) in zip(self.term_names, self.fixed_effect_rows):
-            t, p = _t_test(estimate, se, df)
-            rows.append((term, estimate, se, df, t, p))
+        for term, (estimate, se, df) in zip(self.term_names, self.fixed_effect_rows.tolist()):
+            rows.append((term, estimate, se, df, *_t_test(estimate, se, df)))
         return pd.DataFrame(rows, columns=list(FIXED_EFFECT_COLUMNS))
 
     def marginal_means(self, conf_level: float = 0.95) -> pd.DataFrame:
@@ -113,15 +123,16 @@ class MMRMFit:
         return pd.DataFrame(list(self.joint_rows), columns=list(JOINT_COLUMNS))
 
     def residuals(self) -> pd.DataFrame:
-        return pd.DataFrame(list(self.residual_rows), columns=list(RESIDUAL_COLUMNS))
+        """Per analysed outcome: fitted value, raw residual and the residual scaled by the inverse
+        Cholesky factor of the participant's Sigma_i (independent N(0, 1) under the model)."""
+        return pd.DataFrame({name: np.array(self.residual_columns[name]) for name in RESIDUAL_COLUMNS})
 
     def covariance_matrix(self) -> pd.DataFrame:
-        return self._visit_frame(np.array(self.covariance_matrices))
+        return self._visit_frame(self.covariance_matrices)
 
     def correlation_matrix(self) -> pd.DataFrame:
-        matrices = np.array(self.covariance_matrices)
-        sd = np.sqrt(np.einsum("gjj->gj", matrices))
-        return self._visit_frame(matrices / (sd[:, :, None] * sd[:, None, :]))
+        sd = np.sqrt(np.einsum("gjj->gj", self.covariance_matrices))
+        return self._visit_frame(self.covariance_matrices / (sd[:, :, None] * sd[:, None, :]))
 
     def _visit_frame(self, matrices: np.ndarray) -> pd.DataFrame:
         visits = list(self.visits)
@@ -132,8 +143,9 @@ class MMRMFit:
 
     # ----------------------------------------------------------------- serialisation
     def to_dict(self, conf_level: float = 0.95) -> dict[str, Any]:
-        """Every field (lossless: ``MMRMFit.from_dict`` rebuilds the fit) plus the tables at
-        ``conf_level`` for readers. NaN and infinite numbers become None."""
+        """Every field (lossless: ``MMRMFit.from_dict`` rebuilds the fit) plus, under ``tables``,
+        the tables at ``conf_level`` for readers.  NaN and infinite numbers become None (an
+        infinite df means the normal distribution)."""
         data = {f.name: _plain(getattr(self, f.name)) for f in fields(self)}
         data["tables"] = {
             "fixed_effects": _table(self.fixed_effects),
@@ -151,8 +163,23 @@ class MMRMFit:
         values = {}
         for f in fields(cls):
             value = data[f.name]
-            values[f.name] = _frozen(value) if isinstance(value, list) else value
+            if f.name in ARRAY_FIELDS:
+                value = _readonly(np.array(_frozen(value), dtype=float))
+            elif f.name == "residual_columns":
+                value = {name: _readonly(np.array(_frozen(column), dtype=float if name not in ("subject", "visit") else object))
+                         for name, column in value.items()}
+            elif f.name in ("mean_rows", "difference_rows", "joint_rows"):
+                value = _frozen(value)
+            elif isinstance(value, list):
+                value = tuple(value)
+            values[f.name] = value
         return cls(**values)
+
+
+def _readonly(array: np.ndarray) -> np.ndarray:
+    array = np.array(array)
+    array.flags.writeable = False
+    return array
 
 
 def _t_test(estimate, se, df):
@@ -172,9 +199,15 @@ def _interval(estimate, se, df, conf_level):
 
 
 def _plain(value):
+    """JSON-able copy: containers to lists and dicts, numpy scalars to Python, NaN/inf to None."""
+    if isinstance(value, np.ndarray):
+        if value.dtype.kind == "f":
+            listed = value.tolist()
+            return listed if np.isfinite(value).all() else _plain(listed)
+        value = value.tolist()
     if isinstance(value, dict):
         return {str(k): _plain(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple, np.ndarray)):
+    if isinstance(value, (list, tuple)):
         return [_plain(v) for v in value]
     if isinstance(value, np.generic):
         value = value.item()
@@ -215,7 +248,7 @@ def fit_mmrm(data: pd.DataFrame, *, outcome: str = "CHG", subject: str = "USUBJI
                 "covariance_by": covariance_by, "method": method, "df": df, "robust": robust,
                 "visit_times": None if visit_times is None else dict(visit_times),
                 "max_iterations": max_iterations, "tolerance": tolerance}
-    with warnings.catch_warnings(record=True) as caught:
+    with warnings.catch_warnings(record=True) as caught, _one_blas_thread():
         warnings.simplefilter("always")
         design = build_design(data, outcome=outcome, subject=subject, visit=visit, arm=arm, reference=reference,
                               visits=visits, covariates=covariates, covariates_by_visit=covariates_by_visit,
@@ -224,6 +257,12 @@ def fit_mmrm(data: pd.DataFrame, *, outcome: str = "CHG", subject: str = "USUBJI
         inference = Inference(likelihood, maximum.evaluation, design, df, robust)
         fit = _assemble(design, settings, name, likelihood, maximum, inference, attempts, caught)
     return fit
+
+
+def _one_blas_thread():
+    """The fit is many small matrix products; a multi-threaded BLAS spends more time waking its
+    threads than computing (up to 30 times slower on a machine whose cores are busy)."""
+    return threadpool_limits(limits=1, user_api="blas") if threadpool_limits else contextlib.nullcontext()
 
 
 def _check_arguments(covariance, method, df, robust, max_iterations, tolerance) -> tuple[str, ...]:
@@ -372,9 +411,8 @@ def _assemble(design: Design, settings, name, likelihood: Likelihood, maximum: M
         covariance_parameter_names=theta_names, covariance_parameters=evaluation.theta,
         covariance_parameter_covariance=inference.weights, covariance_matrices=np.array(evaluation.sigmas),
         fixed_effect_rows=np.column_stack(fixed), mean_rows=mean_rows, difference_rows=difference_rows,
-        joint_rows=joint_rows, residual_rows=_residual_rows(design, evaluation))
-    return MMRMFit(**{key: _frozen(_plain(value)) if isinstance(value, (np.ndarray, list)) else value
-                      for key, value in fields_.items()})
+        joint_rows=joint_rows, residual_columns=_residual_columns(design, evaluation))
+    return MMRMFit(**{key: _readonly(value) if key in ARRAY_FIELDS else value for key, value in fields_.items()})
 
 
 def _joint_contrasts(design: Design) -> dict[str, np.ndarray]:
@@ -407,7 +445,7 @@ def _joint_contrasts(design: Design) -> dict[str, np.ndarray]:
     return tests
 
 
-def _residual_rows(design: Design, evaluation) -> tuple:
+def _residual_columns(design: Design, evaluation) -> dict[str, np.ndarray]:
     subjects, visits, fitted, raw, scaled = [], [], [], [], []
     for pattern in design.patterns:
         sigma = evaluation.sigmas[pattern.group][np.ix_(pattern.visits, pattern.visits)]
@@ -421,7 +459,8 @@ def _residual_rows(design: Design, evaluation) -> tuple:
         scaled.append(np.linalg.solve(factor, residual.T).T.ravel())
     subjects, visits = np.concatenate(subjects), np.concatenate(visits)
     order = np.lexsort((visits, subjects))
-    labels = design.subject_labels[subjects[order]]
-    visit_labels = np.array(design.visits, dtype=object)[visits[order]]
-    columns = [np.concatenate(c)[order] for c in (fitted, raw, scaled)]
-    return tuple(zip(_plain(labels), _plain(visit_labels), *(c.tolist() for c in columns)))
+    columns = {"subject": design.subject_labels[subjects[order]],
+               "visit": np.array(design.visits + (None,), dtype=object)[:-1][visits[order]]}
+    for name, parts in zip(RESIDUAL_COLUMNS[2:], (fitted, raw, scaled)):
+        columns[name] = np.concatenate(parts)[order]
+    return {name: _readonly(column) for name, column in columns.items()}

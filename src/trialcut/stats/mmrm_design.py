@@ -202,9 +202,9 @@ def build_design(data: pd.DataFrame, *, outcome: str, subject: str, visit: str, 
     x = _design_rows(arm_index, visit_index, covariate_block, coder.by_visit_mask, len(arms), len(visits))
     names, blocks, covariate_columns = _term_names(arms, visits, coder)
     _check_cells(arm_index, visit_index, arms, visits, arm)
-    _check_rank(x, names)
 
     patterns = _patterns(subject_codes, visit_index, group_index, x, observed[outcome].to_numpy(float), len(visits))
+    _check_rank(sum(np.einsum("jjab->ab", pattern.t_xx) for pattern in patterns), x, names)
     pair_counts = np.zeros((len(groups), len(visits), len(visits)))
     for pattern in patterns:
         pair_counts[pattern.group][np.ix_(pattern.visits, pattern.visits)] += pattern.n
@@ -320,10 +320,10 @@ def _check_cells(arm_index, visit_index, arms, visits, arm_column) -> None:
                        hint="drop the visit from `visits` or check the data cut")])
 
 
-def _check_rank(x: np.ndarray, names: tuple[str, ...]) -> None:
-    scale = np.sqrt((x ** 2).sum(axis=0))
+def _check_rank(cross_product: np.ndarray, x: np.ndarray, names: tuple[str, ...]) -> None:
+    scale = np.sqrt(np.diag(cross_product))
     scale[scale == 0] = 1.0
-    cross = (x / scale).T @ (x / scale)
+    cross = cross_product / np.outer(scale, scale)
     eigenvalues = np.linalg.eigvalsh(cross)
     if eigenvalues.min() > 1e-10 * eigenvalues.max():
         return
