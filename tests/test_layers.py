@@ -15,7 +15,7 @@ def _layer(module: str) -> str | None:
     if parts[0] != "trialcut":
         return None
     if len(parts) == 1:
-        return "cli"
+        return "errors"  # the package root only carries __version__ and a lazy fit_mmrm
     name = parts[1]
     if name in CLI_MODULES:
         return "cli"
