@@ -1,0 +1,167 @@
+"""Assemble the report's content from Results: sections of paragraphs, tables and figures.
+
+Nothing here knows about HTML or PDF.  The builders read results.json (and audit.json when
+given) and produce a :class:`Document`; the templates only lay it out.  Unknown analysis
+methods get a generic section from their ``tables``; a failed analysis shows its error.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field, replace
+from typing import Any, Mapping, Sequence
+
+from trialcut.report import sections_analysis, sections_front
+from trialcut.report.figures import FigureImage
+from trialcut.report.formatting import NumberFormat, describe_rules, short_hash
+from trialcut.report.tables import ReportTable
+
+
+@dataclass
+class Block:
+    kind: str          # "paragraph", "list", "notice", "table", "figure"
+    content: Any
+
+
+@dataclass
+class Section:
+    anchor: str
+    title: str
+    blocks: list[Block] = field(default_factory=list)
+    subsections: list["Section"] = field(default_factory=list)
+    landscape: bool = False
+
+    def paragraph(self, text: str) -> None:
+        if text:
+            self.blocks.append(Block("paragraph", text))
+
+    def items(self, texts: Sequence[str]) -> None:
+        if texts:
+            self.blocks.append(Block("list", list(texts)))
+
+    def notice(self, text: str) -> None:
+        self.blocks.append(Block("notice", text))
+
+    def table(self, table: ReportTable | None) -> None:
+        if table is not None and table.rows:
+            self.blocks.append(Block("table", table))
+
+    def figure(self, figure: FigureImage | None) -> None:
+        if figure is not None:
+            self.blocks.append(Block("figure", figure))
+
+    def child(self, anchor: str, title: str) -> "Section":
+        section = Section(anchor=f"{self.anchor}-{anchor}", title=title)
+        self.subsections.append(section)
+        return section
+
+
+@dataclass
+class Document:
+    title: str
+    study_id: str
+    cut: str
+    run_id: str
+    plan_hash: str
+    paper: str
+    facts: list[tuple[str, str]]
+    banners: list[str]
+    cautions: list[str]
+    sections: list[Section]
+    tables: list[ReportTable] = field(default_factory=list)
+    figures: list[FigureImage] = field(default_factory=list)
+
+    @property
+    def header_text(self) -> str:
+        return f"{self.study_id} · cut {self.cut} · plan {short_hash(self.plan_hash, 12)}"
+
+
+CAUTIONS = (
+    "These results were produced by software from a prespecified plan. They require review by a "
+    "qualified statistician before anyone relies on them.",
+    "They do not replace regulatory, ethics committee or local review of the trial.",
+    "Conclusions depend on the stated assumptions about missing data; the sensitivity analyses "
+    "show how far the estimates move when those assumptions change.",
+)
+
+
+def build_document(results: Mapping[str, Any], audit: Mapping[str, Any] | None = None) -> Document:
+    run = results.get("run") or {}
+    plan = results.get("plan") or {}
+    study = plan.get("study") or {}
+    report_settings = plan.get("report") or {}
+    base_format = NumberFormat.from_results(results)
+    sections: list[Section] = []
+
+    about = Section("run", "About this run")
+    sections_front.run_record(about, results, base_format)
+    sections.append(about)
+
+    cautions = Section("cautions", "Cautions for the reader")
+    cautions.items(CAUTIONS)
+    cautions.paragraph(describe_rules(base_format))
+    sections.insert(0, cautions)
+
+    estimands = Section("estimands", "Estimands")
+    sections_front.estimands(estimands, results, base_format)
+    sections.append(estimands)
+
+    populations = Section("populations", "Analysis populations and disposition")
+    sections_front.populations(populations, results, base_format)
+    sections.append(populations)
+
+    conformance = Section("conformance", "Data conformance")
+    sections_front.conformance(conformance, results, base_format)
+    sections.append(conformance)
+
+    for position, endpoint in enumerate(results.get("endpoints") or []):
+        number_format = NumberFormat.from_results(results, raw=endpoint.get("decimals"))
+        section = Section(f"endpoint{position + 1}", f"Endpoint: {endpoint.get('label') or endpoint.get('id')}")
+        sections_analysis.endpoint(section, results, endpoint, number_format)
+        sections.append(section)
+
+    appendix = Section("audit", "Appendix: audit record")
+    sections_front.audit_appendix(appendix, results, audit, base_format)
+    sections.append(appendix)
+
+    document = Document(
+        title=report_settings.get("title") or f"{study.get('id', run.get('study_id', ''))} efficacy report",
+        study_id=str(study.get("id") or run.get("study_id") or ""),
+        cut=str(run.get("cut") or ""),
+        run_id=str(run.get("id") or ""),
+        plan_hash=str(plan.get("sha256") or ""),
+        paper=report_settings.get("paper") if report_settings.get("paper") in ("A4", "Letter") else "A4",
+        facts=sections_front.title_facts(results),
+        banners=sections_front.banners(results),
+        cautions=list(CAUTIONS),
+        sections=sections,
+    )
+    return number_items(document, report_settings)
+
+
+def walk(sections: Sequence[Section]):
+    for section in sections:
+        yield section
+        yield from walk(section.subsections)
+
+
+def number_items(document: Document, report_settings: Mapping[str, Any]) -> Document:
+    """Number tables and figures in reading order with the plan's prefixes; slugs become unique."""
+    table_prefix = report_settings.get("table_prefix", "Table ")
+    figure_prefix = report_settings.get("figure_prefix", "Figure ")
+    tables, figures = [], []
+    for section in walk(document.sections):
+        for block in section.blocks:
+            if block.kind == "table":
+                number = len(tables) + 1
+                block.content = replace(block.content.with_number(f"{table_prefix}{number}", f"table-{number}"),
+                                        slug=f"{number:02d}_{block.content.slug}")
+                tables.append(block.content)
+            elif block.kind == "figure" and block.content.svg is not None:
+                number = len(figures) + 1
+                block.content = replace(block.content, number=f"{figure_prefix}{number}",
+                                        anchor=f"figure-{number}", slug=f"{number:02d}_{block.content.slug}")
+                figures.append(block.content)
+    document.tables, document.figures = tables, figures
+    return document
+
+
+__all__ = ["Block", "Document", "Section", "build_document"]

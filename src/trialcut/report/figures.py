@@ -1,0 +1,275 @@
+"""The report's figures, drawn with matplotlib into SVG bytes that do not change between runs.
+
+Determinism: SVG ids come from ``svg.hashsalt`` (fixed here) and the date is left out of the
+metadata; text is drawn as paths so the picture does not depend on the fonts of the reader's
+machine.  ``text.parse_math`` is off so a label with "$" is shown, not parsed.  Figures are
+built on ``matplotlib.figure.Figure`` directly (no pyplot state shared between calls).
+"""
+from __future__ import annotations
+
+import io
+import math
+from dataclasses import dataclass
+from typing import Any, Mapping, Sequence
+
+import numpy as np
+
+# Colours of our own: a muted reference grey, then distinguishable hues (also in grey print).
+ARM_COLOURS = ("#5d6670", "#0f7c78", "#c4621d", "#6d4a92", "#a23b52", "#3d6fb0", "#7c8a1f")
+ARM_MARKERS = ("o", "s", "^", "D", "v", "P", "X")
+INK = "#1f2a33"
+GRID = "#d9dee2"
+
+RC = {
+    "svg.hashsalt": "trialcut-report",
+    "svg.fonttype": "none",
+    "text.parse_math": False,
+    "font.family": "DejaVu Sans",
+    "font.size": 8.5,
+    "axes.edgecolor": INK,
+    "axes.labelcolor": INK,
+    "axes.spines.top": False,
+    "axes.spines.right": False,
+    "axes.grid": True,
+    "grid.color": GRID,
+    "grid.linewidth": 0.6,
+    "xtick.color": INK,
+    "ytick.color": INK,
+    "legend.frameon": False,
+}
+
+
+@dataclass(frozen=True)
+class FigureImage:
+    slug: str
+    title: str
+    alt: str
+    svg: bytes | None       # None: the figure could not be drawn; ``note`` says why
+    note: str = ""
+    number: str = ""
+    anchor: str = ""
+
+
+def _new_figure(width: float, height: float):
+    from matplotlib.figure import Figure
+
+    return Figure(figsize=(width, height), dpi=100, layout="constrained")
+
+
+def _svg(figure) -> bytes:
+    import matplotlib
+
+    buffer = io.BytesIO()
+    with matplotlib.rc_context(RC):
+        figure.savefig(buffer, format="svg", metadata={"Date": None})
+    return buffer.getvalue()
+
+
+def _draw(draw, *args, width=6.4, height=3.4, **kwargs) -> bytes:
+    import matplotlib
+
+    with matplotlib.rc_context(RC):
+        figure = _new_figure(width, height)
+        draw(figure, *args, **kwargs)
+        return _svg(figure)
+
+
+def arm_style(arms: Sequence[str], arm: str) -> dict[str, Any]:
+    position = list(arms).index(arm) if arm in arms else len(arms)
+    return {"color": ARM_COLOURS[position % len(ARM_COLOURS)], "marker": ARM_MARKERS[position % len(ARM_MARKERS)]}
+
+
+def _dodge(arms: Sequence[str], arm: str, spacing: float) -> float:
+    centre = (len(arms) - 1) / 2
+    return (list(arms).index(arm) - centre) * spacing
+
+
+def _visit_axis(axes, visits: Sequence[str], positions: Sequence[float], label: str):
+    axes.set_xticks(list(positions), list(visits))
+    axes.set_xlabel(label)
+
+
+def _positions(visits: Sequence[str], visit_days: Mapping[str, float] | None) -> list[float]:
+    if visit_days and all(visit_days.get(v) is not None for v in visits):
+        return [float(visit_days[v]) for v in visits]
+    return [float(i + 1) for i in range(len(visits))]
+
+
+# --------------------------------------------------------------------------- profiles
+def profile_chart(points: Sequence[Mapping[str, Any]], *, arms, visits, visit_days, y_label: str,
+                  reference_line: bool = True) -> bytes:
+    """Points {arm, visit, centre, lower, upper} as lines with vertical interval bars."""
+    positions = _positions(visits, visit_days)
+    spacing = (max(positions) - min(positions) or 1) * 0.012
+
+    def draw(figure):
+        axes = figure.subplots()
+        for arm in arms:
+            style = arm_style(arms, arm)
+            mine = {p["visit"]: p for p in points if p["arm"] == arm}
+            xs, ys, low, high = [], [], [], []
+            for visit, x in zip(visits, positions):
+                point = mine.get(visit)
+                if point is None or point.get("centre") is None:
+                    continue
+                xs.append(x + _dodge(arms, arm, spacing))
+                ys.append(point["centre"])
+                low.append(point["centre"] - (point.get("lower") if point.get("lower") is not None else point["centre"]))
+                high.append((point.get("upper") if point.get("upper") is not None else point["centre"]) - point["centre"])
+            axes.errorbar(xs, ys, yerr=[low, high], color=style["color"], marker=style["marker"],
+                          markersize=4.5, linewidth=1.4, capsize=2.5, elinewidth=1.0, label=arm)
+        if reference_line:
+            axes.axhline(0, color=INK, linewidth=0.7, linestyle=(0, (4, 3)))
+        _visit_axis(axes, visits, positions, "Visit")
+        axes.set_ylabel(y_label)
+        axes.legend(loc="best", fontsize=8)
+
+    return _draw(draw)
+
+
+def trajectories_chart(series: Mapping[str, Mapping[str, list[tuple[str, float]]]], *, arms, visits,
+                       visit_days, y_label: str) -> bytes:
+    """One panel per arm; ``series[arm][subject]`` is that participant's (visit, value) list."""
+    positions = dict(zip(visits, _positions(visits, visit_days)))
+
+    def draw(figure):
+        panels = figure.subplots(1, len(arms), sharey=True, squeeze=False)[0]
+        for axes, arm in zip(panels, arms):
+            colour = arm_style(arms, arm)["color"]
+            for subject in sorted(series.get(arm, {})):
+                values = [(positions[v], y) for v, y in series[arm][subject] if v in positions and y is not None]
+                values.sort()
+                if values:
+                    xs, ys = zip(*values)
+                    axes.plot(xs, ys, color=colour, linewidth=0.7, alpha=0.55, marker="o", markersize=1.6)
+            axes.set_title(f"{arm} (n = {len(series.get(arm, {}))})", fontsize=8.5, color=INK)
+            axes.set_xticks(list(positions.values()), list(positions), rotation=45, ha="right")
+        panels[0].set_ylabel(y_label)
+
+    return _draw(draw, height=3.0)
+
+
+# --------------------------------------------------------------------------- missing data
+def pattern_chart(rows: Sequence[Mapping[str, Any]], *, arms, visits) -> bytes:
+    """Tiles: one row per arm and pattern, a filled tile per observed visit, the count beside it."""
+    ordered = [r for arm in arms for r in rows if r.get("arm") == arm]
+    height = max(2.2, 0.22 * len(ordered) + 1.0)
+
+    def draw(figure):
+        axes = figure.subplots()
+        axes.grid(False)
+        for y, row in enumerate(ordered):
+            style = arm_style(arms, row.get("arm"))
+            pattern = str(row.get("pattern") or "")
+            for x, mark in enumerate(pattern[: len(visits)]):
+                observed = mark not in (".", "-", " ", "0")
+                axes.add_patch(_tile(x, y, style["color"] if observed else "#ffffff", observed))
+            axes.text(len(visits) + 0.15, y, f"{row.get('count', '')}", va="center", fontsize=8, color=INK)
+        axes.set_xlim(-0.6, len(visits) + 0.9)
+        axes.set_ylim(len(ordered) - 0.5, -0.5)
+        axes.set_xticks(range(len(visits)), list(visits))
+        axes.set_yticks(range(len(ordered)), [f"{r.get('arm')}" for r in ordered], fontsize=7.5)
+        axes.xaxis.tick_top()
+        axes.spines[:].set_visible(False)
+        axes.tick_params(length=0)
+        axes.set_xlabel("Filled: value observed; open: missing. Number at right: participants.")
+
+    return _draw(draw, height=height)
+
+
+def _tile(x: float, y: float, colour: str, filled: bool):
+    from matplotlib.patches import Rectangle
+
+    return Rectangle((x - 0.42, y - 0.38), 0.84, 0.76, facecolor=colour,
+                     edgecolor=INK if not filled else colour, linewidth=0.6)
+
+
+# --------------------------------------------------------------------------- diagnostics
+def residual_chart(fitted: Sequence[float], residuals: Sequence[float], *, residual_label: str) -> bytes:
+    """Normal quantile plot (Blom plotting positions) and residuals against fitted values."""
+    from scipy import stats
+
+    values = np.asarray(residuals, dtype=float)
+    order = np.sort(values)
+    n = order.size
+    theoretical = stats.norm.ppf((np.arange(1, n + 1) - 0.375) / (n + 0.25))
+
+    def draw(figure):
+        left, right = figure.subplots(1, 2)
+        left.scatter(theoretical, order, s=6, color=ARM_COLOURS[1], alpha=0.7, linewidths=0)
+        slope, intercept = np.std(values, ddof=1), np.mean(values)
+        line = np.array([theoretical.min(), theoretical.max()])
+        left.plot(line, intercept + slope * line, color=INK, linewidth=0.9)
+        left.set_xlabel("Normal quantile")
+        left.set_ylabel(residual_label)
+        left.set_title("Normal quantile plot", fontsize=8.5, color=INK)
+        right.scatter(fitted, values, s=6, color=ARM_COLOURS[2], alpha=0.6, linewidths=0)
+        right.axhline(0, color=INK, linewidth=0.8)
+        right.set_xlabel("Fitted value")
+        right.set_ylabel(residual_label)
+        right.set_title("Residuals against fitted values", fontsize=8.5, color=INK)
+
+    return _draw(draw, height=3.0)
+
+
+# --------------------------------------------------------------------------- sensitivity
+def tipping_chart(cells: Sequence[Mapping[str, Any]], *, arms: Sequence[str], alpha: float,
+                  label=lambda value: f"{value:.2f}") -> bytes:
+    """p-value per (active-arm shift, reference-arm shift), one panel per arm; text: the estimate."""
+    import matplotlib.colors as colours
+
+    panel_arms = [a for a in arms if any(c["arm"] == a for c in cells)]
+    scale = colours.LinearSegmentedColormap.from_list("tipping", ["#0f7c78", "#e9efe9", "#c4621d"])
+    norm = colours.TwoSlopeNorm(vmin=0.0, vcenter=alpha, vmax=max(alpha * 2, 1.0))
+
+    def draw(figure):
+        panels = figure.subplots(1, len(panel_arms), squeeze=False)[0]
+        image = None
+        for axes, arm in zip(panels, panel_arms):
+            mine = [c for c in cells if c["arm"] == arm]
+            shifts = sorted({c["shift"] for c in mine})
+            reference_shifts = sorted({c.get("reference_shift") or 0.0 for c in mine}, reverse=True)
+            grid = np.full((len(reference_shifts), len(shifts)), np.nan)
+            for c in mine:
+                row = reference_shifts.index(c.get("reference_shift") or 0.0)
+                column = shifts.index(c["shift"])
+                grid[row, column] = c["p"] if c["p"] is not None else np.nan
+                if c.get("estimate") is not None:
+                    axes.text(column, row, label(c["estimate"]), ha="center", va="center", fontsize=6.5,
+                              color=INK)
+            image = axes.imshow(grid, cmap=scale, norm=norm, aspect="auto")
+            axes.grid(False)
+            axes.set_xticks(range(len(shifts)), [f"{s:g}" for s in shifts])
+            axes.set_yticks(range(len(reference_shifts)), [f"{s:g}" for s in reference_shifts])
+            axes.set_xlabel("Shift added in the active arm")
+            axes.set_title(arm, fontsize=8.5, color=INK)
+        panels[0].set_ylabel("Shift added in the reference arm")
+        if image is not None:
+            bar = figure.colorbar(image, ax=list(panels), shrink=0.9)
+            bar.set_label(f"p-value (α = {alpha:g} at the colour change)")
+
+    return _draw(draw, height=3.0)
+
+
+def forest_chart(rows: Sequence[Mapping[str, Any]], *, arms: Sequence[str], x_label: str) -> bytes:
+    """One line per analysis and arm: the estimate and its confidence interval."""
+    height = max(2.0, 0.28 * len(rows) + 1.0)
+
+    def draw(figure):
+        axes = figure.subplots()
+        for y, row in enumerate(rows):
+            style = arm_style(arms, row["arm"])
+            if row.get("lower") is not None and row.get("upper") is not None:
+                axes.plot([row["lower"], row["upper"]], [y, y], color=style["color"], linewidth=1.6)
+            axes.plot([row["estimate"]], [y], marker=style["marker"], color=style["color"], markersize=5)
+        axes.axvline(0, color=INK, linewidth=0.8, linestyle=(0, (4, 3)))
+        axes.set_yticks(range(len(rows)), [f"{r['label']} — {r['arm']}" for r in rows], fontsize=7.5)
+        axes.set_ylim(len(rows) - 0.5, -0.5)
+        axes.set_xlabel(x_label)
+        axes.grid(axis="y", visible=False)
+
+    return _draw(draw, height=height)
+
+
+def finite(values: Sequence[Any]) -> bool:
+    return all(isinstance(v, (int, float)) and math.isfinite(v) for v in values)

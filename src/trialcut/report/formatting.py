@@ -1,0 +1,128 @@
+"""How numbers are shown: one set of rules for the HTML, the PDF and any plain text.
+
+The rules (common practice in trial reporting), with the decimals taken from the plan's
+report settings and the endpoint's recorded precision:
+
+- means, estimates, differences and confidence limits: the raw precision plus ``mean_extra``;
+- standard deviations, standard errors, variances and covariances: raw plus ``sd_extra``;
+- p-values: ``p_value`` decimals, and anything below the smallest shown value as "<0.001";
+- counts as integers, percentages to one decimal, degrees of freedom to one decimal,
+  test statistics and correlations to ``STATISTIC_DECIMALS``, fit criteria to two.
+
+Rounding is half away from zero on the decimal value JSON stored (``repr`` of the float),
+so 0.25 shown to one decimal is 0.3, as a reader rounding by hand would expect; binary
+floating-point rounding would give 0.2.  CSV files keep full precision instead.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from decimal import ROUND_HALF_UP, Decimal
+from typing import Any, Mapping
+
+STATISTIC_DECIMALS = 2
+CORRELATION_DECIMALS = 3
+CRITERION_DECIMALS = 2
+MISSING_TEXT = "–"   # en dash: a cell with no value
+
+# Column kinds a table declares; each maps to one rule below.
+KINDS = ("text", "count", "mean", "sd", "p", "df", "statistic", "correlation", "percent",
+         "share", "criterion", "flag", "shift")
+
+
+def round_half_away(value: float, decimals: int) -> str:
+    """``value`` rounded to ``decimals`` places, as text without a spurious "-0"."""
+    quantum = Decimal(1).scaleb(-decimals)
+    rounded = Decimal(repr(float(value))).quantize(quantum, rounding=ROUND_HALF_UP)
+    if rounded == 0:
+        rounded = abs(rounded)
+    return f"{rounded:.{decimals}f}"
+
+
+@dataclass(frozen=True)
+class NumberFormat:
+    """The decimals of one endpoint's tables (``raw`` is the endpoint's recorded precision)."""
+
+    raw: int = 1
+    mean_extra: int = 1
+    sd_extra: int = 2
+    p_value: int = 3
+
+    @classmethod
+    def from_results(cls, results: Mapping[str, Any], raw: int | None = None) -> "NumberFormat":
+        settings = ((results.get("plan") or {}).get("report") or {}).get("decimals") or {}
+        return cls(
+            raw=1 if raw is None else int(raw),
+            mean_extra=int(settings.get("mean_extra", 1)),
+            sd_extra=int(settings.get("sd_extra", 2)),
+            p_value=int(settings.get("p_value", 3)),
+        )
+
+    @property
+    def mean_decimals(self) -> int:
+        return self.raw + self.mean_extra
+
+    @property
+    def sd_decimals(self) -> int:
+        return self.raw + self.sd_extra
+
+    def decimals_for(self, kind: str) -> int | None:
+        return {
+            "mean": self.mean_decimals, "shift": self.mean_decimals, "sd": self.sd_decimals,
+            "df": 1, "statistic": STATISTIC_DECIMALS, "correlation": CORRELATION_DECIMALS,
+            "percent": 1, "share": 1, "criterion": CRITERION_DECIMALS, "count": 0,
+            "p": self.p_value,
+        }.get(kind)
+
+    def p_value_text(self, value: float) -> str:
+        smallest = Decimal(1).scaleb(-self.p_value)
+        if Decimal(repr(float(value))) < smallest:
+            return f"<{smallest:.{self.p_value}f}"
+        return round_half_away(value, self.p_value)
+
+    def cell(self, value: Any, kind: str) -> str:
+        """The text of one table cell."""
+        if value is None or (isinstance(value, float) and math.isnan(value)):
+            return MISSING_TEXT
+        if kind == "flag" or isinstance(value, bool):
+            return "yes" if value else "no"
+        if kind == "text" or not isinstance(value, (int, float)):
+            return str(value)
+        if kind == "p":
+            return self.p_value_text(value)
+        if kind == "share":       # a proportion shown as a percentage
+            return round_half_away(100.0 * value, 1)
+        if kind == "count" and float(value).is_integer():
+            return str(int(value))
+        decimals = self.decimals_for(kind)
+        if decimals is None:
+            return _general(value)
+        return round_half_away(value, decimals)
+
+    def interval(self, lower: Any, upper: Any, kind: str = "mean") -> str:
+        """A confidence interval as "(lower, upper)"."""
+        return f"({self.cell(lower, kind)}, {self.cell(upper, kind)})"
+
+
+def _general(value: float) -> str:
+    """A number of unknown meaning: up to four significant decimals, no exponent if avoidable."""
+    if isinstance(value, int) or float(value).is_integer():
+        return str(int(value))
+    if abs(value) >= 1e-3:
+        return f"{value:.4g}" if abs(value) < 1e6 else f"{value:.6g}"
+    return f"{value:.3g}"
+
+
+def describe_rules(number_format: NumberFormat) -> str:
+    """The rules in words, printed in the report so a reader knows how values were rounded."""
+    return (
+        f"Means, estimated differences and confidence limits are shown to {number_format.mean_decimals} "
+        f"decimals and standard deviations and standard errors to {number_format.sd_decimals} "
+        f"(the data are recorded to {number_format.raw}); p-values to {number_format.p_value} decimals, "
+        f"with smaller values shown as <{Decimal(1).scaleb(-number_format.p_value):.{number_format.p_value}f}. "
+        "Values are rounded half away from zero. The CSV files keep full precision."
+    )
+
+
+def short_hash(value: str | None, length: int = 12) -> str:
+    return (value or "")[:length] or "not recorded"

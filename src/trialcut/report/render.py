@@ -1,0 +1,149 @@
+"""Write the rendered report: report.html, report.pdf, tables/*.csv and figures/*.svg.
+
+The HTML is one self-contained file (stylesheet and figures inline as data URIs) so a
+reviewer can read it offline; the PDF is made by WeasyPrint from the same HTML, with the
+stylesheet's print rules.  Output depends only on the results (and audit record) given:
+rendering the same input twice gives the same bytes.
+"""
+from __future__ import annotations
+
+import base64
+import json
+import os
+import tempfile
+from importlib import resources
+from pathlib import Path
+from typing import Any, Mapping
+
+from trialcut.errors import InputError, Problem, TrialcutError
+from trialcut.report.csv_output import write_table_csv
+from trialcut.report.document import Document, build_document
+
+TEMPLATES_ENVIRONMENT_VARIABLE = "TRIALCUT_TEMPLATES"
+STYLESHEET = "report.css"
+
+
+class ReportError(TrialcutError):
+    """The report could not be rendered (templates missing, PDF engine failure)."""
+
+
+def templates_folder() -> Path:
+    """Where the templates are: an explicit override, the repository's templates/, or package data.
+
+    With an editable install the package runs from src/trialcut, so the repository's
+    top-level templates/ is three levels above this file.  An installed wheel carries a
+    copy under trialcut/templates (package data).
+    """
+    candidates = []
+    if os.environ.get(TEMPLATES_ENVIRONMENT_VARIABLE):
+        candidates.append(Path(os.environ[TEMPLATES_ENVIRONMENT_VARIABLE]))
+    candidates.append(Path(__file__).resolve().parents[3] / "templates")
+    try:
+        candidates.append(Path(str(resources.files("trialcut") / "templates")))
+    except (ModuleNotFoundError, TypeError):  # pragma: no cover - namespace oddities
+        pass
+    for folder in candidates:
+        if (folder / "report.html.j2").is_file() and (folder / STYLESHEET).is_file():
+            return folder
+    raise ReportError("report templates not found", [Problem(
+        code="report.templates_missing", message="no folder holds report.html.j2 and report.css",
+        expected="templates/ beside src/ (editable install) or trialcut/templates (package data)",
+        got=", ".join(str(c) for c in candidates),
+        hint=f"set {TEMPLATES_ENVIRONMENT_VARIABLE} to the templates folder")])
+
+
+def _environment():
+    from jinja2 import Environment, FileSystemLoader, StrictUndefined, select_autoescape
+
+    environment = Environment(
+        loader=FileSystemLoader(str(templates_folder())),
+        autoescape=select_autoescape(enabled_extensions=("html", "j2"), default=True),
+        undefined=StrictUndefined, trim_blocks=True, lstrip_blocks=True, keep_trailing_newline=True,
+    )
+    environment.filters["data_uri"] = lambda data, mime: f"data:{mime};base64,{base64.b64encode(data).decode('ascii')}"
+    return environment
+
+
+def stylesheet_text() -> str:
+    return (templates_folder() / STYLESHEET).read_text(encoding="utf-8")
+
+
+def render_html(document: Document, template: str = "report.html.j2", **extra: Any) -> str:
+    environment = _environment()
+    return environment.get_template(template).render(document=document, stylesheet=stylesheet_text(), **extra)
+
+
+def html_to_pdf(html: str, target: Path) -> Path:
+    try:
+        from weasyprint import HTML
+    except ImportError as error:  # pragma: no cover - weasyprint is a dependency
+        raise ReportError("WeasyPrint is not installed", [Problem(code="report.pdf_engine_missing",
+                                                                  message=str(error))]) from error
+    HTML(string=html, base_url=str(target.parent)).write_pdf(target)
+    return target
+
+
+def write_outputs(document: Document, html: str, out_folder: Path, stem: str = "report") -> dict[str, Path]:
+    """The HTML, the PDF, every table as CSV and every figure as SVG; keys are relative paths."""
+    out_folder.mkdir(parents=True, exist_ok=True)
+    written: dict[str, Path] = {}
+    html_path = out_folder / f"{stem}.html"
+    html_path.write_text(html, encoding="utf-8")
+    written[f"{stem}.html"] = html_path
+    written[f"{stem}.pdf"] = html_to_pdf(html, out_folder / f"{stem}.pdf")
+    for table in document.tables:
+        path = write_table_csv(table, out_folder / "tables" / f"{table.slug}.csv")
+        written[f"tables/{path.name}"] = path
+    for figure in document.figures:
+        path = out_folder / "figures" / f"{figure.slug}.svg"
+        path.parent.mkdir(parents=True, exist_ok=True)
+        path.write_bytes(figure.svg)
+        written[f"figures/{path.name}"] = path
+    return written
+
+
+def render_documents(results: Mapping[str, Any], run_folder: Path, *,
+                     audit: Mapping[str, Any] | None = None) -> dict[str, Path]:
+    """Render ``results`` (and ``audit``) into ``run_folder``; returns {relative path: path}.
+
+    Keys: "report.html", "report.pdf", "tables/<name>.csv", "figures/<name>.svg".
+    """
+    document = build_document(results, audit)
+    html = render_html(document)
+    return write_outputs(document, html, Path(run_folder))
+
+
+def render_run(run_folder: Path, out: Path | None = None) -> dict[str, Path]:
+    """Re-render a past run from its results.json (and audit.json) alone, into ``out``.
+
+    The run folder is sealed by its checksum manifest, so nothing is written into it: ``out``
+    defaults to a new temporary folder (its path is under the "folder" key of the answer).
+    """
+    run_folder = Path(run_folder)
+    results = read_json(run_folder / "results.json", required=True)
+    audit = read_json(run_folder / "audit.json", required=False)
+    if out is None:
+        out = Path(tempfile.mkdtemp(prefix=f"trialcut-render-{run_folder.name}-"))
+    out = Path(out)
+    if out.resolve() == run_folder.resolve() or run_folder.resolve() in out.resolve().parents:
+        raise InputError("refusing to write into a sealed run folder", [Problem(
+            code="report.sealed_run_folder", message="the output folder is inside the run folder",
+            field="out", got=str(out), hint="choose a folder outside the run folder")])
+    written = render_documents(results, out, audit=audit)
+    written["folder"] = out
+    return written
+
+
+def read_json(path: Path, *, required: bool) -> dict[str, Any] | None:
+    if not path.is_file():
+        if not required:
+            return None
+        raise InputError(f"{path} not found", [Problem(
+            code="report.results_missing", message="the run folder has no results.json", file=str(path),
+            hint="pass the folder of a finished run")])
+    try:
+        return json.loads(path.read_text(encoding="utf-8"))
+    except json.JSONDecodeError as error:
+        raise InputError(f"{path} is not valid JSON", [Problem(
+            code="report.results_unreadable", message=error.msg, file=str(path), line=error.lineno,
+            column=error.colno)]) from error
