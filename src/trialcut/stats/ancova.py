@@ -208,9 +208,9 @@ def _fit_visit(rows, outcome, arm, arms, covariates, visit_level) -> _VisitFit:
     indicators = np.column_stack([(rows[arm] == a).to_numpy(float) for a in arms[1:]])
     covariate_block = _covariate_block(rows, covariates)
     design = np.column_stack([np.ones(len(rows)), indicators, covariate_block])
-    if len(rows) <= design.shape[1] or np.linalg.matrix_rank(design) < design.shape[1]:
-        _qr_solve(design, rows[outcome].to_numpy(float))  # raises the FitError with its reason
-    result = sm.OLS(rows[outcome].to_numpy(float), design).fit()
+    outcomes = rows[outcome].to_numpy(float)
+    _qr_solve(design, outcomes)  # refuses a rank-deficient design, which OLS's pinv would hide
+    result = sm.OLS(outcomes, design).fit()
     return _VisitFit(result, covariate_block.mean(axis=0), len(rows))
 
 
