@@ -156,6 +156,25 @@ def test_every_cross_reference_mistake_at_once(base_text, write_plan):
                                           line_of(text, "Week 13")]
 
 
+def test_a_shape_mistake_does_not_hide_cross_reference_mistakes(base_text, write_plan):
+    # The arms section fails its own check, yet the estimand's and the endpoint's broken
+    # references (which do not depend on the arms) are reported in the same pass.
+    text = replace_once(base_text, "reference: Placebo", "reference: Placbo")
+    text = replace_once(text, "population: full_analysis", "population: everyone")
+    text = replace_once(text, "primary_visit: Week 12", "primary_visit: Week 13")
+    problems, rendered = problems_of(write_plan(text))
+    assert [p.field for p in problems] == ["arms.reference", "estimands[primary].population",
+                                           "endpoints[fbs_change].primary_visit"], rendered
+
+
+def test_a_failed_item_is_not_taken_for_a_missing_declaration(base_text, write_plan):
+    # The population is declared but has a mistake of its own: the estimand that names it
+    # must not also be told the population is undeclared.
+    text = replace_once(base_text, "flag: FASFL", "flag: FASFL\n    colour: blue")
+    problems, rendered = problems_of(write_plan(text))
+    assert [p.field for p in problems] == ["populations[full_analysis].colour"], rendered
+
+
 # --------------------------------------------------------------------------- broken files
 def test_duplicate_keys_are_refused(base_text, write_plan):
     text = replace_once(base_text, "seed: 7", "seed: 7\nseed: 8")

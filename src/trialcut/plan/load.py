@@ -23,7 +23,14 @@ from yaml.nodes import MappingNode, Node, ScalarNode, SequenceNode
 
 from trialcut.errors import PlanError, Problem
 from trialcut.plan.canonical import canonical_hash
-from trialcut.plan.schema import ANALYSIS_METHODS, AnalysisPlan, RuleIssue, suggestion
+from trialcut.plan.schema import (
+    ANALYSIS_METHODS,
+    AnalysisPlan,
+    PlanSections,
+    RuleIssue,
+    cross_reference_issues,
+    suggestion,
+)
 
 PathKey = tuple[str | int, ...]
 
@@ -258,6 +265,10 @@ def _validate(data: Any, source: SourceMap, file: str) -> tuple[AnalysisPlan | N
     except ValidationError as error:
         errors = error.errors(include_url=False)
     problems = list(_problems(errors, data, source, file))
+    if not any(error["type"] == "plan_rule" and error["loc"] == () for error in errors):
+        # The plan-wide rules never ran; run those whose sections did validate.
+        problems += [_rule_problem(issue, (), data, source, file)
+                     for issue in cross_reference_issues(PlanSections.from_raw(data))]
     if not problems:    # never swallow an error, even one we have no wording for
         problems = [Problem(code="plan.invalid", message=str(errors[0].get("msg")), file=file)]
     return None, problems

@@ -12,10 +12,12 @@ engine dispatches on.
 from __future__ import annotations
 
 import difflib
-from dataclasses import dataclass
+import typing
+from dataclasses import dataclass, fields
+from functools import lru_cache
 from typing import Annotated, Any, Iterable, Iterator, Literal, Union
 
-from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
+from pydantic import BaseModel, ConfigDict, Field, TypeAdapter, ValidationError, field_validator, model_validator
 from pydantic_core import PydanticCustomError
 
 from trialcut.stats.names import (
@@ -420,7 +422,7 @@ class AnalysisPlan(Strict):
 
     @model_validator(mode="after")
     def _cross_references(self) -> "AnalysisPlan":
-        _raise_issues(_cross_reference_problems(self))
+        _raise_issues(cross_reference_issues(PlanSections.of_plan(self)))
         return self
 
     # Convenience lookups used downstream (read-only).
@@ -449,27 +451,111 @@ def _not_declared(path, what: str, name: str, known: Iterable[str], code: str) -
                      hint=suggestion(name, known), code=code)
 
 
-def _duplicates(section: str, ids: list[str], key: str = "id") -> Iterator[RuleIssue]:
-    for index, item_id in enumerate(ids):
-        if item_id in ids[:index]:
-            yield RuleIssue((section, index, key), f"id {item_id!r} is used twice",
-                            expected="a different id for every item", got=repr(item_id), code="plan.duplicate_id")
+def _present(items) -> Iterator[tuple[int, Any]]:
+    """(index, item) for the items that validated; a failed item is None and skipped."""
+    return ((index, item) for index, item in enumerate(items) if item is not None)
 
 
-def _cross_reference_problems(plan: AnalysisPlan) -> Iterator[RuleIssue]:
-    yield from _duplicates("populations", [p.id for p in plan.populations])
-    yield from _duplicates("intercurrent_events", [e.id for e in plan.intercurrent_events])
-    yield from _duplicates("estimands", [e.id for e in plan.estimands])
-    yield from _duplicates("endpoints", [e.id for e in plan.endpoints])
-    yield from _estimand_references(plan)
-    yield from _endpoint_references(plan)
-    yield from _multiplicity_references(plan)
+def _duplicates(section: str, items) -> Iterator[RuleIssue]:
+    seen: set[str] = set()
+    for index, item in _present(items):
+        if item.id in seen:
+            yield RuleIssue((section, index, "id"), f"id {item.id!r} is used twice",
+                            expected="a different id for every item", got=repr(item.id), code="plan.duplicate_id")
+        seen.add(item.id)
 
 
-def _estimand_references(plan: AnalysisPlan) -> Iterator[RuleIssue]:
+@dataclass(frozen=True)
+class PlanSections:
+    """The parts of a plan the cross-reference rules read.
+
+    Built from a whole valid plan, or (by the loader) from a plan that failed elsewhere:
+    then a section that failed is None and a list item that failed is None, and each rule
+    runs only on what it can judge without guessing, so a mistake in one section does not
+    hide the cross-reference mistakes of another.
+    """
+
+    arms: Arms | None = None
+    visits: Visits | None = None
+    populations: tuple[Population | None, ...] | None = None
+    intercurrent_events: tuple[IntercurrentEvent | None, ...] | None = None
+    estimands: tuple[Estimand | None, ...] | None = None
+    endpoints: tuple[Endpoint | None, ...] | None = None
+    multiplicity: Multiplicity | None = None
+
+    @classmethod
+    def of_plan(cls, plan: AnalysisPlan) -> "PlanSections":
+        return cls(**{f.name: getattr(plan, f.name) for f in fields(cls)})
+
+    @classmethod
+    def from_raw(cls, data: Any) -> "PlanSections":
+        if not isinstance(data, dict):
+            return cls()
+        return cls(**{f.name: _lenient_section(f.name, data) for f in fields(cls)})
+
+    @property
+    def visit_labels(self) -> tuple[str, ...]:
+        return tuple(v.label for v in self.visits.schedule)
+
+    @property
+    def arm_codes(self) -> tuple[str, ...]:
+        return tuple(a.code for a in self.arms.list)
+
+
+@lru_cache(maxsize=None)
+def _section_adapter(name: str) -> TypeAdapter:
+    return TypeAdapter(AnalysisPlan.model_fields[name].annotation)
+
+
+def _lenient_section(name: str, data: dict[str, Any]) -> Any:
+    field_info = AnalysisPlan.model_fields[name]
+    if name not in data:
+        return None if field_info.is_required() else field_info.get_default(call_default_factory=True)
+    try:
+        return _section_adapter(name).validate_python(data[name])
+    except ValidationError:
+        pass
+    item_type = typing.get_args(field_info.annotation)
+    if not isinstance(data[name], list) or not item_type:
+        return None
+    return tuple(_valid_or_none(item_type[0], item) for item in data[name])
+
+
+def _valid_or_none(model: type[BaseModel], item: Any) -> BaseModel | None:
+    try:
+        return model.model_validate(item)
+    except ValidationError:
+        return None
+
+
+def _complete(section: Any) -> bool:
+    return section is not None and not (isinstance(section, tuple) and None in section)
+
+
+# (sections every item of which must have validated, sections that must merely exist, rule)
+_RULES = (
+    ((), ("populations",), lambda plan: _duplicates("populations", plan.populations)),
+    ((), ("intercurrent_events",), lambda plan: _duplicates("intercurrent_events", plan.intercurrent_events)),
+    ((), ("estimands",), lambda plan: _duplicates("estimands", plan.estimands)),
+    ((), ("endpoints",), lambda plan: _duplicates("endpoints", plan.endpoints)),
+    (("populations", "intercurrent_events"), ("estimands",), lambda plan: _estimand_references(plan)),
+    (("visits", "populations", "estimands"), ("endpoints",), lambda plan: _endpoint_references(plan)),
+    (("arms", "visits", "endpoints", "multiplicity"), (), lambda plan: _multiplicity_references(plan)),
+)
+
+
+def cross_reference_issues(sections: PlanSections) -> Iterator[RuleIssue]:
+    """Every broken reference between sections (paths relative to the plan)."""
+    for complete, present, rule in _RULES:
+        if all(_complete(getattr(sections, name)) for name in complete) and all(
+                getattr(sections, name) is not None for name in present):
+            yield from rule(sections)
+
+
+def _estimand_references(plan: PlanSections) -> Iterator[RuleIssue]:
     populations = [p.id for p in plan.populations]
     events = [e.id for e in plan.intercurrent_events]
-    for index, estimand in enumerate(plan.estimands):
+    for index, estimand in _present(plan.estimands):
         if estimand.population not in populations:
             yield _not_declared(("estimands", index, "population"), "population", estimand.population,
                                 populations, "plan.unknown_population")
@@ -479,16 +565,16 @@ def _estimand_references(plan: AnalysisPlan) -> Iterator[RuleIssue]:
                                     "intercurrent event", handling.event, events, "plan.unknown_event")
 
 
-def _analysis_paths(plan: AnalysisPlan) -> Iterator[tuple[tuple[str | int, ...], Any]]:
-    for index, endpoint in enumerate(plan.endpoints):
+def _analysis_paths(plan: PlanSections) -> Iterator[tuple[tuple[str | int, ...], Any]]:
+    for index, endpoint in _present(plan.endpoints):
         yield ("endpoints", index, "analyses", "primary"), endpoint.analyses.primary
         for position, analysis in enumerate(endpoint.analyses.sensitivity):
             yield ("endpoints", index, "analyses", "sensitivity", position), analysis
 
 
-def _endpoint_references(plan: AnalysisPlan) -> Iterator[RuleIssue]:
+def _endpoint_references(plan: PlanSections) -> Iterator[RuleIssue]:
     visits = list(plan.visit_labels)
-    for index, endpoint in enumerate(plan.endpoints):
+    for index, endpoint in _present(plan.endpoints):
         if endpoint.primary_visit not in visits:
             yield RuleIssue(("endpoints", index, "primary_visit"),
                             f"primary visit {endpoint.primary_visit!r} is not a scheduled visit",
@@ -504,7 +590,7 @@ def _endpoint_references(plan: AnalysisPlan) -> Iterator[RuleIssue]:
         yield from _analysis_references(plan, path, analysis)
 
 
-def _analysis_references(plan: AnalysisPlan, path, analysis) -> Iterator[RuleIssue]:
+def _analysis_references(plan: PlanSections, path, analysis) -> Iterator[RuleIssue]:
     populations = [p.id for p in plan.populations]
     estimands = [e.id for e in plan.estimands]
     visits = list(plan.visit_labels)
@@ -527,18 +613,18 @@ def _analysis_references(plan: AnalysisPlan, path, analysis) -> Iterator[RuleIss
         yield from _delta_references(plan, path, analysis.options)
 
 
-def _delta_references(plan: AnalysisPlan, path, options: ImputationOptions) -> Iterator[RuleIssue]:
+def _delta_references(plan: PlanSections, path, options: ImputationOptions) -> Iterator[RuleIssue]:
     visits = plan.visit_labels
     if options.delta is not None and len(options.delta) != len(visits):
         yield RuleIssue(path + ("options", "delta"), "delta needs one value per scheduled visit",
                         expected=f"{len(visits)} values", got=f"{len(options.delta)}", code="plan.delta_length")
-    for position, arm in enumerate(options.delta_arms):
+    for position, arm in enumerate(options.delta_arms if plan.arms is not None else ()):
         if arm not in plan.arm_codes:
             yield _not_declared(path + ("options", "delta_arms", position), "arm", arm, plan.arm_codes,
                                 "plan.unknown_arm")
 
 
-def _multiplicity_references(plan: AnalysisPlan) -> Iterator[RuleIssue]:
+def _multiplicity_references(plan: PlanSections) -> Iterator[RuleIssue]:
     analyses = [analysis.id for _, analysis in _analysis_paths(plan)]
     active_arms = [code for code in plan.arm_codes if code != plan.arms.reference]
     hypotheses = plan.multiplicity.hypotheses
