@@ -254,15 +254,28 @@ def _check_types(state: _State) -> None:
 
 def _to_numbers(values: pd.Series, typed: bool) -> tuple[pd.Series, pd.Series]:
     if typed:
-        if pd.api.types.is_bool_dtype(values) or not pd.api.types.is_numeric_dtype(values):
-            if values.isna().all():
-                return pd.Series(np.nan, index=values.index, dtype=float), pd.Series(False, index=values.index)
+        if pd.api.types.is_bool_dtype(values):
             return values, values.notna()
-        return values.astype(float), pd.Series(False, index=values.index)
+        if pd.api.types.is_numeric_dtype(values):
+            return values.astype(float), pd.Series(False, index=values.index)
+        # A typed file's text column is wrong for a number, even if its text would parse.
+        is_number = values.map(_is_number_or_missing).astype(bool)
+        numbers = values.where(is_number).map(_float_or_nan).astype(float)
+        return numbers, ~is_number
     text = values.map(lambda v: None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v).strip())
     blank = text.isna() | text.isin(MISSING_TEXT)
     numbers = pd.to_numeric(text.where(~blank), errors="coerce").astype(float)
     return numbers, numbers.isna() & ~blank
+
+
+def _is_number_or_missing(value: Any) -> bool:
+    if value is None or value is pd.NA:
+        return True
+    return isinstance(value, (int, float, np.integer, np.floating)) and not isinstance(value, (bool, np.bool_))
+
+
+def _float_or_nan(value: Any) -> float:
+    return np.nan if value is None or value is pd.NA else float(value)
 
 
 def _clean_text(value: Any) -> Any:

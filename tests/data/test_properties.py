@@ -1,0 +1,81 @@
+"""Property: whatever is done to a valid cut (columns dropped or renamed, cells replaced by
+text, NaN, infinity or absurd numbers, rows repeated or shuffled, everything turned into
+text), prepare_cut either succeeds or raises DataError, never any other exception; and a cut
+it accepts can always produce its analysis data and tables.  (Common practice for input
+validation: bad input must surface as a reported input error, not a crash.)"""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from trialcut.data.prepare import prepare_cut
+from trialcut.data.readers import raw_from_frame
+from trialcut.errors import DataError
+
+from .conftest import frame_of, make_plan, participant
+
+PLAN = make_plan()
+BASE = frame_of(participant("S1", "Placebo", 30, 28, 25, disc=20),
+                participant("S2", "Active", 40, 35, None, resc=14, pp="N"),
+                participant("S3", "Active", 33, 30, 29, stratum="Severe")).astype(object)
+COLUMNS = list(BASE.columns)
+ODD_VALUES = ["x", "", " ", np.nan, None, np.inf, -np.inf, 1e308, -5.0, 0, True, "Y", "Week 2",
+              "Baseline", "Placebo", 15.0, "1,5", "inf", "nan", "\u00e9"]
+
+mutation = st.one_of(
+    st.tuples(st.just("drop"), st.sampled_from(COLUMNS)),
+    st.tuples(st.just("set"), st.integers(0, 100), st.sampled_from(COLUMNS), st.sampled_from(ODD_VALUES)),
+    st.tuples(st.just("repeat"), st.integers(0, 100)),
+    st.tuples(st.just("shuffle"), st.integers(0, 2**16)),
+    st.tuples(st.just("rename"), st.sampled_from(COLUMNS)),
+    st.tuples(st.just("remove"), st.integers(0, 100)),
+)
+
+
+def _apply(frame: pd.DataFrame, change) -> pd.DataFrame:
+    kind = change[0]
+    if len(frame) == 0:
+        return frame
+    if kind == "drop" and change[1] in frame.columns:
+        return frame.drop(columns=change[1])
+    if kind == "set" and change[2] in frame.columns:
+        frame = frame.copy()
+        frame.iat[change[1] % len(frame), frame.columns.get_loc(change[2])] = change[3]
+        return frame
+    if kind == "repeat":
+        return pd.concat([frame, frame.iloc[[change[1] % len(frame)]]], ignore_index=True)
+    if kind == "shuffle":
+        return frame.sample(frac=1, random_state=change[1]).reset_index(drop=True)
+    if kind == "rename" and change[1] in frame.columns:
+        return frame.rename(columns={change[1]: change[1].lower()})
+    if kind == "remove":
+        return frame.drop(index=frame.index[change[1] % len(frame)]).reset_index(drop=True)
+    return frame
+
+
+def _exercise(frame: pd.DataFrame, typed: bool) -> None:
+    try:
+        cut = prepare_cut(PLAN, raw_from_frame(frame, typed=typed), dummy_arms_seed=3)
+    except DataError as error:
+        assert error.problems and error.render()
+        return
+    for estimand in ("policy", "hypo", "comp"):
+        data = cut.analysis_data("score", estimand)
+        assert len(data.frame) == len(cut.subjects[cut.subjects["FASFL"] == "Y"]) * 2
+    cut.disposition()
+    cut.population_counts()
+    cut.conformance.to_frame()
+
+
+@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(st.lists(mutation, min_size=1, max_size=4), st.booleans())
+def test_prepare_cut_raises_only_data_errors(changes, as_text):
+    frame = BASE
+    for change in changes:
+        frame = _apply(frame, change)
+    if as_text:
+        # What a CSV reader hands over: every cell text, missing as NaN.
+        frame = frame.map(lambda v: v if v is None or (isinstance(v, float) and np.isnan(v)) else str(v))
+    _exercise(frame, typed=not as_text)
