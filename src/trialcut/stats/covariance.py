@@ -24,12 +24,18 @@ Two families:
     times t of the visits; one shared variance.
 
 Each structure gives Sigma, the first derivatives dSigma/dtheta_r and the second derivatives
-d2Sigma/dtheta_r dtheta_s analytically.  Note for inference: none of these parametrisations is
-linear in theta, so d2Sigma is not zero and the Kenward-Roger adjusted covariance of the fixed
-effects (which carries a term in d2Sigma, and the expected information of theta) depends on the
-parametrisation chosen here; the "linear" variant that drops that term depends on it too through
-the information matrix.  Estimates, likelihoods and the Satterthwaite degrees of freedom do not
-depend on the parametrisation.
+d2Sigma/dtheta_r dtheta_s analytically.
+
+Note for inference.  None of the optimisation parametrisations above is linear in theta, and the
+Kenward-Roger adjusted covariance of the fixed effects (its R_ij term in d2Sigma, and the expected
+information of theta) depends on the parametrisation when Sigma is not linear in it.  Estimates,
+likelihoods and the Satterthwaite degrees of freedom do not.  So that Kenward-Roger does not depend
+on our optimisation choices where it need not, ``unstructured``, ``compound_symmetry`` and
+``toeplitz`` also expose ``linear_entries``: the positions (j, k) of Sigma whose values psi are a
+linear parametrisation (Sigma = sum_a psi_a G_a).  The engine computes Kenward-Roger in psi, where
+d2Sigma = 0 and both Kenward-Roger variants coincide (the usual results: with complete balanced
+data they reproduce the exact tests).  For the other structures Sigma is not linear in any of the
+usual parametrisations and Kenward-Roger is computed in the theta documented here, R_ij included.
 
 Adding a structure: write a class with the :class:`CovarianceStructure` members below and add it
 to :data:`STRUCTURES` (whose keys must equal ``trialcut.stats.names.COVARIANCE_STRUCTURES``).
@@ -61,6 +67,9 @@ class CovarianceStructure(Protocol):
     def derivatives(self, theta: np.ndarray, order: int = 1) -> tuple[np.ndarray, ...]:
         """(Sigma, dSigma) with dSigma of shape (q, k, k); with order=2 also d2Sigma (q, q, k, k)."""
 
+    linear_entries: list[tuple[int, int]] | None
+    """Entries (j, k) of Sigma that parametrise it linearly (one per parameter), or None."""
+
     def identifiability_problem(self, pair_counts: np.ndarray) -> str | None:
         """Why theta cannot be estimated from this missingness (None when it can).
 
@@ -79,6 +88,7 @@ class Unstructured:
         self.n_parameters = n_visits * (n_visits + 1) // 2
         self._rows, self._cols = np.tril_indices(n_visits)
         self._diagonal = self._rows == self._cols
+        self.linear_entries = list(zip(self._rows, self._cols))     # every variance and covariance
 
     def parameter_names(self, visit_labels):
         return [f"log_cholesky_diagonal[{visit_labels[j]}]" if j == k
@@ -347,6 +357,9 @@ class ScaledCorrelation:
         self.loading = np.eye(n_visits) if heterogeneous else np.ones((n_visits, 1))
         self.n_scale = self.loading.shape[1]
         self.n_parameters = self.n_scale + correlation.n_parameters
+        # Homogeneous equicorrelation and Toeplitz are linear in (variance, lag covariances).
+        linear = not heterogeneous and isinstance(correlation, (_EquicorrelationCorrelation, _ToeplitzCorrelation))
+        self.linear_entries = [(0, d) for d in range(self.n_parameters)] if linear else None
 
     def parameter_names(self, visit_labels):
         scale = ([f"log_sd[{label}]" for label in visit_labels] if self.heterogeneous else ["log_sd"])

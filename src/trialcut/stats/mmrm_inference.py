@@ -8,6 +8,11 @@ W = the inverse of the *expected* information of theta (REML: 1/2 tr(P V_i P V_j
 
 Degrees-of-freedom methods (``df=``):
 
+The derivatives dSigma/dtheta and W are taken in the parametrisation described in
+:mod:`trialcut.stats.covariance`: for structures linear in their variances and covariances
+(unstructured, compound symmetry, Toeplitz) in those entries psi (W_psi = J W_theta J',
+J = dpsi/dtheta, and d2Sigma/dpsi2 = 0), otherwise in the optimisation parameters theta.
+
 * ``kenward_roger``: variance Phi_A = Phi + 2 Phi {sum_ij W_ij (Q_ij - P_i Phi P_j - R_ij / 4)} Phi;
   a contrast L of rank l is tested with the scaled F, lambda * F ~ F(l, m), with lambda and m from
   the paper's moment matching (for l = 1 this is a t test on Phi_A with m = 2 (L Phi_A L')^2 / g'Wg).
@@ -42,8 +47,14 @@ class Inference:
         self.robust = robust
         self.beta = evaluation.beta
         self.phi = evaluation.xvx_inverse
-        self.weights = np.linalg.inv(evaluation.information)                  # W
-        self.psi = self.phi @ evaluation.q_matrices @ self.phi                # -dPhi/dtheta_i ... sign immaterial
+        self.weights_theta = np.linalg.inv(evaluation.information)            # W in theta
+        jacobians = _jacobians(likelihood, evaluation.theta)                  # dpsi/dtheta per group
+        to_psi = _block_diagonal([np.linalg.inv(j) for j in jacobians])       # dtheta/dpsi
+        self.linear = [s.linear_entries is not None for s in likelihood.structures]
+        self.weights = _block_diagonal(jacobians) @ self.weights_theta @ _block_diagonal(jacobians).T
+        self.q_matrices = np.einsum("rab,rs->sab", evaluation.q_matrices, to_psi)
+        self.to_psi = [np.linalg.inv(j) for j in jacobians]
+        self.psi = self.phi @ self.q_matrices @ self.phi                      # Phi P_i Phi up to sign
         self.notes: list[str] = []
         self.adjusted = self.phi
         if df_method.startswith("kenward_roger"):
@@ -68,11 +79,12 @@ class Inference:
         for pattern, terms in zip(likelihood.patterns, evaluation.terms):
             block = slice(likelihood.offsets[pattern.group], likelihood.offsets[pattern.group + 1])
             w = self.weights[block, block]
-            inner = np.einsum("ij,iab,jbc->ac", w, terms.m_d, terms.m_d) @ terms.inverse     # sum W_ij M D_i M D_j M
-            if include_second:
+            m_d = np.einsum("rjk,ra->ajk", terms.m_d, self.to_psi[pattern.group])
+            inner = np.einsum("ij,iab,jbc->ac", w, m_d, m_d) @ terms.inverse     # sum W_ij M D_i M D_j M
+            if include_second and not self.linear[pattern.group]:
                 inner -= 0.25 * terms.inverse @ np.einsum("ij,ijab->ab", w, terms.d2) @ terms.inverse
             total += np.tensordot(inner, pattern.t_xx, axes=([0, 1], [0, 1]))
-        q_mats = evaluation.q_matrices
+        q_mats = self.q_matrices
         total -= np.einsum("ij,iab,bc,jcd->ad", self.weights, q_mats, self.phi, q_mats, optimize=True)
         lam = self.phi @ total @ self.phi
         return 0.5 * (lam + lam.T)
@@ -160,6 +172,24 @@ class Inference:
         self.notes.append(f"Satterthwaite F test of {l} df: the one-df values ({np.round(nu, 2).tolist()}) give no "
                           "valid denominator df; the smallest of them was used instead")
         return float(np.min(nu))
+
+
+def _jacobians(likelihood: Likelihood, theta: np.ndarray) -> list[np.ndarray]:
+    """Per group, dpsi/dtheta: psi the linear entries of Sigma, or theta itself."""
+    jacobians = []
+    for structure, part in zip(likelihood.structures, likelihood.slices(theta)):
+        if structure.linear_entries is None:
+            jacobians.append(np.eye(structure.n_parameters))
+            continue
+        first = structure.derivatives(part, order=1)[1]
+        rows, cols = zip(*structure.linear_entries)
+        jacobians.append(first[:, list(rows), list(cols)].T)
+    return jacobians
+
+
+def _block_diagonal(blocks: list[np.ndarray]) -> np.ndarray:
+    from scipy.linalg import block_diag
+    return block_diag(*blocks)
 
 
 def _sandwich(likelihood: Likelihood, evaluation: Evaluation) -> np.ndarray:
