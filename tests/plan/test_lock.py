@@ -65,7 +65,8 @@ def test_lock_writes_a_record_beside_the_plan(base_text, write_plan):
     record = lock_plan(loaded, by="A. Statistician", reason="final before unblinding", now=NOON)
     assert lock_file_for(path) == path.with_name("plan.yaml.lock.json")
     stored = json.loads(lock_file_for(path).read_text(encoding="utf-8"))
-    assert stored["records"] == [record.to_dict()]
+    assert stored["records"] == [record.to_dict(include_plan=True)]
+    assert "plan" not in record.to_dict() and stored["records"][0]["plan"] == loaded.plan.model_dump(mode="json")
     assert (record.plan_sha256, record.locked_utc, record.by, record.previous, record.tool_version,
             record.plan_file) == (loaded.canonical_hash, "2026-11-30T12:00:00Z", "A. Statistician", None,
                                   trialcut.__version__, "plan.yaml")
@@ -98,7 +99,13 @@ def test_amendments_form_a_chain(base_text, write_plan):
     assert chain == (first, second, third)
     assert [r.previous for r in chain] == [None, first.record_sha256, second.record_sha256]
     assert len({r.record_sha256 for r in chain}) == 3
-    assert check_lock(load_plan(path)).record == third
+    status = check_lock(load_plan(path))
+    assert status.record == third
+    summary = status.summary()
+    assert (summary["sha256"], summary["locked_by"], summary["reason"]) == (third.plan_sha256, "C", "amendment 2")
+    assert [a["reason"] for a in summary["amendments"]] == ["first", "amendment 1: new seed", "amendment 2"]
+    assert [a["version"] for a in summary["amendments"]] == ["1.0"] * 3
+    json.dumps(summary)     # results are plain JSON
 
 
 def test_an_edited_plan_names_the_changed_fields_and_the_remedy(base_text, write_plan):
@@ -200,3 +207,10 @@ def test_an_invalid_lock_file_names_the_field(base_text, write_plan, text, field
         assert problems[0].line == 1 and problems[0].column is not None
     else:
         assert field in {p.field for p in problems}
+
+
+def test_a_rehearsal_claims_no_lock():
+    from trialcut.plan.lock import LockStatus
+
+    status = LockStatus.unlocked()
+    assert (status.locked, status.record, status.chain, status.summary()) == (False, None, (), None)

@@ -27,7 +27,7 @@ LOCK_SUFFIX = ".lock.json"
 MAX_CHANGES_SHOWN = 20
 
 _RECORD_TYPES: dict[str, tuple[type, ...]] = {
-    "plan_file": (str,), "plan_sha256": (str,), "locked_utc": (str,), "by": (str,), "reason": (str,),
+    "plan_file": (str,), "plan_version": (str,), "plan_sha256": (str,), "locked_utc": (str,), "by": (str,), "reason": (str,),
     "tool_version": (str,), "previous": (str, type(None)), "plan": (dict,), "record_sha256": (str,),
 }
 
@@ -35,6 +35,7 @@ _RECORD_TYPES: dict[str, tuple[type, ...]] = {
 @dataclass(frozen=True)
 class LockRecord:
     plan_file: str          # the plan's file name when it was locked
+    plan_version: str       # the plan's own version label (plan.version), e.g. "1.0"
     plan_sha256: str        # hash of the canonical plan (trialcut.plan.canonical)
     locked_utc: str         # ISO 8601, UTC, e.g. 2026-12-01T09:30:00Z
     by: str
@@ -44,7 +45,10 @@ class LockRecord:
     plan: dict[str, Any]    # the canonical content itself, to explain later changes
     record_sha256: str      # hash of every field above
 
-    def to_dict(self, include_plan: bool = True) -> dict[str, Any]:
+    def to_dict(self, include_plan: bool = False) -> dict[str, Any]:
+        """Plain data; the stored plan is left out unless asked for, because a run's
+        results already carry the current canonical plan and one copy per amendment
+        would swell every results file."""
         data = asdict(self)
         if not include_plan:
             del data["plan"]
@@ -61,6 +65,21 @@ class LockStatus:
     def unlocked(cls) -> "LockStatus":
         """For a rehearsal run (``--unlocked``): no lock is claimed."""
         return cls(locked=False, record=None, chain=())
+
+    def summary(self) -> dict[str, Any] | None:
+        """The lock as a run's results carry it (``plan.lock``): the latest record and
+        the history of every lock, oldest first; None when the run is not locked."""
+        if not self.locked or self.record is None:
+            return None
+        latest = self.record
+        return {
+            "sha256": latest.plan_sha256, "record_sha256": latest.record_sha256, "plan_version": latest.plan_version,
+            "locked_by": latest.by, "locked_utc": latest.locked_utc, "reason": latest.reason,
+            "tool_version": latest.tool_version,
+            "amendments": [{"version": r.plan_version, "sha256": r.plan_sha256, "locked_utc": r.locked_utc,
+                            "by": r.by, "reason": r.reason, "record_sha256": r.record_sha256,
+                            "previous": r.previous} for r in self.chain],
+        }
 
 
 def lock_file_for(plan_path: str | Path) -> Path:
@@ -88,6 +107,7 @@ def lock_plan(loaded: LoadedPlan, by: str, reason: str, now: datetime | None = N
                      hint="edit the plan first; a lock records a change of meaning, not a repeat")])
     fields = {
         "plan_file": loaded.path.name,
+        "plan_version": loaded.plan.version,
         "plan_sha256": loaded.canonical_hash,
         "locked_utc": _utc_text(now),
         "by": by.strip(),
@@ -119,7 +139,7 @@ def _utc_text(now: datetime | None) -> str:
 
 def _write_chain(lock_file: Path, chain: tuple[LockRecord, ...]) -> None:
     # Written to a sibling and renamed, so a crash never leaves half a lock file.
-    content = {"format": LOCK_FORMAT, "records": [record.to_dict() for record in chain]}
+    content = {"format": LOCK_FORMAT, "records": [record.to_dict(include_plan=True) for record in chain]}
     text = json.dumps(content, indent=2, ensure_ascii=False, sort_keys=False) + "\n"
     handle, temporary = tempfile.mkstemp(dir=lock_file.parent, prefix=lock_file.name, suffix=".tmp")
     try:
