@@ -47,7 +47,6 @@ import numpy as np
 import pandas as pd
 
 from trialcut.errors import ModelSpecificationError, Problem
-from trialcut.stats.ancova import ancova_difference
 from trialcut.stats.names import IMPUTATION_ASSUMPTIONS
 from trialcut.stats.pooling import PooledEstimate, rubin_pool
 
@@ -519,27 +518,60 @@ def run_chain(task: ChainTask) -> ChainOutput:
     y, parameters = sampler.start()
     shifts = np.stack([shift_matrix(task.data, s, task.cumulative) for s in task.scenarios])
     steps = imputation_steps(task.data, task.assumption)
-    estimates, variances, traces, df = [], [], [], 0
+    core = AncovaCore(task.data.arm_index, task.data.covariates, len(task.data.arms))
+    estimates, variances, traces = [], [], []
     for position, seed in enumerate(task.seeds):
         rng = np.random.default_rng(seed)
         for _ in range(task.burn_in + task.thinning if position == 0 else task.thinning):
             parameters = sampler.step(y, parameters, rng)
         completed = draw_completed(task.data, parameters, task.assumption, rng, steps)
-        estimate, variance, df = _analyse(task.data, completed, shifts)
+        estimate, variance = _analyse(core, completed, shifts)
         estimates.append(estimate)
         variances.append(variance)
         traces.append(_trace(parameters, task.covariance_by_arm))
-    return ChainOutput(np.stack(estimates), np.stack(variances), df, np.stack(traces))
+    return ChainOutput(np.stack(estimates), np.stack(variances), core.df, np.stack(traces))
 
 
-def _analyse(data: ImputationData, completed: np.ndarray, shifts: np.ndarray):
-    """ANCOVA at every visit of every shifted data set, one QR for all of them."""
+class AncovaCore:
+    """Least squares of many outcome columns on one design: intercept, one indicator per
+    non-reference arm, covariates (Snedecor & Cochran's analysis of covariance, fitted per
+    visit).  The QR factors are made once per chain because the design never changes.
+    Kept here rather than reusing the per-visit ANCOVA module so that worker processes do
+    not import statsmodels; tests check it against statsmodels OLS."""
+
+    def __init__(self, arm_index: np.ndarray, covariates: np.ndarray, n_arms: int):
+        n = arm_index.size
+        indicators = (arm_index[:, None] == np.arange(1, n_arms)[None, :]).astype(float)
+        design = np.column_stack([np.ones(n), indicators, covariates])
+        q, r = np.linalg.qr(design)
+        diagonal = np.abs(np.diag(r))
+        if n <= design.shape[1] or diagonal.min() <= 1e-10 * max(diagonal.max(), 1.0):
+            raise ModelSpecificationError("the analysis model cannot be estimated", [
+                Problem(code="stats.ancova_rank", message="the analysis design is rank deficient or saturated",
+                        expected=f"more than {design.shape[1]} participants and independent columns",
+                        got=f"{n} participants")])
+        r_inverse = np.linalg.solve(r, np.eye(design.shape[1]))
+        self.design = design
+        self.solver = r_inverse @ q.T                       # β̂ = R⁻¹Qᵀy
+        self.arm_unscaled = np.diag(r_inverse @ r_inverse.T)[1:n_arms]
+        self.df = n - design.shape[1]
+        self.n_arms = n_arms
+
+    def fit(self, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """(K − 1, m) arm-minus-reference estimates and their variances s²[(XᵀX)⁻¹]ₖₖ."""
+        coefficients = self.solver @ y
+        residuals = y - self.design @ coefficients
+        residual_variance = np.sum(residuals**2, axis=0) / self.df
+        return coefficients[1:self.n_arms], np.outer(self.arm_unscaled, residual_variance)
+
+
+def _analyse(core: AncovaCore, completed: np.ndarray, shifts: np.ndarray):
+    """ANCOVA at every visit of every shifted data set in one product."""
     n_scenarios, n, t = shifts.shape
     outcomes = (completed[None] + shifts).transpose(1, 0, 2).reshape(n, n_scenarios * t)
-    fit = ancova_difference(outcomes, data.arm_index, data.covariates, n_arms=len(data.arms))
-    estimate = fit.estimate.reshape(-1, n_scenarios, t).transpose(1, 0, 2)
-    std_error = fit.std_error.reshape(-1, n_scenarios, t).transpose(1, 0, 2)
-    return estimate, std_error**2, fit.df
+    estimate, variance = core.fit(outcomes)
+    return (estimate.reshape(-1, n_scenarios, t).transpose(1, 0, 2),
+            variance.reshape(-1, n_scenarios, t).transpose(1, 0, 2))
 
 
 def _trace(parameters: ModelParameters, by_arm: bool) -> np.ndarray:

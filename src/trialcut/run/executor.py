@@ -1,0 +1,122 @@
+"""Executors: where the batches of an analysis run (this process, a process pool, Dask).
+
+Each implements the protocol of :mod:`trialcut.run.context` — ``map(function, items) ->
+list`` in input order — and may report progress with ``map(..., progress=callback)``
+(callback(done, total)), which they announce with ``reports_progress = True``.  The
+function and items must pickle (module-level functions, plain data).  Executors that
+start workers start them on first use and stop them in ``close()`` (or on leaving a
+``with`` block); results never depend on the executor, only on the work items.
+"""
+from __future__ import annotations
+
+import concurrent.futures
+import multiprocessing
+from typing import Any, Callable, Sequence
+
+from trialcut.errors import InputError, Problem
+from trialcut.run.context import InlineExecutor
+
+__all__ = ["InlineExecutor", "ProcessPoolExecutor", "DaskExecutor", "make_executor"]
+
+Progress = Callable[[int, int], None]
+
+
+class _Closing:
+    reports_progress = True
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc_info) -> None:
+        self.close()
+
+    def close(self) -> None:  # pragma: no cover - overridden
+        raise NotImplementedError
+
+
+class ProcessPoolExecutor(_Closing):
+    """A pool of ``workers`` processes started with 'spawn' (safe on every platform and
+    with threads in the parent); the pool lives until ``close()``."""
+
+    def __init__(self, workers: int = 2):
+        if int(workers) != workers or workers < 1:
+            raise InputError("a process pool needs at least one worker", [
+                Problem(code="run.workers", message="worker count out of range", expected="an integer ≥ 1",
+                        got=str(workers))])
+        self.workers = int(workers)
+        self._pool: concurrent.futures.ProcessPoolExecutor | None = None
+
+    def _ensure(self) -> concurrent.futures.ProcessPoolExecutor:
+        if self._pool is None:
+            self._pool = concurrent.futures.ProcessPoolExecutor(
+                max_workers=self.workers, mp_context=multiprocessing.get_context("spawn"))
+        return self._pool
+
+    def map(self, function: Callable[[Any], Any], items: Sequence[Any], progress: Progress | None = None) -> list:
+        pool = self._ensure()
+        futures = [pool.submit(function, item) for item in items]
+        return _collect(futures, concurrent.futures.as_completed, progress)
+
+    def close(self) -> None:
+        if self._pool is not None:
+            self._pool.shutdown(wait=True, cancel_futures=True)
+            self._pool = None
+
+
+class DaskExecutor(_Closing):
+    """Work on a Dask cluster: the scheduler at ``address``, or a local cluster of two
+    single-threaded worker processes on 127.0.0.1 (no dashboard) that ``close()`` stops."""
+
+    def __init__(self, address: str | None = None, n_workers: int = 2):
+        self.address = address
+        self.n_workers = n_workers
+        self._client = None
+        self._cluster = None
+
+    def _ensure(self):
+        if self._client is None:
+            from dask.distributed import Client, LocalCluster   # optional dependency
+
+            if self.address is None:
+                self._cluster = LocalCluster(n_workers=self.n_workers, threads_per_worker=1, processes=True,
+                                             dashboard_address=None, host="127.0.0.1")
+                self._client = Client(self._cluster)
+            else:
+                self._client = Client(self.address)
+        return self._client
+
+    def map(self, function: Callable[[Any], Any], items: Sequence[Any], progress: Progress | None = None) -> list:
+        client = self._ensure()
+        futures = client.map(function, list(items), pure=False)
+        from dask.distributed import as_completed
+
+        return _collect(futures, as_completed, progress)
+
+    def close(self) -> None:
+        if self._client is not None:
+            self._client.close()
+            self._client = None
+        if self._cluster is not None:
+            self._cluster.close()
+            self._cluster = None
+
+
+def _collect(futures: list, as_completed, progress: Progress | None) -> list:
+    """Results in submission order; progress counted as futures finish (any order)."""
+    total = len(futures)
+    if progress is not None:
+        for done, _ in enumerate(as_completed(futures), start=1):
+            progress(done, total)
+    return [future.result() for future in futures]
+
+
+def make_executor(kind: str = "inline", workers: int = 2, address: str | None = None):
+    """An executor by name: 'inline', 'processes' or 'dask'."""
+    if kind == "inline":
+        return InlineExecutor()
+    if kind == "processes":
+        return ProcessPoolExecutor(workers)
+    if kind == "dask":
+        return DaskExecutor(address, n_workers=workers)
+    raise InputError("unknown executor", [Problem(code="run.executor", message="no such executor",
+                                                  expected="inline, processes or dask", got=repr(kind))])
