@@ -167,3 +167,23 @@ def test_csv_numbers_are_parsed_and_sas_missing_dot_is_missing(plan):
     cut = prepare_cut(plan, raw(frame, typed=False))
     data = cut.analysis_data("score", "policy").frame
     assert data["CHG"].isna().sum() == 1 and data["CHG"].dtype == float
+
+
+def test_events_without_any_day_to_place_visits_are_a_warning():
+    schedule = [{"label": "Week 2", "order": 1}, {"label": "Week 4", "order": 2}]
+    plan = make_plan(visits={"windowing": False, "schedule": schedule})
+    cut = prepare_cut(plan, raw(_good().drop(columns="ADY")))
+    (check,) = [c for c in cut.conformance.checks if c.id == "event_timing"]
+    assert check.failed and check.count == 2 and "Week 2, Week 4" in check.description
+
+
+def test_report_and_cut_serialise_to_json(plan):
+    import json
+
+    cut = prepare_cut(plan, raw(appended(_good(), record("S1", "Placebo", "Unscheduled", 45, 20))))
+    text = json.dumps(cut.to_dict(), allow_nan=False)
+    back = json.loads(text)
+    assert back["data"]["participants"] == 2
+    assert [c["id"] for c in back["conformance"]["checks"]] == [c.id for c in cut.conformance.checks]
+    (window,) = [c for c in back["conformance"]["checks"] if c["id"] == "visit_windows"]
+    assert window["rows"][0]["value"] == "45"          # shown as written, not 45.0

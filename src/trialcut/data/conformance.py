@@ -141,7 +141,7 @@ class _State:
                "subject": _text_or_none(record.get(self.columns.subject)),
                "visit": _text_or_none(record.get(self.columns.visit))}
         if value_column is not None:
-            row["value"] = _text_or_none(record.get(value_column))
+            row["value"] = _value_text(record.get(value_column))
         return row
 
     def record(self, check_id: str, description: str, severity: str, mask: pd.Series | None = None,
@@ -154,6 +154,13 @@ class _State:
         shown = rows if rows is not None else (self.offending(mask, value_column) if found else ())
         status = "failed" if found else "passed"
         self.checks.append(Check(check_id, description, severity, status, found, shown, field, hint))
+
+
+def _value_text(value: Any) -> str | None:
+    """A cell as the user wrote it: 98 rather than 98.0, text unchanged."""
+    if isinstance(value, (float, np.floating)) and np.isfinite(value) and float(value).is_integer():
+        return str(int(value))
+    return _text_or_none(value)
 
 
 def _text_or_none(value: Any) -> str | None:
@@ -598,8 +605,23 @@ def _check_post_baseline(state: _State) -> None:
                  "warning", first_each, hint="they add nothing to a repeated-measures fit; check whether data are expected")
 
 
+def _check_event_timing(state: _State) -> None:
+    """Events are placed in time by study days: without a study day column, every visit needs a planned day."""
+    events = [e for e in state.plan.intercurrent_events if state.has(e.day_column)]
+    undated = [v.label for v in state.plan.visits.schedule if v.day is None]
+    if not events:
+        return
+    cannot = bool(undated) and not state.has(state.columns.study_day)
+    state.record("event_timing", "visits that cannot be placed before or after intercurrent events"
+                 + (f": {', '.join(undated)}" if cannot else ""), "warning",
+                 count=len(undated) if cannot else 0, rows=(), field=state.columns.study_day,
+                 hint="give the visits a planned 'day' in the plan or add the study day column; "
+                      "until then events never affect these visits")
+
+
 _STEPS: tuple[Callable[[_State], None], ...] = (
     _check_required, _check_types, _check_identifiers, _check_parameters, _check_arms, _check_arm_constant,
     _check_subject_level, _check_flags, _check_finite, _check_range, _check_exact_duplicates,
     _assign_roles, _check_one_baseline, _check_visits, _check_baseline_present, _check_post_baseline,
+    _check_event_timing,
 )

@@ -83,6 +83,11 @@ class DataCut:
         data["participants"] = int(len(self.subjects))
         return data
 
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-able: the data summary, every check and every derivation (no records)."""
+        return {"data": self.summary(), "dummy_arms_seed": self.dummy_arms_seed,
+                "conformance": self.conformance.to_dict() | {"derivations": [dict(d) for d in self.derivations]}}
+
     def population_counts(self) -> pd.DataFrame:
         """Participants per population (rows) and arm (columns), with a total."""
         rows = []
@@ -175,7 +180,9 @@ class DataCut:
         order = {label: i for i, label in enumerate(plan.visit_labels)}
         frame["__order"] = frame[cols.visit].map(order)
         frame = frame.sort_values([cols.subject, "__order"], kind="stable").drop(columns="__order")
-        return frame
+        # The source's column order first, then what was derived.
+        source = [c for c in self.records.columns if c in frame.columns]
+        return frame[source + [c for c in frame.columns if c not in source]]
 
     def _baseline_values(self, endpoint) -> pd.Series:
         cols, baseline = self.plan.columns, _baseline_column(self.plan)
