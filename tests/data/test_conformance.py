@@ -187,3 +187,17 @@ def test_report_and_cut_serialise_to_json(plan):
     assert [c["id"] for c in back["conformance"]["checks"]] == [c.id for c in cut.conformance.checks]
     (window,) = [c for c in back["conformance"]["checks"] if c["id"] == "visit_windows"]
     assert window["rows"][0]["value"] == "45"          # shown as written, not 45.0
+
+
+def test_baseline_flag_other_than_y_is_an_error():
+    frame = _good()
+    frame["ABLFL"] = frame["ABLFL"].astype(object)
+    frame.loc[3, "ABLFL"] = "y"
+    problems, _ = _codes(frame)
+    assert "'y'" in problems["data.baseline_flag_values"].rows[0]
+
+
+def test_categorical_columns_from_a_typed_file_are_plain_values(plan):
+    frame = _good().astype({"TRT01P": "category", "USUBJID": "category", "AVISIT": "category"})
+    cut = prepare_cut(plan, raw(frame))
+    assert cut.analysis_data("score", "policy").frame["CHG"].notna().sum() == 4

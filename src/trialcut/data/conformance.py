@@ -123,6 +123,10 @@ class _State:
         self.columns = plan.columns
         self.work = raw.frame.copy()
         self.work.columns = [str(c) for c in self.work.columns]
+        for name in self.work.columns:
+            # Categorical columns (Parquet dictionaries) are compared and grouped as plain values.
+            if isinstance(self.work[name].dtype, pd.CategoricalDtype):
+                self.work[name] = self.work[name].astype(object)
         self.work[ROW] = np.arange(len(self.work)) + raw.first_row
         self.checks: list[Check] = []
         self.log: list[dict[str, Any]] = []
@@ -406,6 +410,15 @@ def _check_flags(state: _State) -> None:
                  hint="write population flags as Y or N")
 
 
+def _check_baseline_flag(state: _State) -> None:
+    flag = state.columns.baseline_flag
+    if not state.has(flag):
+        return
+    mask = state.work[flag].notna() & (state.work[flag] != "Y")
+    state.record("baseline_flag_values", f"baseline flags ({flag}) other than Y or blank", "error", mask,
+                 field=flag, value_column=flag, hint=f"mark the baseline record with Y and leave {flag} empty elsewhere")
+
+
 # --------------------------------------------------------------------------- values
 def _check_finite(state: _State) -> None:
     mask = pd.Series(False, index=state.work.index)
@@ -621,7 +634,7 @@ def _check_event_timing(state: _State) -> None:
 
 _STEPS: tuple[Callable[[_State], None], ...] = (
     _check_required, _check_types, _check_identifiers, _check_parameters, _check_arms, _check_arm_constant,
-    _check_subject_level, _check_flags, _check_finite, _check_range, _check_exact_duplicates,
+    _check_subject_level, _check_flags, _check_baseline_flag, _check_finite, _check_range, _check_exact_duplicates,
     _assign_roles, _check_one_baseline, _check_visits, _check_baseline_present, _check_post_baseline,
     _check_event_timing,
 )

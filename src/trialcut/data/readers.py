@@ -14,7 +14,9 @@ top-level ``datasetJSONCreationDateTime``, ``datasetJSONVersion``, ``itemGroupOI
 ``records``, ``name``, ``label``, ``columns`` (each with ``itemOID``, ``name``, ``label``,
 ``dataType``; optional ``targetDataType``, ``length``, ``displayFormat``, ``keySequence``)
 and ``rows``, a list of arrays in column order.  ``decimal`` values are written as strings
-so that no precision is lost in a JSON number.
+so that no precision is lost in a JSON number.  On reading, ``integer``, ``decimal``,
+``float`` and ``double`` become float64 (null is NaN), ``boolean`` becomes pandas' nullable
+boolean and every other dataType (string, dates and times, URI) stays text.
 """
 from __future__ import annotations
 
