@@ -1,0 +1,102 @@
+"""Missing-data sensitivity analyses of a plan: multiple imputation and the tipping-point grid.
+
+The data layer has already applied the estimand: values after an event handled by the
+hypothetical strategy are missing (``outcome_set_missing``), composite values are filled
+in.  A missing value on a row that carries an ``intercurrent_event`` follows the plan's
+imputation assumption; every other missing value is imputed under MAR.  Random numbers
+come from ``context.seed_sequence(analysis.id)``, work goes to ``context.executor``.
+"""
+from __future__ import annotations
+
+from typing import Any
+
+from trialcut.errors import ModelSpecificationError, Problem
+from trialcut.run.context import RunContext
+from trialcut.run.tables import plain, table
+from trialcut.stats.imputation import impute
+from trialcut.stats.tipping import tipping_point
+
+EVENT_FLAG = "_after_intercurrent_event"
+
+
+def _frame_with_event_flag(data) -> Any:
+    frame = data.frame
+    flag = frame["intercurrent_event"].notna() if "intercurrent_event" in frame.columns else False
+    if "outcome_set_missing" in frame.columns:
+        flag = flag | frame["outcome_set_missing"].fillna(False).astype(bool)
+    return frame.assign(**{EVENT_FLAG: flag})
+
+
+def _roles(data) -> dict[str, Any]:
+    return dict(subject=data.subject, arm=data.arm, visit=data.visit, outcome=data.outcome,
+                visits=list(data.visits), reference=data.reference, arms=list(data.arms))
+
+
+def _progress(context: RunContext, label: str):
+    if context.progress is None:
+        return None
+    return lambda done, total: context.progress(label, done, total)
+
+
+def _entry(analysis, tables: dict[str, Any], fit: dict[str, Any]) -> dict[str, Any]:
+    return {"id": analysis.id, "label": analysis.label, "method": analysis.method, "status": "done",
+            "options": plain(analysis.options.model_dump()), "tables": tables, "fit": plain(fit),
+            "diagnostics": {}}
+
+
+def run_multiple_imputation(data, analysis, context: RunContext) -> dict[str, Any]:
+    options = analysis.options
+    if options.analysis_model != "ancova":
+        raise ModelSpecificationError("this analysis model is not available for multiple imputation", [
+            Problem(code="run.imputation_analysis_model", message="completed data sets are analysed by "
+                    "ANCOVA at each visit", field=f"analyses[{analysis.id}].options.analysis_model",
+                    expected="ancova", got=repr(options.analysis_model))])
+    result = impute(
+        _frame_with_event_flag(data), **_roles(data), covariates=tuple(options.covariates),
+        assumption=options.assumption, event=EVENT_FLAG, n_imputations=options.imputations,
+        burn_in=options.burn_in, thinning=options.thinning, covariance_by_arm=options.covariance_by_arm,
+        delta=options.delta, delta_arms=tuple(options.delta_arms), delta_cumulative=options.delta_cumulative,
+        seed_sequence=context.seed_sequence(analysis.id), executor=context.executor,
+        conf_level=options.conf_level, progress=_progress(context, analysis.id),
+    )
+    tables = {
+        "differences": table(result.differences(), f"Differences from the reference arm, pooled over "
+                             f"{options.imputations} imputations ({_assumption_words(options.assumption)})"),
+        "pooling": table(result.pooling(), "Between- and within-imputation variance"),
+    }
+    fit = {"assumption": options.assumption, "imputations": options.imputations, "burn_in": options.burn_in,
+           "thinning": options.thinning, "chains": result.settings["chains"], "complete_df": result.complete_df,
+           "covariates": result.settings["covariates"], "diagnostics": result.diagnostics,
+           "delta": result.settings["delta"], "delta_arms": result.settings["delta_arms"]}
+    return _entry(analysis, tables, fit)
+
+
+def run_tipping_point(data, analysis, context: RunContext) -> dict[str, Any]:
+    options = analysis.options
+    result = tipping_point(
+        _frame_with_event_flag(data), **_roles(data), target_visit=data.primary_visit,
+        shifts=options.shifts, reference_shifts=options.reference_shifts, covariates=tuple(options.covariates),
+        event=EVENT_FLAG, assumption=options.assumption, n_imputations=options.imputations,
+        burn_in=options.burn_in, thinning=options.thinning, alpha=options.alpha,
+        seed_sequence=context.seed_sequence(analysis.id), executor=context.executor,
+        progress=_progress(context, analysis.id),
+    )
+    tables = {
+        "differences": table(result.differences(), "Differences from the reference arm with no shift "
+                             f"({_assumption_words(options.assumption)})"),
+        "tipping_grid": table(result.grid(), f"Pooled difference at {data.primary_visit} for each shift of "
+                              "the imputed values"),
+        "tipping_points": table(result.tipping_points(), "Shift at which the conclusion changes"),
+    }
+    fit = {"assumption": options.assumption, "imputations": options.imputations, "burn_in": options.burn_in,
+           "thinning": options.thinning, "chains": result.settings["chains"], "alpha": options.alpha,
+           "visit": data.primary_visit, "shifts": result.settings["shifts"],
+           "reference_shifts": result.settings["reference_shifts"], "diagnostics": result.diagnostics}
+    return _entry(analysis, tables, fit)
+
+
+def _assumption_words(name: str) -> str:
+    return {"mar": "missing at random", "jump_to_reference": "jump to reference",
+            "copy_reference": "copy reference",
+            "copy_increments_in_reference": "copy increments in reference"}[name]
+
