@@ -105,6 +105,23 @@ def test_a_number_where_text_is_expected_suggests_quotes(base_text, write_plan):
     assert [(p.field, p.hint) for p in problems] == [("study.phase", 'put it in quotes: "2"')]
 
 
+@pytest.mark.parametrize("old, new, field", [
+    ("seed: 7", "seed: yes", "seed"),
+    ("day: 15,", "day: on,", "visits.schedule[Week 2].day"),
+])
+def test_yaml_true_false_words_are_not_numbers(base_text, write_plan, old, new, field):
+    # YAML 1.1 reads yes/no/on/off as true/false and pydantic would read true as 1.
+    problems, _ = problems_of(write_plan(replace_once(base_text, old, new)))
+    assert [(p.field, p.code) for p in problems] == [(field, "plan.wrong_type")]
+    assert "true/false" in problems[0].hint
+
+
+def test_a_pair_with_one_value(base_text, write_plan):
+    problems, _ = problems_of(write_plan(replace_once(base_text, "range: [0, 60]", "range: [60]")))
+    assert [(p.field, p.expected, p.got) for p in problems] == [
+        ("endpoints[fbs_change].range", "2 items", "1 item")]
+
+
 def test_the_analysis_method_tag_is_not_part_of_the_path(base_text, write_plan):
     text = replace_once(base_text, "df: kenward_roger", "df: kenward")
     problems, _ = problems_of(write_plan(text))
@@ -180,7 +197,15 @@ def test_duplicate_keys_are_refused(base_text, write_plan):
     text = replace_once(base_text, "seed: 7", "seed: 7\nseed: 8")
     problems, _ = problems_of(write_plan(text))
     assert [(p.code, p.line, p.column) for p in problems] == [("plan.duplicate_key", line_of(text, "seed: 8"), 1)]
+    assert problems[0].field == "seed"
     assert f"line {line_of(text, 'seed: 7')}" in problems[0].expected
+
+
+def test_duplicate_keys_inside_items_are_named_by_id(base_text, write_plan):
+    text = replace_once(base_text, "decimals: 0", "decimals: 0\n    decimals: 1")
+    problems, _ = problems_of(write_plan(text))
+    assert [p.field for p in problems] == ["endpoints[fbs_change].decimals"]
+    assert f"line {line_of(text, 'decimals: 0')}" in problems[0].expected
 
 
 def test_syntax_error_is_located(base_text, write_plan):

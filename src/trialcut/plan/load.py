@@ -13,7 +13,7 @@ from __future__ import annotations
 import re
 import types
 import typing
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any, Iterator, Mapping
 
@@ -136,6 +136,7 @@ class _Builder:
         self.values: dict[PathKey, Position] = {}
         self.scalars: dict[PathKey, str] = {}
         self.problems: list[Problem] = []
+        self.duplicates: list[tuple[int, PathKey]] = []     # (problem index, path): named once built
         self.count = 0
 
     def build(self, node: Node, path: PathKey, active: frozenset[int]) -> Any:
@@ -169,8 +170,9 @@ class _Builder:
             where = _position(key_node.start_mark)
             if key in first_seen:
                 earlier = first_seen[key]
+                self.duplicates.append((len(self.problems), path + (key,)))
                 self._problem(key_node, "plan.duplicate_key", f"key {key!r} appears twice in the same mapping",
-                              field=breadcrumb(path + (key,), None), got=f"a second {key!r}",
+                              got=f"a second {key!r}",
                               expected=f"one {key!r} (the first is at line {earlier.line})",
                               hint="YAML would silently keep only the last one; delete one of them")
             first_seen[key] = where
@@ -216,6 +218,8 @@ def _parse(text: str, file: str) -> tuple[Any, SourceMap, list[Problem]]:
             loader.dispose()
     source = SourceMap(builder.keys, builder.values, builder.scalars)
     problems = list(builder.problems)
+    for index, path in builder.duplicates:
+        problems[index] = replace(problems[index], field=breadcrumb(path, data))
     if not problems and not isinstance(data, dict):
         problems.append(Problem(
             code="plan.not_a_mapping", message="the plan must be a mapping of sections", file=file,
@@ -329,6 +333,9 @@ def _schema_problem(error: dict[str, Any], path: PathKey, data: Any, source: Sou
     if kind == "union_tag_invalid" or kind == "union_tag_not_found":
         path = path + ("method",)
     wording = _wording(kind, error, path, data, source)
+    if kind == "missing" and path and isinstance(path[-1], int):
+        path = path[:-1]
+        kind = "too_few"
     if wording is None:
         message = str(error.get("msg", "invalid value")).removeprefix("Value error, ")
         wording = ("plan.invalid", message, None, _describe(error.get("input"), source.scalars.get(path)), None)
@@ -361,6 +368,9 @@ def _wording(kind: str, error: dict[str, Any], path: PathKey, data: Any, source:
     raw = source.scalars.get(path)
     got = _describe(value, raw)
     name = _field_name(path)
+    if kind == "missing" and path and isinstance(path[-1], int):     # a fixed-length list, too short
+        return ("plan.too_few", f"{_field_name(path[:-1])!r} has too few items", f"{path[-1] + 1} items",
+                _count(_child_at(data, path[:-1])), None)
     if kind == "missing":
         return ("plan.missing_key", f"required key {name!r} is missing", f"a value for {name!r}", None, None)
     if kind == "extra_forbidden":
@@ -454,6 +464,10 @@ def _describe(value: Any, raw: str | None) -> str | None:
     return _shorten(raw if raw is not None else repr(value))
 
 
+def _count(value: Any) -> str:
+    return f"{len(value)} item{'s' if len(value) != 1 else ''}" if isinstance(value, list) else _kind(value)
+
+
 def _shorten(text: str, limit: int = 80) -> str:
     return text if len(text) <= limit else text[: limit - 1] + "…"
 
@@ -465,6 +479,8 @@ def _choice_hint(value: Any, raw: str | None, choices: list[str]) -> str | None:
 
 
 def _type_hint(kind: str, value: Any, raw: str | None) -> str | None:
+    if raw is not None and raw.lower() in ("yes", "no", "on", "off", "true", "false", "y", "n"):
+        return f"YAML reads {raw} as true/false; write a number here"
     if kind == "string_type" and raw is not None and not isinstance(value, (dict, list)):
         return f'put it in quotes: "{raw}"'
     if kind in ("tuple_type", "list_type") and isinstance(value, (str, int, float)):
@@ -520,6 +536,12 @@ def _model_at(path: PathKey, data: Any) -> type[BaseModel] | None:
                 return None
         node = _child(node, element)
     return _as_model(annotation, node)
+
+
+def _child_at(data: Any, path: PathKey) -> Any:
+    for element in path:
+        data = _child(data, element)
+    return data
 
 
 def _child(node: Any, element: str | int) -> Any:

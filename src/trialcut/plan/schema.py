@@ -43,6 +43,29 @@ class Strict(BaseModel):
     # NaN and infinity never mean anything in a plan and would break the canonical JSON.
     model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
 
+    @model_validator(mode="before")
+    @classmethod
+    def _no_true_false_as_numbers(cls, data: Any) -> Any:
+        # Pydantic reads true as 1, and YAML reads an unquoted yes/no/on/off as true/false,
+        # so "imputations: yes" would silently become 1.  Such a value is swapped for a
+        # marker that no number field accepts, so it fails with the field's own error.
+        if not isinstance(data, dict):
+            return data
+        swapped = {key: _TrueFalse(value) for key, value in data.items()
+                   if isinstance(value, bool) and key in cls.model_fields
+                   and _numeric_only(cls.model_fields[key].annotation)}
+        return {**data, **swapped} if swapped else data
+
+
+class _TrueFalse:
+    """A true/false value found where a number belongs."""
+
+    def __init__(self, value: bool):
+        self.value = value
+
+    def __repr__(self) -> str:
+        return "true" if self.value else "false"
+
 
 @dataclass(frozen=True)
 class RuleIssue:
@@ -61,6 +84,12 @@ def _raise_issues(issues: Iterable[RuleIssue]) -> None:
     if issues:
         summary = "; ".join(issue.message for issue in issues)
         raise PydanticCustomError("plan_rule", "{summary}", {"summary": summary, "issues": issues})
+
+
+def _numeric_only(annotation: Any) -> bool:
+    """A number field (int or float, possibly optional) that does not also take true/false."""
+    members = {annotation} if not typing.get_args(annotation) else set(typing.get_args(annotation))
+    return bool(members & {int, float}) and bool not in members and annotation is not bool
 
 
 def suggestion(word: object, choices: Iterable[str]) -> str | None:
