@@ -123,6 +123,7 @@ def test_to_dict_is_json_and_lossless(result):
     table = data["differences"]
     frame = pd.DataFrame(table["data"], columns=table["columns"])
     pd.testing.assert_frame_equal(frame, result.differences(), check_dtype=False)
+    pd.testing.assert_frame_equal(result.to_frame(), result.differences())
     assert data["fits"]["data"][0][1] == 97  # BtheB: 100 participants, 3 lack bdi.2m
 
 

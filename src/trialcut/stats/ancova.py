@@ -139,6 +139,10 @@ class AncovaResult:
         """Per visit: participants analysed, residual df and residual variance s²."""
         return pd.DataFrame(list(self.fit_rows), columns=list(FIT_COLUMNS))
 
+    def to_frame(self) -> pd.DataFrame:
+        """The differences table, the one every comparative analysis shares."""
+        return self.differences()
+
     def to_dict(self) -> dict[str, Any]:
         return {
             "method": "ancova_by_visit",
