@@ -172,7 +172,7 @@ def _tipping_grid(differences) -> list[list]:
     for arm, ref, visit, estimate, se, df, *_ in at_primary:
         for shift in (0.0, 0.25, 0.5, 0.75, 1.0, 1.25, 1.5):
             for reference_shift in (0.0, -0.25, -0.5):
-                moved = estimate + 0.14 * shift - 0.14 * reference_shift
+                moved = estimate + 0.7 * shift - 0.5 * reference_shift
                 moved_se = se * 1.08
                 p = 2 * scipy_stats.t.sf(abs(moved / moved_se), df)
                 half = scipy_stats.t.ppf(0.975, df) * moved_se
@@ -216,14 +216,21 @@ def build_results(*, unlocked: bool = False, dummy_arms: bool = False, seed: int
         },
         fit={
             "converged": True, "structure": "unstructured", "method": "reml", "df_method": "kenward_roger",
-            "log_likelihood": -512.8316, "aic": 1045.6632, "bic": 1077.514, "n_subjects": 180,
-            "n_obs": sum(1 for r in records if not math.isnan(r[4])), "n_excluded_subjects": 0,
+            "loglik": -512.8316, "aic": 1045.6632, "bic": 1077.514, "n_subjects": 180,
+            "n_obs": sum(1 for r in records if not math.isnan(r[4])), "n_subjects_excluded": 0,
             "iterations": 9, "gradient_norm": 3.1e-7,
             "attempts": [
-                {"structure": "unstructured", "converged": True, "message": None},
+                {"structure": "unstructured", "status": "used", "reason": None, "stage": "fit"},
             ],
+            "covariate_summary": {"BASE": {"mean": 9.21, "kind": "numeric"}},
             "covariates": ["BASE"], "covariates_by_visit": ["BASE"],
-            "warnings": [],
+            "multiplicity": {"method": "holm", "alpha": 0.05, "hypotheses": table(
+            "Multiplicity-adjusted tests", ["id", "analysis", "arm", "visit", "weight", "p", "adjusted_p", "rejected"],
+            [["high_dose", "primary_mmrm", ARMS[2], PRIMARY_VISIT, 0.5, differences[-1][7],
+              min(1.0, 2 * differences[-1][7]), True],
+             ["low_dose", "primary_mmrm", ARMS[1], PRIMARY_VISIT, 0.5, differences[3][7],
+              min(1.0, differences[3][7]), True]])},
+        "warnings": [],
         },
         diagnostics={"residuals": table("Residuals and fitted values",
                                         ["USUBJID", "arm", "visit", "fitted", "residual", "scaled_residual"],
@@ -330,10 +337,10 @@ def build_results(*, unlocked: bool = False, dummy_arms: bool = False, seed: int
             "derivations": ["CHG recomputed as AVAL - BASE and compared with the supplied column",
                             "Intercurrent events assigned from RESCDY and TRTSTPDY"],
         },
-        "populations": table("Participants per analysis population and arm",
-                             ["population", *ARMS, "total"],
-                             [["Full analysis set", *n_per_arm, sum(n_per_arm)],
-                              ["Safety set", 60, 59, 60, 179]]),
+        "populations": table("Participants in each analysis population",
+                             ["population", "label", "arm", "participants"],
+                             [["fas", "Full analysis set", arm, n] for arm, n in zip(ARMS, n_per_arm)]
+                             + [["safety", "Safety set", arm, n] for arm, n in zip(ARMS, (60, 59, 60))]),
         "disposition": table("Disposition", ["status", *ARMS, "total"], [
             ["Randomised", *n_per_arm, 180], ["Completed Week 12", 52, 50, 51, 153],
             ["Stopped study treatment early", 6, 8, 7, 21], ["Started rescue medication", 5, 3, 2, 10]]),
@@ -351,6 +358,12 @@ def build_results(*, unlocked: bool = False, dummy_arms: bool = False, seed: int
             "trajectories": trajectories,
             "analyses": [primary, ancova, jump, tipping],
         }],
+        "multiplicity": {"method": "holm", "alpha": 0.05, "hypotheses": table(
+            "Multiplicity-adjusted tests", ["id", "analysis", "arm", "visit", "weight", "p", "adjusted_p", "rejected"],
+            [["high_dose", "primary_mmrm", ARMS[2], PRIMARY_VISIT, 0.5, differences[-1][7],
+              min(1.0, 2 * differences[-1][7]), True],
+             ["low_dose", "primary_mmrm", ARMS[1], PRIMARY_VISIT, 0.5, differences[3][7],
+              min(1.0, differences[3][7]), True]])},
         "warnings": ["value_in_range: 2 values outside the plan's range were kept (severity warning)"],
     }
     return _deep_clean(results)

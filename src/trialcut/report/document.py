@@ -118,6 +118,11 @@ def build_document(results: Mapping[str, Any], audit: Mapping[str, Any] | None =
         sections_analysis.endpoint(section, results, endpoint, number_format)
         sections.append(section)
 
+    if results.get("multiplicity"):
+        adjustment = Section("multiplicity", "Multiple comparisons")
+        sections_front.multiplicity(adjustment, results, base_format)
+        sections.append(adjustment)
+
     appendix = Section("audit", "Appendix: audit record")
     sections_front.audit_appendix(appendix, results, audit, base_format)
     sections.append(appendix)

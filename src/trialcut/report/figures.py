@@ -22,6 +22,7 @@ GRID = "#d9dee2"
 
 RC = {
     "svg.hashsalt": "trialcut-report",
+    "savefig.dpi": 200,          # only rasterised layers (dense scatter points) use it
     "svg.fonttype": "none",
     "text.parse_math": False,
     "font.family": "DejaVu Sans",
@@ -50,10 +51,10 @@ class FigureImage:
     anchor: str = ""
 
 
-def _new_figure(width: float, height: float):
+def _new_figure(width: float, height: float, layout: str | None):
     from matplotlib.figure import Figure
 
-    return Figure(figsize=(width, height), dpi=100, layout="constrained")
+    return Figure(figsize=(width, height), dpi=100, layout=layout)
 
 
 def _svg(figure) -> bytes:
@@ -65,11 +66,15 @@ def _svg(figure) -> bytes:
     return buffer.getvalue()
 
 
-def _draw(draw, *args, width=6.4, height=3.4, **kwargs) -> bytes:
+def _draw(draw, *args, width=6.4, height=3.4, layout="constrained", **kwargs) -> bytes:
+    """Draw and save one figure.  ``layout=None`` uses fixed margins: the constrained layout
+    costs an extra drawing pass, worth it only where long tick labels need room."""
     import matplotlib
 
     with matplotlib.rc_context(RC):
-        figure = _new_figure(width, height)
+        figure = _new_figure(width, height, layout)
+        if layout is None:
+            figure.subplots_adjust(left=0.1, right=0.97, top=0.9, bottom=0.2, wspace=0.28)
         draw(figure, *args, **kwargs)
         return _svg(figure)
 
@@ -124,7 +129,7 @@ def profile_chart(points: Sequence[Mapping[str, Any]], *, arms, visits, visit_da
         axes.set_ylabel(y_label)
         axes.legend(loc="best", fontsize=8)
 
-    return _draw(draw)
+    return _draw(draw, layout=None)
 
 
 def trajectories_chart(series: Mapping[str, Mapping[str, list[tuple[str, float]]]], *, arms, visits,
@@ -146,7 +151,7 @@ def trajectories_chart(series: Mapping[str, Mapping[str, list[tuple[str, float]]
             axes.set_xticks(list(positions.values()), list(positions), rotation=45, ha="right")
         panels[0].set_ylabel(y_label)
 
-    return _draw(draw, height=3.0)
+    return _draw(draw, height=3.0, layout=None)
 
 
 # --------------------------------------------------------------------------- missing data
@@ -196,59 +201,60 @@ def residual_chart(fitted: Sequence[float], residuals: Sequence[float], *, resid
 
     def draw(figure):
         left, right = figure.subplots(1, 2)
-        left.scatter(theoretical, order, s=6, color=ARM_COLOURS[1], alpha=0.7, linewidths=0)
+        left.scatter(theoretical, order, s=6, color=ARM_COLOURS[1], alpha=0.7, linewidths=0, rasterized=True)
         slope, intercept = np.std(values, ddof=1), np.mean(values)
         line = np.array([theoretical.min(), theoretical.max()])
         left.plot(line, intercept + slope * line, color=INK, linewidth=0.9)
         left.set_xlabel("Normal quantile")
         left.set_ylabel(residual_label)
         left.set_title("Normal quantile plot", fontsize=8.5, color=INK)
-        right.scatter(fitted, values, s=6, color=ARM_COLOURS[2], alpha=0.6, linewidths=0)
+        right.scatter(fitted, values, s=6, color=ARM_COLOURS[2], alpha=0.6, linewidths=0, rasterized=True)
         right.axhline(0, color=INK, linewidth=0.8)
         right.set_xlabel("Fitted value")
         right.set_ylabel(residual_label)
         right.set_title("Residuals against fitted values", fontsize=8.5, color=INK)
 
-    return _draw(draw, height=3.0)
+    return _draw(draw, height=3.0, layout=None)
 
 
 # --------------------------------------------------------------------------- sensitivity
 def tipping_chart(cells: Sequence[Mapping[str, Any]], *, arms: Sequence[str], alpha: float,
                   label=lambda value: f"{value:.2f}") -> bytes:
-    """p-value per (active-arm shift, reference-arm shift), one panel per arm; text: the estimate."""
-    import matplotlib.colors as colours
+    """One panel per arm: a tile per (active-arm shift, reference-arm shift), teal while the
+    difference stays significant at ``alpha`` and amber once it does not; text: the estimate."""
+    from matplotlib.patches import Patch
 
     panel_arms = [a for a in arms if any(c["arm"] == a for c in cells)]
-    scale = colours.LinearSegmentedColormap.from_list("tipping", ["#0f7c78", "#e9efe9", "#c4621d"])
-    norm = colours.TwoSlopeNorm(vmin=0.0, vcenter=alpha, vmax=max(alpha * 2, 1.0))
+    significant, lost, unknown = "#7fb8b4", "#f0b27a", "#ffffff"
 
     def draw(figure):
         panels = figure.subplots(1, len(panel_arms), squeeze=False)[0]
-        image = None
         for axes, arm in zip(panels, panel_arms):
             mine = [c for c in cells if c["arm"] == arm]
             shifts = sorted({c["shift"] for c in mine})
             reference_shifts = sorted({c.get("reference_shift") or 0.0 for c in mine}, reverse=True)
-            grid = np.full((len(reference_shifts), len(shifts)), np.nan)
             for c in mine:
                 row = reference_shifts.index(c.get("reference_shift") or 0.0)
                 column = shifts.index(c["shift"])
-                grid[row, column] = c["p"] if c["p"] is not None else np.nan
+                p = c.get("p")
+                colour = unknown if p is None else (significant if p < alpha else lost)
+                axes.add_patch(_tile(column, row, colour, True))
                 if c.get("estimate") is not None:
-                    axes.text(column, row, label(c["estimate"]), ha="center", va="center", fontsize=6.5,
-                              color=INK)
-            image = axes.imshow(grid, cmap=scale, norm=norm, aspect="auto")
+                    axes.text(column, row, label(c["estimate"]), ha="center", va="center", fontsize=6.5, color=INK)
             axes.grid(False)
+            axes.set_xlim(-0.5, len(shifts) - 0.5)
+            axes.set_ylim(len(reference_shifts) - 0.5, -0.5)
             axes.set_xticks(range(len(shifts)), [f"{s:g}" for s in shifts])
             axes.set_yticks(range(len(reference_shifts)), [f"{s:g}" for s in reference_shifts])
             axes.set_xlabel("Shift added in the active arm")
             axes.set_title(arm, fontsize=8.5, color=INK)
+            axes.spines[:].set_visible(False)
         panels[0].set_ylabel("Shift added in the reference arm")
-        if image is not None:
-            bar = figure.colorbar(image, ax=list(panels), shrink=0.9)
-            bar.set_label(f"p-value (α = {alpha:g} at the colour change)")
+        figure.legend(handles=[Patch(color=significant, label=f"p < {alpha:g}"),
+                               Patch(color=lost, label=f"p ≥ {alpha:g}")],
+                      loc="upper right", ncols=2, fontsize=8)
 
-    return _draw(draw, height=3.0)
+    return _draw(draw, height=3.0, layout=None)
 
 
 def forest_chart(rows: Sequence[Mapping[str, Any]], *, arms: Sequence[str], x_label: str) -> bytes:

@@ -27,7 +27,7 @@ MISSING_TEXT = "–"   # en dash: a cell with no value
 
 # Column kinds a table declares; each maps to one rule below.
 KINDS = ("text", "count", "mean", "sd", "p", "df", "statistic", "correlation", "percent",
-         "share", "criterion", "flag", "shift")
+         "share", "criterion", "flag", "shift", "term", "general", "by_row")
 
 
 def round_half_away(value: float, decimals: int) -> str:
@@ -86,6 +86,8 @@ class NumberFormat:
             return MISSING_TEXT
         if kind == "flag" or isinstance(value, bool):
             return "yes" if value else "no"
+        if kind == "term":
+            return term_text(str(value))
         if kind == "text" or not isinstance(value, (int, float)):
             return str(value)
         if kind == "p":
@@ -102,6 +104,17 @@ class NumberFormat:
     def interval(self, lower: Any, upper: Any, kind: str = "mean") -> str:
         """A confidence interval as "(lower, upper)"."""
         return f"({self.cell(lower, kind)}, {self.cell(upper, kind)})"
+
+
+TERM_WORDS = {"arm": "Arm", "visit": "Visit", "arm_by_visit": "Arm by visit", "intercept": "Intercept",
+              "(Intercept)": "Intercept"}
+
+
+def term_text(term: str) -> str:
+    """A model term in words: 'BASE_by_visit' reads 'BASE by visit'."""
+    if term in TERM_WORDS:
+        return TERM_WORDS[term]
+    return term[: -len("_by_visit")] + " by visit" if term.endswith("_by_visit") else term
 
 
 def _general(value: float) -> str:

@@ -46,6 +46,7 @@ FIT_FACTS = (
     ("aic", "AIC", "criterion"), ("bic", "BIC", "criterion"),
     ("n_subjects", "Participants in the fit", "count"), ("n_obs", "Observations in the fit", "count"),
     ("n_excluded_subjects", "Participants with no observed value (left out)", "count"),
+    ("n_subjects_excluded", "Participants with no observed value (left out)", "count"),
     ("iterations", "Iterations", "count"), ("gradient_norm", "Gradient norm at the end", "general"),
 )
 
@@ -215,6 +216,7 @@ def primary_analysis(section: "Section", context: EndpointContext, analysis: Map
     level = _level_text(options)
     section.paragraph(_model_description(context, analysis))
     section.paragraph(AVERAGING_RULE)
+    section.table(_covariate_summary(context, fit))
     _fallbacks(section, context, fit, options)
     ci = f"{level} confidence interval"
     if tables.get("marginal_means"):
@@ -227,11 +229,13 @@ def primary_analysis(section: "Section", context: EndpointContext, analysis: Map
     if tables.get("joint_tests"):
         section.table(from_results_table(tables["joint_tests"], slug=f"{context.slug}_joint_tests",
                                          title="Joint tests of the model terms", number_format=number_format,
+                                         kinds={"term": "term"},
                                          note="Terms: arm, visit, arm by visit, and each covariate "
                                               "(with its own effect at each visit where the plan asks for it)."))
     if tables.get("fixed_effects"):
         section.table(from_results_table(tables["fixed_effects"], slug=f"{context.slug}_fixed_effects",
-                                         title="Fixed-effect estimates", number_format=number_format))
+                                         title="Fixed-effect estimates", number_format=number_format,
+                                         kinds={"term": "term"}))
     for name in sorted(tables):
         if name.startswith("covariance") or name.startswith("correlation"):
             kind = "sd" if name.startswith("covariance") else "correlation"
@@ -279,16 +283,40 @@ def _fallbacks(section: "Section", context: EndpointContext, fit, options) -> No
     attempts = fit.get("attempts") or []
     if attempts:
         rows = [{"structure": STRUCTURE_WORDS.get(a.get("structure"), a.get("structure")),
-                 "converged": a.get("converged"),
-                 "reason": a.get("message") or a.get("reason") or a.get("error") or
-                 ("used" if a.get("converged") else "did not converge")} for a in attempts]
-        section.table(from_records(rows, ("structure", "converged", "reason"), slug=f"{context.slug}_structures_tried",
+                 "status": _attempt_status(a),
+                 "reason": a.get("reason") or a.get("message") or a.get("error") or ""} for a in attempts]
+        section.table(from_records(rows, ("structure", "status", "reason"), slug=f"{context.slug}_structures_tried",
                                    title="Covariance structures tried", number_format=context.number_format,
-                                   labels={"structure": "Structure", "converged": "Converged",
-                                           "reason": "Outcome or reason for moving on"}))
+                                   labels={"structure": "Structure", "status": "Outcome",
+                                           "reason": "Reason it was set aside"}))
     if fit.get("structure") and planned and fit.get("structure") != planned[0]:
         section.notice(f"The first planned structure did not converge; the fallback "
                        f"{STRUCTURE_WORDS.get(fit['structure'], fit['structure'])} was used.")
+
+
+def _attempt_status(attempt: Mapping[str, Any]) -> str:
+    if attempt.get("status"):
+        stage = f" at the {attempt['stage']} stage" if attempt.get("stage") and attempt["status"] != "used" else ""
+        return f"{attempt['status']}{stage}"
+    return "used" if attempt.get("converged") else "did not converge"
+
+
+def _covariate_summary(context: EndpointContext, fit: Mapping[str, Any]):
+    """The covariate values the model-estimated means average over, when the fit records them."""
+    summary = fit.get("covariate_summary")
+    if not isinstance(summary, Mapping) or not summary:
+        return None
+    pairs = []
+    for name, value in summary.items():
+        if isinstance(value, Mapping):
+            shown = "; ".join(f"{k}: {v:.4g}" if isinstance(v, float) else f"{k}: {v}" for k, v in value.items())
+            pairs.append((str(name), shown, "text"))
+        elif isinstance(value, (int, float)) and not isinstance(value, bool):
+            pairs.append((str(name), value, "general"))
+        elif value is not None:
+            pairs.append((str(name), str(value), "text"))
+    return facts_table(pairs, slug=f"{context.slug}_covariate_values", title="Covariate values used for the means",
+                       number_format=context.number_format) if pairs else None
 
 
 def _fit_statistics(context: EndpointContext, fit: Mapping[str, Any]):

@@ -53,7 +53,7 @@ class ReportColumn:
 
     @property
     def numeric(self) -> bool:
-        return self.kind not in ("text", "flag")
+        return self.kind not in ("text", "flag", "term", "by_row")
 
 
 @dataclass(frozen=True)
