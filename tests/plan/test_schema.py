@@ -121,6 +121,13 @@ def test_the_json_schema_refuses_what_pydantic_refuses(schema, edit, fragment):
     assert any(v.startswith(fragment) for v in violations(schema, data, schema)), violations(schema, data, schema)
 
 
+def test_the_json_schema_takes_one_covariance_name_as_the_loader_does(schema):
+    data = yaml.safe_load(BASE_PLAN.read_text(encoding="utf-8"))
+    data["endpoints"][0]["analyses"]["primary"]["options"]["covariance"] = "ar1"
+    assert AnalysisPlan.model_validate(data).endpoints[0].analyses.primary.options.covariance == ("ar1",)
+    assert violations(schema, data, schema) == []
+
+
 def test_the_json_schema_declares_itself(schema):
     assert schema["$schema"] == "https://json-schema.org/draft/2020-12/schema"
     assert schema["additionalProperties"] is False

@@ -17,7 +17,16 @@ from dataclasses import dataclass, fields
 from functools import lru_cache
 from typing import Annotated, Any, Iterable, Iterator, Literal, Union
 
-from pydantic import BaseModel, ConfigDict, Field, TypeAdapter, ValidationError, field_validator, model_validator
+from pydantic import (
+    BaseModel,
+    ConfigDict,
+    Field,
+    TypeAdapter,
+    ValidationError,
+    WithJsonSchema,
+    field_validator,
+    model_validator,
+)
 from pydantic_core import PydanticCustomError
 
 from trialcut.stats.names import (
@@ -266,7 +275,11 @@ class Estimand(Strict):
 
 # --------------------------------------------------------------------------- analyses
 class MMRMOptions(Strict):
-    covariance: tuple[CovarianceName, ...] = Field(
+    # The JSON Schema says what the loader accepts: one name, or a list tried in order.
+    covariance: Annotated[tuple[CovarianceName, ...], WithJsonSchema({
+        "anyOf": [{"enum": list(COVARIANCE_STRUCTURES), "type": "string"},
+                  {"items": {"enum": list(COVARIANCE_STRUCTURES), "type": "string"}, "minItems": 1, "type": "array"}],
+        "default": ["unstructured"], "description": "Structures to try in order until one converges."})] = Field(
         default=("unstructured",), min_length=1, description="Structures to try in order until one converges.")
     covariance_by: str | None = Field(default=None, description="Column for a separate matrix per group (often the arm column).")
     covariates: tuple[str, ...] = ()
