@@ -16,7 +16,7 @@ from trialcut.errors import DataError
 
 from .conftest import frame_of, make_plan, participant
 
-PLAN = make_plan()
+PLANS = {True: make_plan(), False: make_plan(visits={"windowing": False})}
 BASE = frame_of(participant("S1", "Placebo", 30, 28, 25, disc=20),
                 participant("S2", "Active", 40, 35, None, resc=14, pp="N"),
                 participant("S3", "Active", 33, 30, 29, stratum="Severe")).astype(object)
@@ -55,27 +55,28 @@ def _apply(frame: pd.DataFrame, change) -> pd.DataFrame:
     return frame
 
 
-def _exercise(frame: pd.DataFrame, typed: bool) -> None:
+def _exercise(frame: pd.DataFrame, typed: bool, windowing: bool) -> None:
     try:
-        cut = prepare_cut(PLAN, raw_from_frame(frame, typed=typed), dummy_arms_seed=3)
+        cut = prepare_cut(PLANS[windowing], raw_from_frame(frame, typed=typed), dummy_arms_seed=3)
     except DataError as error:
         assert error.problems and error.render()
         return
     for estimand in ("policy", "hypo", "comp"):
         data = cut.analysis_data("score", estimand)
         assert len(data.frame) == len(cut.subjects[cut.subjects["FASFL"] == "Y"]) * 2
+        assert not data.frame.duplicated(["USUBJID", "AVISIT"]).any()
     cut.disposition()
     cut.population_counts()
     cut.conformance.to_frame()
 
 
 @settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
-@given(st.lists(mutation, min_size=1, max_size=4), st.booleans())
-def test_prepare_cut_raises_only_data_errors(changes, as_text):
+@given(st.lists(mutation, min_size=1, max_size=4), st.booleans(), st.booleans())
+def test_prepare_cut_raises_only_data_errors(changes, as_text, windowing):
     frame = BASE
     for change in changes:
         frame = _apply(frame, change)
     if as_text:
         # What a CSV reader hands over: every cell text, missing as NaN.
         frame = frame.map(lambda v: v if v is None or (isinstance(v, float) and np.isnan(v)) else str(v))
-    _exercise(frame, typed=not as_text)
+    _exercise(frame, typed=not as_text, windowing=windowing)

@@ -49,23 +49,26 @@ def assign_visits(days: pd.Series, participants: pd.Series, windows: Sequence[Wi
     """Assign each record (one study day each) to a visit and choose one record per visit."""
     visit = pd.Series([_window_of(d, windows) for d in days.to_numpy(dtype=float)],
                       index=days.index, dtype=object)
-    chosen = pd.Series(False, index=days.index)
-    log: list[dict[str, Any]] = []
     keys = _group_keys(participants, parameters)
-    for position, index in enumerate(days.index):
-        if visit[index] is None:
-            log.append(_entry(keys[position], None, None, [days[index]],
-                              _unassigned_reason(days[index])))
+    log = [_entry(keys[position], None, None, [day], _unassigned_reason(day))
+           for position, day in enumerate(days.to_numpy(dtype=float)) if visit.iloc[position] is None]
     planned = {w.label: w.day for w in windows}
-    frame = pd.DataFrame({"key": keys, "visit": visit.to_numpy(), "day": days.to_numpy(dtype=float)},
-                         index=days.index)
+    frame = pd.DataFrame({"key": pd.Series(keys, index=days.index, dtype=object), "visit": visit,
+                          "day": days.astype(float), "position": np.arange(len(days))}, index=days.index)
     frame = frame[frame["visit"].notna()]
-    for (key, label), group in frame.groupby(["key", "visit"], sort=True):
-        winner, reason = _choose(group["day"], planned[label])
-        chosen[winner] = True
-        if len(group) > 1:
-            rejected = sorted(float(d) for i, d in group["day"].items() if i != winner)
-            log.append(_entry(key, label, float(group.at[winner, "day"]), rejected, reason))
+    frame["distance"] = (frame["day"] - frame["visit"].map(planned).astype(float)).abs()
+    # Closest first; among equally close, the later day, then the later row.
+    ranked = frame.sort_values(["distance", "day", "position"], ascending=[True, False, False], kind="stable")
+    winners = ranked.groupby(["key", "visit"], sort=False).head(1)
+    chosen = pd.Series(False, index=days.index)
+    chosen[winners.index] = True
+    sizes = frame.groupby(["key", "visit"], sort=False)["day"].transform("size")
+    contested = frame[sizes > 1]
+    for (key, label), group in contested.groupby(["key", "visit"], sort=True):
+        winner = group.index[chosen[group.index].to_numpy()][0]
+        log.append(_entry(key, label, float(group.at[winner, "day"]),
+                          sorted(float(d) for i, d in group["day"].items() if i != winner),
+                          _reason(group, winner, planned[label])))
     return WindowAssignment(visit, chosen, tuple(log))
 
 
@@ -79,14 +82,11 @@ def _window_of(day: float, windows: Sequence[Window]) -> str | None:
     return max(inside, key=lambda w: (-abs(day - w.day), w.day)).label
 
 
-def _choose(days: pd.Series, planned: float) -> tuple[Any, str]:
-    distance = (days - planned).abs()
-    closest = distance[distance == distance.min()]
-    if len(closest) == 1:
-        return closest.index[0], f"closest to planned day {planned:g}"
-    candidates = days[closest.index]
-    later = candidates[candidates == candidates.max()]
-    return later.index[-1], f"equally close to planned day {planned:g}; the later record wins"
+def _reason(group: pd.DataFrame, winner: Any, planned: float) -> str:
+    ties = (group["distance"] == group.at[winner, "distance"]).sum()
+    if ties == 1:
+        return f"closest to planned day {planned:g}"
+    return f"equally close to planned day {planned:g}; the later record wins"
 
 
 def _unassigned_reason(day: float) -> str:
