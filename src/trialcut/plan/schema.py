@@ -5,9 +5,9 @@ silently ignored setting.  Rules that span fields (the reference arm is one of t
 visits are in time order, an estimand names a known population, ...) collect every
 :class:`RuleIssue` they find, each with the path of the offending field relative to the
 model that checks it, and raise them together as one ``plan_rule`` error; the loader
-(:mod:`trialcut.plan.load`) turns each issue into its own located problem.  Allowed names of covariance structures,
-df methods and imputation assumptions come from :mod:`trialcut.stats.names`, the lists the
-engine dispatches on.
+(:mod:`trialcut.plan.load`) turns each issue into its own located problem.  Allowed names
+of covariance structures, df methods and imputation assumptions come from
+:mod:`trialcut.stats.names`, the lists the engine dispatches on.
 """
 from __future__ import annotations
 
