@@ -66,9 +66,10 @@ def rubin_pool(estimates, variances, complete_df: float | None = None,
     u = np.asarray(variances, dtype=float).ravel()
     _check(q, u, complete_df, conf_level)
     m = q.size
-    q_bar = float(q.mean())
-    u_bar = float(u.mean())
-    b = float(q.var(ddof=1))
+    identical = bool(np.all(q == q[0]))   # the mean of equal floats can miss them by one bit
+    q_bar = float(q[0]) if identical else float(q.mean())
+    u_bar = float(u[0]) if np.all(u == u[0]) else float(u.mean())
+    b = 0.0 if identical else float(q.var(ddof=1))
     total = u_bar + (1.0 + 1.0 / m) * b
     r = (1.0 + 1.0 / m) * b / u_bar if u_bar > 0 else math.inf
     lam = (1.0 + 1.0 / m) * b / total if total > 0 else 0.0
