@@ -339,8 +339,7 @@ def _fit_first_converging(design: Design, names, method, max_iterations, toleran
         likelihood = Likelihood(design.patterns, structures, reml=(method == "reml"))
         theta0 = np.concatenate([s.start(m) for s, m in zip(structures, moments)])
         try:
-            maximum = maximise(likelihood, theta0, max_iterations=max_iterations, tolerance=tolerance,
-                               structure_name=name)
+            maximum = maximise(likelihood, theta0, max_iterations=max_iterations, tolerance=tolerance)
         except ConvergenceError as error:
             attempts.append({"structure": name, "status": "rejected", "reason": str(error), "stage": "fit"})
             continue

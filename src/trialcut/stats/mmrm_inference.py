@@ -23,8 +23,8 @@ J = dpsi/dtheta, and d2Sigma/dpsi2 = 0), otherwise in the optimisation parameter
   are left out of E).
 * ``between_within``: the residual df split into a between-participant part (participants minus
   the number of columns constant within every participant, intercept included) and a
-  within-participant part (observations minus participants minus the remaining columns); a contrast
-  touching only between-participant columns gets the first, any other the second.
+  within-participant part (observations minus participants minus the remaining columns); each
+  column has the df of its part and a contrast gets the smallest df among the columns it touches.
 * ``residual``: observations minus the number of fixed effects, for every contrast.
 
 With ``robust=True`` the variance is the empirical sandwich Phi (sum_i X_i'V_i^-1 r_i r_i'V_i^-1 X_i) Phi
@@ -111,7 +111,7 @@ class Inference:
         if self.df_method == "residual":
             return float(self.df_residual)
         touched = np.abs(row) > 1e-12
-        return float(self.df_between if np.all(self.between[touched]) else self.df_within)
+        return float(np.min(np.where(self.between[touched], self.df_between, self.df_within)))
 
     # ----------------------------------------------------------------- joint tests
     def joint(self, contrast: np.ndarray) -> tuple[int, float, float, float]:

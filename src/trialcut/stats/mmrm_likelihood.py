@@ -177,19 +177,19 @@ class Maximum:
 
 
 def maximise(likelihood: Likelihood, theta0: np.ndarray, *, max_iterations: int = 100,
-             tolerance: float = 1e-8, structure_name: str = "") -> Maximum:
+             tolerance: float = 1e-8) -> Maximum:
     """Fisher scoring with step halving; Newton steps once the observed information is positive
     definite and the scaled gradient is small.  Converged when g' I^-1 g / 2 < tolerance and the
     observed information at the end is positive definite."""
     theta = np.asarray(theta0, float)
     current = _safe_evaluate(likelihood, theta, 2)
     if current is None:
-        raise ConvergenceError(f"{structure_name}: the likelihood cannot be evaluated at the starting values")
+        raise ConvergenceError(f"the likelihood cannot be evaluated at the starting values")
     decrement = np.inf
     for iteration in range(1, max_iterations + 1):
         direction, decrement = _direction(current, decrement)
         if decrement / 2 < tolerance:
-            return _finish(current, iteration - 1, decrement, tolerance, structure_name)
+            return _finish(current, iteration - 1, decrement)
         step, trial = 1.0, None
         for _ in range(40):
             trial = _safe_evaluate(likelihood, current.theta + step * direction, 0)
@@ -199,16 +199,16 @@ def maximise(likelihood: Likelihood, theta0: np.ndarray, *, max_iterations: int 
             trial = None
         if trial is None:
             if decrement / 2 < 1e3 * tolerance:
-                return _finish(current, iteration - 1, decrement, tolerance, structure_name)
-            raise ConvergenceError(f"{structure_name}: the line search found no increase of the likelihood "
+                return _finish(current, iteration - 1, decrement)
+            raise ConvergenceError(f"the line search found no increase of the likelihood "
                                    f"(iteration {iteration}, scaled gradient {decrement / 2:.3g})")
         current = _safe_evaluate(likelihood, current.theta + step * direction, 2)
         if current is None:
-            raise ConvergenceError(f"{structure_name}: the likelihood cannot be evaluated after iteration {iteration}")
+            raise ConvergenceError(f"the likelihood cannot be evaluated after iteration {iteration}")
     direction, decrement = _direction(current, decrement)
     if decrement / 2 < tolerance:
-        return _finish(current, max_iterations, decrement, tolerance, structure_name)
-    raise ConvergenceError(f"{structure_name}: no convergence in {max_iterations} iterations "
+        return _finish(current, max_iterations, decrement)
+    raise ConvergenceError(f"no convergence in {max_iterations} iterations "
                            f"(scaled gradient {decrement / 2:.3g}, tolerance {tolerance:g})")
 
 
@@ -224,12 +224,12 @@ def _direction(evaluation: Evaluation, previous_decrement: float) -> tuple[np.nd
     return direction, float(max(gradient @ direction, 0.0))
 
 
-def _finish(evaluation: Evaluation, iterations: int, decrement: float, tolerance: float, name: str) -> Maximum:
+def _finish(evaluation: Evaluation, iterations: int, decrement: float) -> Maximum:
     if not _is_positive_definite(-evaluation.hessian):
-        raise ConvergenceError(f"{name}: the gradient vanished but the observed information is not positive "
+        raise ConvergenceError(f"the gradient vanished but the observed information is not positive "
                                "definite (a saddle point or a flat direction)")
     if any(np.linalg.cond(sigma) > 1e12 for sigma in evaluation.sigmas):
-        raise ConvergenceError(f"{name}: the estimated covariance matrix is numerically singular")
+        raise ConvergenceError(f"the estimated covariance matrix is numerically singular")
     return Maximum(evaluation, True, iterations, float(np.abs(evaluation.gradient).max()), decrement / 2,
                    "converged")
 
