@@ -214,3 +214,14 @@ def test_a_rehearsal_claims_no_lock():
 
     status = LockStatus.unlocked()
     assert (status.locked, status.record, status.chain, status.summary()) == (False, None, (), None)
+
+
+def test_lock_times_are_utc(base_text, write_plan):
+    path = write_plan(base_text)
+    eastern = timezone(timedelta(hours=-5))
+    record = lock_plan(load_plan(path), by="A", reason="first", now=datetime(2026, 11, 30, 7, 0, 0, tzinfo=eastern))
+    assert record.locked_utc == "2026-11-30T12:00:00Z"
+    path.write_text(replace_once(base_text, "seed: 7", "seed: 8"), encoding="utf-8")
+    naive = lock_plan(load_plan(path), by="A", reason="second", now=datetime(2026, 12, 1, 8, 30, 0))
+    assert naive.locked_utc == "2026-12-01T08:30:00Z"      # a time without a zone is taken as UTC
+    assert sorted(p.name for p in path.parent.iterdir()) == ["plan.yaml", "plan.yaml.lock.json"]
