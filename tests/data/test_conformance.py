@@ -64,7 +64,7 @@ def test_arm_changing_within_a_participant():
     frame = _good()
     frame.loc[2, "TRT01P"] = "Active"
     problems, _ = _codes(frame)
-    assert problems["data.arm_constant"].got == "3 offending"     # all of S1's records are shown
+    assert problems["data.arm_constant"].got == "3 records"     # all of S1's records are shown
 
 
 def test_flags_other_than_y_n_blank():
@@ -87,7 +87,7 @@ def test_out_of_range_value_and_change():
     frame.loc[1, "AVAL"] = 61
     frame.loc[4, "CHG"] = -70                          # below 0 - 60
     problems, _ = _codes(frame)
-    assert problems["data.value_range"].got == "2 offending"
+    assert problems["data.value_range"].got == "2 records"
     assert "score: 0 to 60" in problems["data.value_range"].hint
 
 
@@ -117,7 +117,7 @@ def test_without_windowing_unknown_visits_and_repeated_visits_are_errors():
     frame = appended(_good(), [record("S1", "Placebo", "Week 3", 22, 27), record("S2", "Active", "Week 4", 31, 29)])
     problems, _ = _codes(frame, plan)
     assert "'Week 3'" in problems["data.known_visits"].message
-    assert problems["data.one_record_per_visit"].got == "2 offending"
+    assert problems["data.one_record_per_visit"].got == "2 records"
 
 
 def test_without_windowing_days_are_not_needed():
@@ -201,3 +201,8 @@ def test_categorical_columns_from_a_typed_file_are_plain_values(plan):
     frame = _good().astype({"TRT01P": "category", "USUBJID": "category", "AVISIT": "category"})
     cut = prepare_cut(plan, raw(frame))
     assert cut.analysis_data("score", "policy").frame["CHG"].notna().sum() == 4
+
+
+def test_counts_name_their_unit():
+    problems, _ = _codes(_good().drop(columns="FASFL"))
+    assert problems["data.required_columns"].got == "1 column"

@@ -47,6 +47,7 @@ class Check:
     rows: tuple[dict[str, Any], ...] = ()
     field: str | None = None
     hint: str | None = None
+    unit: str = "records"             # what ``count`` counts: records, participants, columns, visits
 
     @property
     def failed(self) -> bool:
@@ -82,7 +83,7 @@ class ConformanceReport:
     def problems(self, severity: str = "error") -> list[Problem]:
         failed = self.errors if severity == "error" else self.warnings
         return [Problem(code=f"data.{c.id}", message=c.description, file=self.file, field=c.field,
-                        got=f"{c.count} offending", hint=c.hint,
+                        got=f"{c.count} {_unit(c)}", hint=c.hint,
                         rows=tuple(_row_text(r) for r in c.rows)) for c in failed]
 
 
@@ -93,6 +94,10 @@ class CheckedCut:
     records: pd.DataFrame
     report: ConformanceReport
     derivations: tuple[dict[str, Any], ...]
+
+
+def _unit(check: Check) -> str:
+    return check.unit[:-1] if check.count == 1 and check.unit.endswith("s") else check.unit
 
 
 def _row_text(row: dict[str, Any]) -> str:
@@ -150,14 +155,15 @@ class _State:
 
     def record(self, check_id: str, description: str, severity: str, mask: pd.Series | None = None,
                *, count: int | None = None, field: str | None = None, hint: str | None = None,
-               value_column: str | None = None, rows: tuple[dict[str, Any], ...] | None = None) -> None:
+               value_column: str | None = None, rows: tuple[dict[str, Any], ...] | None = None,
+               unit: str = "records") -> None:
         if mask is None and count is None:
-            self.checks.append(Check(check_id, description, severity, "not_run", 0, (), field, hint))
+            self.checks.append(Check(check_id, description, severity, "not_run", 0, (), field, hint, unit))
             return
         found = int(mask.sum()) if count is None else count
         shown = rows if rows is not None else (self.offending(mask, value_column) if found else ())
         status = "failed" if found else "passed"
-        self.checks.append(Check(check_id, description, severity, status, found, shown, field, hint))
+        self.checks.append(Check(check_id, description, severity, status, found, shown, field, hint, unit))
 
 
 def _value_text(value: Any) -> str | None:
@@ -215,7 +221,7 @@ def _check_required(state: _State) -> None:
     if absent:
         description = "columns the plan needs that are missing: " + ", ".join(
             f"{n} ({needed[n]})" for n in absent)
-    state.record("required_columns", description, "error", count=len(absent),
+    state.record("required_columns", description, "error", count=len(absent), unit="columns",
                  field=", ".join(absent) or None,
                  hint="add the columns to the export, or map them in the plan's 'columns' section",
                  rows=())
@@ -597,7 +603,7 @@ def _check_baseline_present(state: _State) -> None:
     lacking = pd.Series(merged["__has"].isna().to_numpy(), index=state.work.index)
     first_each = lacking & ~state.work.duplicated(subset=keys)
     state.record("baseline_present", "participants without a baseline value (their change cannot be computed)",
-                 "warning", first_each, field=cols.baseline or cols.value,
+                 "warning", first_each, field=cols.baseline or cols.value, unit="participants",
                  hint="their outcomes are left missing; check the baseline records in the export")
 
 
@@ -615,7 +621,7 @@ def _check_post_baseline(state: _State) -> None:
     lacking = pd.Series(merged["__has"].isna().to_numpy(), index=state.work.index)
     first_each = lacking & ~state.work.duplicated(subset=keys)
     state.record("post_baseline_present", "participants without post-baseline data at any analysis visit",
-                 "warning", first_each, hint="they add nothing to a repeated-measures fit; check whether data are expected")
+                 "warning", first_each, unit="participants", hint="they add nothing to a repeated-measures fit; check whether data are expected")
 
 
 def _check_event_timing(state: _State) -> None:
@@ -627,7 +633,7 @@ def _check_event_timing(state: _State) -> None:
     cannot = bool(undated) and not state.has(state.columns.study_day)
     state.record("event_timing", "visits that cannot be placed before or after intercurrent events"
                  + (f": {', '.join(undated)}" if cannot else ""), "warning",
-                 count=len(undated) if cannot else 0, rows=(), field=state.columns.study_day,
+                 count=len(undated) if cannot else 0, rows=(), field=state.columns.study_day, unit="visits",
                  hint="give the visits a planned 'day' in the plan or add the study day column; "
                       "until then events never affect these visits")
 
