@@ -392,6 +392,12 @@ def _assemble(design: Design, settings, name, likelihood: Likelihood, maximum: M
     counted = n_theta + (p if likelihood.reml is False else 0)
     loglik = evaluation.loglik
     notes = [str(w.message) for w in caught] + inference.notes
+    notes += _non_finite_notes("fixed effects", design.term_names, np.column_stack(fixed))
+    notes += _non_finite_notes("marginal means", [f"{a} at {v}" for a, v in labels], np.column_stack(means))
+    notes += _non_finite_notes("differences", [f"{a} at {v}" for a, _, v in difference_labels],
+                               np.column_stack(differences))
+    notes += _non_finite_notes("joint tests", [row[0] for row in joint_rows],
+                               np.array([row[1:] for row in joint_rows], float).reshape(-1, 4))
     if design.excluded_subjects:
         notes.append(f"{len(design.excluded_subjects)} participant(s) with no observed outcome left out of the fit")
     structures = likelihood.structures
@@ -412,6 +418,21 @@ def _assemble(design: Design, settings, name, likelihood: Likelihood, maximum: M
         fixed_effect_rows=np.column_stack(fixed), mean_rows=mean_rows, difference_rows=difference_rows,
         joint_rows=joint_rows, residual_columns=_residual_columns(design, evaluation))
     return MMRMFit(**{key: _readonly(value) if key in ARRAY_FIELDS else value for key, value in fields_.items()})
+
+
+def _non_finite_notes(table: str, labels, values: np.ndarray) -> list[str]:
+    """Say why a number is missing or infinite, so that no NaN appears unexplained."""
+    notes = []
+    infinite = [label for label, row in zip(labels, values) if np.isinf(row).any()]
+    missing = [label for label, row in zip(labels, values) if np.isnan(row).any()]
+    if infinite:
+        notes.append(f"{table}: infinite degrees of freedom for {', '.join(map(str, infinite[:5]))} (the variance "
+                     "does not depend on the covariance parameters), so the normal distribution is used; "
+                     "to_dict writes them as null")
+    if missing:
+        notes.append(f"{table}: some values of {', '.join(map(str, missing[:5]))} could not be computed "
+                     "(zero or negative variance or degrees of freedom)")
+    return notes
 
 
 def _joint_contrasts(design: Design) -> dict[str, np.ndarray]:

@@ -68,6 +68,9 @@ class Inference:
         self.df_between = design.n_subjects - n_between
         self.df_within = design.n_obs - design.n_subjects - (p - n_between)
         self.df_residual = design.n_obs - p
+        if df_method == "between_within" and min(self.df_between, self.df_within) <= 0:
+            self.notes.append(f"between-within degrees of freedom are not positive (between {self.df_between}, "
+                              f"within {self.df_within}): too few participants or outcomes for this method")
         if robust and df_method != "residual":
             self.notes.append(f"robust variance: standard errors are the empirical sandwich; degrees of freedom "
                               f"({df_method}) are those of the model-based analysis")
