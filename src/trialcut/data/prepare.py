@@ -37,6 +37,7 @@ from trialcut.errors import PlanError, Problem
 
 SOURCE_ROW = "source_row"
 VISIT_COLLECTED = "visit_collected"
+ROLE_COLUMN = "record_role"          # "baseline" or "post" in DataCut.records
 DEFAULT_REASON_COLUMN = "DCSREAS"
 
 
@@ -66,6 +67,15 @@ class AnalysisData:
 
 @dataclass(frozen=True)
 class DataCut:
+    """A checked, derived data cut: everything the runner needs, nothing mutable on purpose.
+
+    ``records``: the baseline record and the analysed record per participant and visit
+    (see the module notes); ``subjects``: one row per participant (arm, strata, population
+    flags, event days, the reason for leaving the study when the cut has one, and every
+    other column constant within participants); ``conformance``: every check;
+    ``derivations``: every choice made (windows, derived values, dummy arms).
+    """
+
     plan: Any
     manifest: dict[str, Any]
     records: pd.DataFrame
@@ -191,8 +201,6 @@ class DataCut:
         return values.set_index(cols.subject)[baseline]
 
 
-ROLE_COLUMN = "record_role"
-
 
 def _find(items, item_id: str, kind: str):
     for item in items:
@@ -223,43 +231,46 @@ def _baseline_column(plan) -> str:
 # --------------------------------------------------------------------------- intercurrent events
 def _apply_events(plan, estimand, frame: pd.DataFrame, outcome: str,
                   visit_days: dict[str, float | None]) -> pd.DataFrame:
-    cols = plan.columns
-    frame = frame.copy()
+    """Name the governing event of each visit and apply its strategy to the outcome."""
     strategies = {h.event: h for h in estimand.intercurrent_events} if estimand else {}
-    day = _visit_study_day(frame, cols, visit_days)
-    governing = np.full(len(frame), None, dtype=object)
-    strategy = np.full(len(frame), None, dtype=object)
-    decided = np.zeros(len(frame), dtype=bool)   # governed by an outcome-changing event
-    events = [e for e in plan.intercurrent_events if e.day_column in frame.columns]
-    # Earliest event first, per row: sort the events by their day row by row.
-    event_days = np.column_stack([frame[e.day_column].astype(float).to_numpy() for e in events]) if events \
-        else np.zeros((len(frame), 0))
-    order = np.argsort(np.where(np.isnan(event_days), np.inf, event_days), axis=1, kind="stable")
-    for rank in range(len(events)):
-        pick = order[:, rank] if len(frame) else np.array([], dtype=int)
-        for position, index in enumerate(pick):
-            event = events[index]
-            event_day = event_days[position, index]
-            if np.isnan(event_day) or not (event_day <= day[position]) or decided[position]:
-                continue
-            handling = strategies.get(event.id)
-            changes = handling is not None and handling.strategy in ("hypothetical", "composite")
-            if governing[position] is None or changes:
-                governing[position] = event.id
-                strategy[position] = handling.strategy if handling else None
-                decided[position] = changes
+    governing, strategy = _governing_events(plan, strategies, frame, _visit_study_day(frame, plan.columns, visit_days))
+    frame = frame.copy()
     frame["intercurrent_event"] = governing
     frame["strategy"] = strategy
-    values = frame[outcome].astype(float)
     hypothetical = frame["strategy"].eq("hypothetical").to_numpy()
-    frame["outcome_set_missing"] = hypothetical & values.notna().to_numpy()
+    frame["outcome_set_missing"] = hypothetical & frame[outcome].notna().to_numpy()
     frame.loc[hypothetical, outcome] = np.nan
     composite = frame["strategy"].eq("composite").to_numpy()
-    composite_values = frame["intercurrent_event"].map(
+    values = frame["intercurrent_event"].map(
         {e: h.composite_value for e, h in strategies.items() if h.strategy == "composite"})
-    frame.loc[composite, outcome] = composite_values[composite].astype(float)
+    frame.loc[composite, outcome] = values[composite].astype(float)
     frame["outcome_set_composite"] = composite
     return frame
+
+
+def _governing_events(plan, strategies: dict[str, Any], frame: pd.DataFrame,
+                      visit_day: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Per row: the earliest outcome-changing event on or before the visit, else the earliest event."""
+    events = [e for e in plan.intercurrent_events if e.day_column in frame.columns]
+    governing = np.full(len(frame), None, dtype=object)
+    strategy = np.full(len(frame), None, dtype=object)
+    if not events:
+        return governing, strategy
+    days = np.column_stack([frame[e.day_column].astype(float).to_numpy() for e in events])
+    happened = ~np.isnan(days) & (days <= visit_day[:, None])
+    changes = np.array([e.id in strategies and strategies[e.id].strategy in ("hypothetical", "composite")
+                        for e in events])
+    for position in range(len(frame)):
+        candidates = np.flatnonzero(happened[position])
+        if not len(candidates):
+            continue
+        deciding = candidates[changes[candidates]]
+        pool = deciding if len(deciding) else candidates
+        chosen = events[pool[np.argmin(days[position, pool])]]      # earliest; ties: plan order
+        governing[position] = chosen.id
+        handling = strategies.get(chosen.id)
+        strategy[position] = handling.strategy if handling else None
+    return governing, strategy
 
 
 def _visit_study_day(frame: pd.DataFrame, cols, visit_days: dict[str, float | None]) -> np.ndarray:
