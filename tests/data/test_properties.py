@@ -80,3 +80,20 @@ def test_prepare_cut_raises_only_data_errors(changes, as_text, windowing):
         # What a CSV reader hands over: every cell text, missing as NaN.
         frame = frame.map(lambda v: v if v is None or (isinstance(v, float) and np.isnan(v)) else str(v))
     _exercise(frame, typed=not as_text, windowing=windowing)
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.sampled_from([".csv", ".json", ".parquet"]),
+       st.one_of(st.binary(max_size=200),
+                 st.text(alphabet='USBJIDAVL,\n"{}[]:0123456789.- ', max_size=200).map(str.encode)))
+def test_read_cut_raises_only_data_errors_on_arbitrary_bytes(tmp_path_factory, suffix, content):
+    from trialcut.data.readers import read_cut
+
+    path = tmp_path_factory.mktemp("bytes") / f"cut{suffix}"
+    path.write_bytes(content)
+    try:
+        raw = read_cut(path)
+    except DataError as error:
+        assert error.problems and error.problems[0].file == str(path)
+        return
+    assert raw.manifest["rows"] == len(raw.frame) > 0

@@ -161,3 +161,13 @@ def test_missing_file(tmp_path):
     with pytest.raises(DataError) as caught:
         read_cut(tmp_path / "absent.csv")
     assert caught.value.problems[0].code == "data.not_found"
+
+
+def test_dataset_json_version_1_0_layout_is_named(tmp_path):
+    # v1.0 kept rows under clinicalData/itemGroupData (from memory of the v1.0 specification).
+    path = tmp_path / "cut.json"
+    path.write_text(json.dumps({"creationDateTime": "2026-01-01T00:00:00", "datasetJSONVersion": "1.0.0",
+                                "clinicalData": {"itemGroupData": {}}}))
+    with pytest.raises(DataError) as caught:
+        read_cut(path)
+    assert caught.value.problems[0].code == "data.dataset_json_version"

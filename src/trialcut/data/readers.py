@@ -185,6 +185,10 @@ def _dataset_json_structure(document: Any) -> list[dict[str, Any]]:
     if not isinstance(document, dict):
         return [dict(code="data.dataset_json_structure", message="the top level is not a JSON object",
                      expected="an object with 'columns' and 'rows'", got=type(document).__name__)]
+    if "clinicalData" in document or "referenceData" in document:
+        return [dict(code="data.dataset_json_version", message="this is Dataset-JSON v1.0, which is not read",
+                     expected="Dataset-JSON v1.1 (top-level 'columns' and 'rows')", got="v1.0 layout",
+                     hint="export the cut again as Dataset-JSON v1.1, or as CSV or Parquet")]
     problems = []
     missing = [k for k in _REQUIRED_TOP_LEVEL if k not in document]
     if missing:
