@@ -163,6 +163,52 @@ def test_rules_across_fields_point_at_the_field(base_text, write_plan, old, new,
     assert problems[0].line is not None and problems[0].column is not None
 
 
+MULTIPLICITY = ("seed: 7\nmultiplicity:\n  method: graphical\n  hypotheses:\n"
+                "    - {id: high, analysis: mmrm_primary, arm: Lorvatide 20 mg, visit: Week 12}\n"
+                "    - {id: low, analysis: mmrm_primary, arm: Lorvatide 10 mg, visit: Week 12}\n"
+                "  transitions: [[0, 1], [1, 0]]\n")
+
+
+@pytest.mark.parametrize("old, new, field, fragment", [
+    ("seed: 7", MULTIPLICITY.replace("arm: Lorvatide 10 mg", "arm: Placebo"), "multiplicity.hypotheses[low].arm",
+     "not a non-reference arm"),
+    ("seed: 7", MULTIPLICITY.replace("analysis: mmrm_primary, arm: Lorvatide 10", "analysis: mmrm_main, arm: Lorvatide 10"),
+     "multiplicity.hypotheses[low].analysis", "not declared"),
+    ("seed: 7", MULTIPLICITY.replace("[[0, 1], [1, 0]]", "[[0, 1]]"), "multiplicity.transitions", "square matrix"),
+    ("seed: 7", MULTIPLICITY.replace("[[0, 1], [1, 0]]", "[[0, 1], [0.5, 0.5]]"), "multiplicity.transitions[1]",
+     "0 on the diagonal"),
+    ("visits: primary", "visits: [Week 12, Week 14]",
+     "endpoints[fbs_change].analyses.sensitivity[ancova_observed].options.visits[1]", "not a scheduled visit"),
+    ("          method: ancova\n          estimand: primary\n", "          method: ancova\n",
+     "endpoints[fbs_change].analyses.sensitivity[ancova_observed]", "neither an estimand nor a population"),
+    ("        - id: ancova_observed", "        - id: mmrm_primary",
+     "endpoints[fbs_change].analyses.sensitivity[mmrm_primary].id", "used twice"),
+    ("  - id: full_analysis\n    label: Full analysis set\n    flag: FASFL\n",
+     "  - id: full_analysis\n    label: Full analysis set\n    flag: FASFL\n  - id: full_analysis\n    label: Again\n",
+     "populations[full_analysis].id", "used twice"),
+    ("{label: Week 2, order: 1, day: 15, window: 4}", "{label: Week 2, order: 1, day: 15}",
+     "visits.schedule[Week 2]", "windowing needs a planned 'window'"),
+    ("{label: Week 8, order: 3, day: 57", "{label: Week 8, order: 3, day: 20", "visits.schedule[Week 8].day",
+     "planned days must increase"),
+])
+def test_more_rules_point_at_the_field(base_text, write_plan, old, new, field, fragment):
+    problems, rendered = problems_of(write_plan(replace_once(base_text, old, new)))
+    assert [p.field for p in problems] == [field], rendered
+    assert fragment in problems[0].message and problems[0].line is not None
+
+
+def test_imputation_shifts_need_one_value_per_visit_and_known_arms(base_text, write_plan):
+    analysis = ("        - id: mi_shifted\n          label: Shifted imputation\n"
+                "          method: multiple_imputation\n          estimand: primary\n"
+                "          options: {delta: [1, 2], delta_arms: [Lorvatide 30 mg]}\n")
+    problems, rendered = problems_of(write_plan(base_text.replace("seed: 7", "").rstrip("\n") + "\n" + analysis))
+    assert [(p.field, p.code) for p in problems] == [
+        ("endpoints[fbs_change].analyses.sensitivity[mi_shifted].options.delta", "plan.delta_length"),
+        ("endpoints[fbs_change].analyses.sensitivity[mi_shifted].options.delta_arms[0]", "plan.unknown_arm"),
+    ], rendered
+    assert problems[0].expected == "4 values" and problems[1].hint.startswith("did you mean 'Lorvatide")
+
+
 def test_every_cross_reference_mistake_at_once(base_text, write_plan):
     text = replace_once(base_text, "population: full_analysis", "population: everyone")
     text = replace_once(text, "primary_visit: Week 12", "primary_visit: Week 13")
