@@ -285,8 +285,9 @@ AUDIT_TITLES = {
 }
 
 
-def _audit_part(section: "Section", key: str, value: Any, number_format: NumberFormat) -> None:
-    title = AUDIT_TITLES.get(key, key.replace("_", " ").capitalize())
+def _audit_part(section: "Section", key: str, value: Any, number_format: NumberFormat,
+                title: str | None = None) -> None:
+    title = title or AUDIT_TITLES.get(key, key.replace("_", " ").capitalize())
     slug = f"audit_{key}"
     if isinstance(value, Mapping):
         scalars = [(str(k), v, _kind_of(v)) for k, v in value.items() if not isinstance(v, (Mapping, list))]
@@ -294,7 +295,8 @@ def _audit_part(section: "Section", key: str, value: Any, number_format: NumberF
             section.table(facts_table(scalars, slug=slug, title=title, number_format=number_format))
         for inner_key, inner in value.items():
             if isinstance(inner, (Mapping, list)):
-                _audit_part(section, f"{key}_{inner_key}", inner, number_format)
+                _audit_part(section, f"{key}_{inner_key}", inner, number_format,
+                            title=AUDIT_TITLES.get(inner_key) or f"{title}: {str(inner_key).replace('_', ' ')}")
     elif isinstance(value, list) and value and all(isinstance(v, Mapping) for v in value):
         columns: list[str] = []
         for entry in value:
