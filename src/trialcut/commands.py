@@ -29,10 +29,23 @@ def command_check(args) -> int:
     plan = loaded.plan
     console.print(f"[green]ok[/green] {args.plan}: plan {plan.version} of study {plan.study.id}")
     console.print(f"  canonical hash {loaded.canonical_hash}")
+    console.print(f"  lock: {_lock_line(loaded)}")
     for endpoint in plan.endpoints:
         names = [endpoint.analyses.primary.id] + [a.id for a in endpoint.analyses.sensitivity]
         console.print(f"  endpoint {endpoint.id}: {len(names)} analyses ({', '.join(names)})")
     return 0
+
+
+def _lock_line(loaded) -> str:
+    from trialcut.errors import LockError
+    from trialcut.plan.lock import check_lock
+
+    try:
+        summary = check_lock(loaded).summary()
+    except LockError as error:
+        return f"not usable for a locked run — {error}"
+    return (f"locked at {summary['locked_utc']} by {summary['locked_by']} ({summary['reason']}); "
+            f"{len(summary['amendments'])} lock record(s)")
 
 
 def command_schema(args) -> int:
@@ -132,8 +145,8 @@ def _lock_state(loaded, unlocked: bool) -> dict[str, Any]:
         if not unlocked:
             raise
         return {"status": "unlocked", "reason": str(error), "record": None, "chain": []}
-    return {"status": "locked", "reason": None, "record": _plain(_field(status, "record")),
-            "chain": _plain(_field(status, "chain", default=[]))}
+    summary = status.summary()
+    return {"status": "locked", "reason": None, "record": summary, "chain": summary["amendments"]}
 
 
 def _plan_block(loaded, lock: dict[str, Any]) -> dict[str, Any]:
