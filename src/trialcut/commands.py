@@ -129,7 +129,7 @@ def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: P
         "executor": {"workers": workers, "scheduler": scheduler},
         "lock": lock, "warnings": results["warnings"], "steps": timer.steps,
         "plan_problems": [], "conformance_problems": [c for c in results["conformance"].get("checks", [])
-                                                      if c.get("status") != "pass"],
+                                                      if c.get("status") == "failed"],
     }
     folder = _record(out_root, plan, cut_label, run_id, results, audit, loaded, raw, cut)
     return folder, folder / "report.html"
@@ -300,7 +300,7 @@ def _read_results(run_folder: Path) -> dict[str, Any]:
 
 # --------------------------------------------------------------------------- demo
 def command_demo(args) -> int:
-    from trialcut.data.simulate import demo_cuts
+    from trialcut.data.simulate import demo_cuts, write_csv
     from trialcut.plan.load import load_plan
     from trialcut.plan.lock import check_lock, lock_plan
 
@@ -314,7 +314,7 @@ def command_demo(args) -> int:
     paths = {}
     for label, frame in cuts.items():
         paths[label] = data_dir / f"{label}.csv"
-        frame.to_csv(paths[label], index=False)
+        write_csv(frame, paths[label])
         console.print(f"  wrote {paths[label]} ({len(frame)} records)")
     plan_path = plan_dir / "demo.yaml"
     source = _repo_file("analysis_plans/demo.yaml")
