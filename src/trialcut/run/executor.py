@@ -92,6 +92,10 @@ class DaskExecutor(_Closing):
 
         return _collect(futures, as_completed, progress)
 
+    def preload(self, *modules: str) -> None:
+        """Import modules on every worker now, so the first batch does not pay for it."""
+        self._ensure().run(_import_quietly, list(modules))
+
     def close(self) -> None:
         if self._client is not None:
             self._client.close()
@@ -99,6 +103,13 @@ class DaskExecutor(_Closing):
         if self._cluster is not None:
             self._cluster.close()
             self._cluster = None
+
+
+def _import_quietly(modules: list[str]) -> None:
+    import importlib
+
+    for name in modules:
+        importlib.import_module(name)
 
 
 def _collect(futures: list, as_completed, progress: Progress | None) -> list:
