@@ -73,6 +73,11 @@ def _fail(problems: list[Problem]) -> None:
         raise ModelSpecificationError("; ".join(p.render() for p in problems), problems)
 
 
+def _scalar(value: Any) -> Any:
+    """Labels as plain Python values (numpy scalars would leak into results)."""
+    return value.item() if isinstance(value, np.generic) else value
+
+
 def _is_categorical(series: pd.Series) -> bool:
     return not pd.api.types.is_numeric_dtype(series) or pd.api.types.is_bool_dtype(series)
 
@@ -152,7 +157,7 @@ def build_design(data: pd.DataFrame, *, outcome: str, subject: str, visit: str, 
             visits = [v for v in frame[visit].cat.categories if v in present]
         else:
             visits = list(pd.unique(frame[visit].dropna()))
-    visits = tuple(visits)
+    visits = tuple(_scalar(v) for v in visits)
     if len(set(visits)) != len(visits):
         problems.append(Problem("mmrm.duplicate_visit_label", "visits lists a visit twice", field="visits",
                                 got=repr(visits)))
@@ -182,11 +187,11 @@ def build_design(data: pd.DataFrame, *, outcome: str, subject: str, visit: str, 
                                     field=column, rows=tuple(varying.index[varying][:5])))
     _fail(problems)
 
-    arms = (reference,) + tuple(a for a in _levels(observed[arm]) if a != reference)
+    arms = (_scalar(reference),) + tuple(_scalar(a) for a in _levels(observed[arm]) if a != reference)
     if len(arms) < 2:
         _fail([Problem("mmrm.one_arm", f"column '{arm}' has only the reference arm among observed outcomes",
                        field=arm, expected="at least two arms", got=repr(arms))])
-    groups = tuple(_levels(observed[covariance_by])) if covariance_by else (None,)
+    groups = tuple(_scalar(g) for g in _levels(observed[covariance_by])) if covariance_by else (None,)
     times = _visit_times(visits, visit_times)
 
     subject_codes, subject_labels = pd.factorize(observed[subject], sort=True)
