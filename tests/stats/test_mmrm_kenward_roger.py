@@ -124,3 +124,37 @@ def test_satterthwaite_uses_the_unadjusted_variance(long_frame):
     for k, row in enumerate(fit.fixed_effects.itertuples()):
         contrast = np.eye(len(phi))[k]
         assert row.df == pytest.approx(_one_df(contrast, phi, phi, w, p_i), rel=1e-7), row.term
+
+
+def _scaled_f(contrast, beta, phi, phi_a, w, p_i):
+    """Kenward & Roger (1997) section 3: lambda F ~ F(l, m), written out as in the paper."""
+    l = contrast.shape[0]
+    theta = contrast.T @ np.linalg.inv(contrast @ phi_a @ contrast.T) @ contrast
+    f_value = beta @ theta @ beta / l
+    q = len(p_i)
+    a1 = sum(w[i, j] * np.trace(theta @ phi @ p_i[i] @ phi) * np.trace(theta @ phi @ p_i[j] @ phi)
+             for i in range(q) for j in range(q))
+    a2 = sum(w[i, j] * np.trace(theta @ phi @ p_i[i] @ phi @ theta @ phi @ p_i[j] @ phi)
+             for i in range(q) for j in range(q))
+    b = (a1 + 6 * a2) / (2 * l)
+    g = ((l + 1) * a1 - (l + 4) * a2) / ((l + 2) * a2)
+    c1, c2, c3 = g / (3 * l + 2 * (1 - g)), (l - g) / (3 * l + 2 * (1 - g)), (l + 2 - g) / (3 * l + 2 * (1 - g))
+    e_star = 1 / (1 - a2 / l)
+    v_star = (2 / l) * (1 + c1 * b) / ((1 - c2 * b) ** 2 * (1 - c3 * b))
+    rho = v_star / (2 * e_star ** 2)
+    m = 4 + (l + 2) / (l * rho - 1)
+    return m / (e_star * (m - 2)) * f_value, m
+
+
+def test_scaled_f_of_the_interaction(long_frame):
+    fit = tc.fit_mmrm(long_frame, covariance="ar1", df="kenward_roger", **ROLES)
+    structure = make_structure("ar1", len(VISITS))
+    phi, phi_a, w, p_i = _kenward_roger(*_dense(long_frame, structure.derivatives(
+        np.array(fit.covariance_parameters), order=2)))
+    names = list(fit.term_names)
+    contrast = np.eye(len(names))[[names.index(f"arm[BtheB]:visit[{v}]") for v in VISITS[1:]]]
+    f_value, den_df = _scaled_f(contrast, np.array(fit.coefficients), phi, phi_a, w, p_i)
+    row = fit.joint_tests().set_index("term").loc["arm_by_visit"]
+    assert row.num_df == 3
+    assert row.F == pytest.approx(f_value, rel=1e-7)
+    assert row.den_df == pytest.approx(den_df, rel=1e-7)
