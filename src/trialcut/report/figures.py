@@ -250,11 +250,12 @@ def tipping_chart(cells: Sequence[Mapping[str, Any]], *, arms: Sequence[str], al
             axes.set_title(arm, fontsize=8.5, color=INK)
             axes.spines[:].set_visible(False)
         panels[0].set_ylabel("Shift added in the reference arm")
-        figure.legend(handles=[Patch(color=significant, label=f"p < {alpha:g}"),
-                               Patch(color=lost, label=f"p ≥ {alpha:g}")],
-                      loc="upper right", ncols=2, fontsize=8)
+        figure.legend(handles=[Patch(color=significant, label=f"still significant (p < {alpha:g})"),
+                               Patch(color=lost, label=f"no longer significant (p ≥ {alpha:g})")],
+                      loc="lower center", ncols=2, fontsize=8, bbox_to_anchor=(0.5, 0.0))
+        figure.subplots_adjust(bottom=0.3, left=0.12)
 
-    return _draw(draw, height=3.0, layout=None)
+    return _draw(draw, height=3.2, layout=None)
 
 
 def forest_chart(rows: Sequence[Mapping[str, Any]], *, arms: Sequence[str], x_label: str) -> bytes:

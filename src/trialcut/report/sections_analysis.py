@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import math
+import re
 from typing import TYPE_CHECKING, Any, Mapping, Sequence
 
 import numpy as np
@@ -31,6 +32,8 @@ DF_WORDS = {
     "kenward_roger": "Kenward–Roger", "kenward_roger_linear": "Kenward–Roger (linear covariance)",
     "satterthwaite": "Satterthwaite", "between_within": "between–within", "residual": "residual",
 }
+METHOD_SHORT = {"mmrm": "MMRM", "ancova": "ANCOVA", "multiple_imputation": "Multiple imputation",
+                "tipping_point": "Tipping point"}
 ASSUMPTION_WORDS = {
     "mar": "missing at random", "jump_to_reference": "jump to reference", "copy_reference": "copy reference",
     "copy_increments_in_reference": "copy increments in reference",
@@ -87,7 +90,10 @@ class EndpointContext:
 
     @property
     def y_label(self) -> str:
-        return self.label
+        """Short enough for an axis: the kind of value and the unit in the label's last brackets."""
+        unit = re.search(r"\(([^()]*)\)\s*$", self.label)
+        kind = "Change from baseline" if self.analysed == "change" else "Value"
+        return f"{kind} ({unit.group(1)})" if unit else kind
 
 
 def _levels(endpoint, column: str) -> list[str]:
@@ -391,12 +397,16 @@ def sensitivity(section: "Section", context: EndpointContext, primary, others: S
         section.paragraph(
             f"The primary estimate and every sensitivity estimate at {context.primary_visit}, side by side. "
             "Each row reads its analysis' table of differences from the reference arm.")
-        section.table(from_records(rows, ("label", "method", "arm", "estimate", "se", "lower", "upper", "p"),
-                                   slug=f"{context.slug}_estimates_summary",
-                                   title=f"Estimated difference from {context.reference} at {context.primary_visit}, "
-                                         "all analyses",
-                                   number_format=context.number_format,
-                                   labels={"label": "Analysis", "method": "Method"}))
+        summary = from_records(rows, ("label", "method", "arm", "estimate", "se", "lower", "upper", "p"),
+                               slug=f"{context.slug}_estimates_summary",
+                               title=f"Estimated difference from {context.reference} at {context.primary_visit}, "
+                                     "all analyses",
+                               number_format=context.number_format,
+                               labels={"label": "Analysis", "method": "Method"})
+        section.table(from_results_table({"columns": list(summary.columns), "data": list(summary.rows)},
+                                         slug=summary.slug, title=summary.title, number_format=context.number_format,
+                                         labels={"label": "Analysis", "method": "Method"},
+                                         intervals={"Confidence interval": ("lower", "upper")}))
         section.figure(_figure(
             "forest", f"Estimates at {context.primary_visit} from every analysis",
             f"Forest plot of {len(rows)} estimated differences from {context.reference} at "
@@ -424,7 +434,7 @@ def _estimates_at_primary_visit(context: EndpointContext, analyses) -> list[dict
         for row in rows_as_dicts(differences):
             if row.get("visit") in (context.primary_visit, None) and row.get("estimate") is not None:
                 rows.append({"label": analysis.get("label") or analysis.get("id"),
-                             "method": METHOD_WORDS.get(analysis.get("method"), str(analysis.get("method"))),
+                             "method": METHOD_SHORT.get(analysis.get("method"), str(analysis.get("method"))),
                              "arm": row.get("arm"), "estimate": row.get("estimate"), "se": row.get("se"),
                              "lower": row.get("lower"), "upper": row.get("upper"), "p": row.get("p")})
     return rows
@@ -479,9 +489,13 @@ def tipping_point(section: "Section", context: EndpointContext, analysis) -> Non
     cells = rows_as_dicts(grid)
     for line in _tipping_statements(cells, alpha, context.number_format):
         section.paragraph(line)
-    section.table(from_results_table(grid, slug=f"{context.slug}_tipping_grid",
-                                     title="Tipping-point grid: estimate and p-value for each shift",
-                                     number_format=context.number_format,
+    visits = {c.get("visit") for c in cells}
+    hidden = ("visit",) if len(visits) == 1 else ()
+    title = "Tipping-point grid: estimate and p-value for each shift"
+    if hidden:
+        title += f" (at {visits.pop()})"
+    section.table(from_results_table(grid, slug=f"{context.slug}_tipping_grid", title=title, hide=hidden,
+                                     number_format=context.number_format, wide=True,
                                      intervals={"Confidence interval": ("lower", "upper")}))
     for name, source in tables.items():
         if name != grid_name:

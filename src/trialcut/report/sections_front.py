@@ -217,6 +217,8 @@ def multiplicity(section: "Section", results: Mapping[str, Any], number_format: 
     if method == "none" or not hypotheses:
         section.paragraph("The plan declares no adjustment for multiple comparisons; p-values are unadjusted.")
         return
+    method = {"holm": "Holm", "hochberg": "Hochberg", "bonferroni": "Bonferroni",
+              "graphical": "graphical"}.get(method, method)
     section.paragraph(f"Hypotheses tested with the {method} procedure at an overall two-sided level of "
                       f"{record.get('alpha', 0.05):g}.")
     section.table(from_results_table(hypotheses, slug="multiplicity", title="Tests adjusted for multiplicity",
