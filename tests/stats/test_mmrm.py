@@ -257,3 +257,17 @@ def test_too_few_participants_for_the_structure(long_frame):
     few = long_frame[long_frame.USUBJID.isin(complete)]
     with pytest.raises(ModelSpecificationError, match="too few participants"):
         tc.fit_mmrm(few, covariates=("BASE",), covariates_by_visit=("BASE",), **ROLES)
+
+
+def test_visits_default_to_order_of_appearance(long_frame):
+    reordered = pd.concat([long_frame[long_frame.AVISIT == "8m"], long_frame[long_frame.AVISIT != "8m"]])
+    fit = tc.fit_mmrm(reordered, **{**ROLES, "visits": None})
+    assert fit.visits == ("8m", "2m", "4m", "6m")
+    assert list(fit.covariance_matrix().columns) == ["8m", "2m", "4m", "6m"]
+
+
+def test_an_arm_without_outcomes_is_left_out_with_a_warning(long_frame):
+    extra = long_frame.iloc[:4].assign(USUBJID="NEW-1", TRT01P="Other", AVAL=np.nan)
+    fit = tc.fit_mmrm(pd.concat([long_frame, extra]), **ROLES)
+    assert fit.arms == ("TAU", "BtheB")
+    assert any("Other" in w and "no observed outcome" in w for w in fit.warnings)

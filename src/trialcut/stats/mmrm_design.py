@@ -8,6 +8,7 @@ iteration does not grow with the number of participants.
 """
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass, field
 from typing import Any, Mapping, Sequence
 
@@ -188,6 +189,10 @@ def build_design(data: pd.DataFrame, *, outcome: str, subject: str, visit: str, 
     _fail(problems)
 
     arms = (_scalar(reference),) + tuple(_scalar(a) for a in _levels(observed[arm]) if a != reference)
+    unanalysed = [a for a in arms_present if a not in arms]
+    if unanalysed:
+        warnings.warn(f"arm(s) {', '.join(map(str, unanalysed))} of column '{arm}' have no observed outcome "
+                      "and are left out of the fit")
     if len(arms) < 2:
         _fail([Problem("mmrm.one_arm", f"column '{arm}' has only the reference arm among observed outcomes",
                        field=arm, expected="at least two arms", got=repr(arms))])
