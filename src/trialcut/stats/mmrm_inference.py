@@ -35,6 +35,7 @@ from __future__ import annotations
 
 import numpy as np
 from scipy import stats
+from scipy.linalg import block_diag
 
 from trialcut.stats.mmrm_design import Design
 from trialcut.stats.mmrm_likelihood import Evaluation, Likelihood
@@ -49,19 +50,18 @@ class Inference:
         self.phi = evaluation.xvx_inverse
         self.weights_theta = np.linalg.inv(evaluation.information)            # W in theta
         jacobians = _jacobians(likelihood, evaluation.theta)                  # dpsi/dtheta per group
-        to_psi = _block_diagonal([np.linalg.inv(j) for j in jacobians])       # dtheta/dpsi
+        self.to_psi = [np.linalg.inv(j) for j in jacobians]                   # dtheta/dpsi per group
         self.linear = [s.linear_entries is not None for s in likelihood.structures]
-        self.weights = _block_diagonal(jacobians) @ self.weights_theta @ _block_diagonal(jacobians).T
-        self.q_matrices = np.einsum("rab,rs->sab", evaluation.q_matrices, to_psi)
-        self.to_psi = [np.linalg.inv(j) for j in jacobians]
+        jacobian = block_diag(*jacobians)
+        self.weights = jacobian @ self.weights_theta @ jacobian.T
+        self.q_matrices = np.einsum("rab,rs->sab", evaluation.q_matrices, block_diag(*self.to_psi))
         self.psi = self.phi @ self.q_matrices @ self.phi                      # Phi P_i Phi up to sign
         self.notes: list[str] = []
-        self.adjusted = self.phi
+        self.model_based = self.phi          # Phi, or Phi_A for Kenward-Roger
         if df_method.startswith("kenward_roger"):
-            self.adjusted = self.phi + 2 * self._kenward_roger_lambda(
+            self.model_based = self.phi + 2 * self._kenward_roger_lambda(
                 likelihood, evaluation, include_second=(df_method == "kenward_roger"))
-        self.model_based = self.adjusted
-        self.covariance = _sandwich(likelihood, evaluation) if robust else self.adjusted
+        self.covariance = _sandwich(likelihood, evaluation) if robust else self.model_based
         n_between = int(design.between_columns.sum())
         p = len(self.beta)
         self.between = design.between_columns
@@ -188,11 +188,6 @@ def _jacobians(likelihood: Likelihood, theta: np.ndarray) -> list[np.ndarray]:
         rows, cols = zip(*structure.linear_entries)
         jacobians.append(first[:, list(rows), list(cols)].T)
     return jacobians
-
-
-def _block_diagonal(blocks: list[np.ndarray]) -> np.ndarray:
-    from scipy.linalg import block_diag
-    return block_diag(*blocks)
 
 
 def _sandwich(likelihood: Likelihood, evaluation: Evaluation) -> np.ndarray:
