@@ -392,6 +392,8 @@ def _assemble(design: Design, settings, name, likelihood: Likelihood, maximum: M
     counted = n_theta + (p if likelihood.reml is False else 0)
     loglik = evaluation.loglik
     notes = [str(w.message) for w in caught] + inference.notes
+    if maximum.message != "converged":
+        notes.append(f"{name}: {maximum.message}")
     notes += _non_finite_notes("fixed effects", design.term_names, np.column_stack(fixed))
     notes += _non_finite_notes("marginal means", [f"{a} at {v}" for a, v in labels], np.column_stack(means))
     notes += _non_finite_notes("differences", [f"{a} at {v}" for a, _, v in difference_labels],

@@ -184,7 +184,7 @@ def maximise(likelihood: Likelihood, theta0: np.ndarray, *, max_iterations: int 
     theta = np.asarray(theta0, float)
     current = _safe_evaluate(likelihood, theta, 2)
     if current is None:
-        raise ConvergenceError(f"the likelihood cannot be evaluated at the starting values")
+        raise ConvergenceError("the likelihood cannot be evaluated at the starting values")
     decrement = np.inf
     for iteration in range(1, max_iterations + 1):
         direction, decrement = _direction(current, decrement)
@@ -198,9 +198,11 @@ def maximise(likelihood: Likelihood, theta0: np.ndarray, *, max_iterations: int 
             step /= 2
             trial = None
         if trial is None:
-            if decrement / 2 < 1e3 * tolerance:
-                return _finish(current, iteration - 1, decrement)
-            raise ConvergenceError(f"the line search found no increase of the likelihood "
+            if decrement / 2 < 1e3 * tolerance:    # rounding stops progress just short of the tolerance
+                return _finish(current, iteration - 1, decrement,
+                               f"stopped at the limit of numerical precision: scaled gradient {decrement / 2:.3g} "
+                               f"(tolerance {tolerance:g}) with no further increase of the likelihood")
+            raise ConvergenceError("the line search found no increase of the likelihood "
                                    f"(iteration {iteration}, scaled gradient {decrement / 2:.3g})")
         current = _safe_evaluate(likelihood, current.theta + step * direction, 2)
         if current is None:
@@ -224,14 +226,13 @@ def _direction(evaluation: Evaluation, previous_decrement: float) -> tuple[np.nd
     return direction, float(max(gradient @ direction, 0.0))
 
 
-def _finish(evaluation: Evaluation, iterations: int, decrement: float) -> Maximum:
+def _finish(evaluation: Evaluation, iterations: int, decrement: float, message: str = "converged") -> Maximum:
     if not _is_positive_definite(-evaluation.hessian):
         raise ConvergenceError(f"the gradient vanished but the observed information is not positive "
                                "definite (a saddle point or a flat direction)")
     if any(np.linalg.cond(sigma) > 1e12 for sigma in evaluation.sigmas):
         raise ConvergenceError(f"the estimated covariance matrix is numerically singular")
-    return Maximum(evaluation, True, iterations, float(np.abs(evaluation.gradient).max()), decrement / 2,
-                   "converged")
+    return Maximum(evaluation, True, iterations, float(np.abs(evaluation.gradient).max()), decrement / 2, message)
 
 
 def _is_positive_definite(matrix: np.ndarray) -> bool:
