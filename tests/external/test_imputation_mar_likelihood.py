@@ -76,3 +76,37 @@ def test_mar_imputation_matches_em_estimate(seed):
         allowed = 4 * monte_carlo + 0.1 * pooled[visit].std_error
         assert abs(pooled[visit].estimate - likelihood_difference[j]) < allowed, (
             seed, visit, pooled[visit].estimate, likelihood_difference[j], allowed)
+
+
+def test_em_oracle_agrees_with_the_repeated_measures_engine():
+    # The EM above and trialcut.fit_mmrm by ML (unstructured, baseline effect by visit) both
+    # maximise the same MAR likelihood, so their arm differences must coincide.
+    from trialcut.stats.mmrm import fit_mmrm
+
+    long = beat_the_blues_long()
+    wide = long.pivot(index="subject", columns="visit", values="bdi")[VISITS]
+    per_subject = long.groupby("subject")[["treatment", "bdi.pre"]].first().loc[wide.index]
+    active = (per_subject["treatment"] == "BtheB").to_numpy(float)
+    baseline = per_subject["bdi.pre"].to_numpy(float)
+    b, _ = em_multivariate_regression(wide.to_numpy(float), np.column_stack([1 - active, active, baseline]))
+    fit = fit_mmrm(long, outcome="bdi", subject="subject", visit="visit", arm="treatment", reference="TAU",
+                   visits=VISITS, covariates=("bdi.pre",), covariates_by_visit=("bdi.pre",), method="ml",
+                   df="residual")
+    engine = fit.differences().set_index("visit").loc[VISITS, "estimate"].to_numpy()
+    assert np.allclose(engine, b[1] - b[0], atol=1e-5)
+
+
+def test_mmrm_analysis_of_completed_data_equals_the_ancova_route():
+    # Zellner (1962, JASA 57:348–368): generalized least squares of seemingly unrelated
+    # regressions with the same regressors in every equation is equation-by-equation OLS.
+    # A completed data set has no missing value and the repeated-measures model has the arm
+    # and the baseline at every visit, so its differences equal ANCOVA at each visit, and with
+    # REML the unstructured variances are the per-visit residual mean squares, so the SEs too.
+    long = beat_the_blues_long()
+    common = dict(subject="subject", arm="treatment", visit="visit", outcome="bdi", visits=VISITS,
+                  reference="TAU", covariates=("bdi.pre",), n_imputations=6, burn_in=20, thinning=2,
+                  seed_sequence=np.random.SeedSequence(1))
+    ancova = impute(long, **common).differences()
+    mmrm = impute(long, **common, analysis_model="mmrm", mmrm_options={"df": "kenward_roger"}).differences()
+    assert np.allclose(mmrm["estimate"], ancova["estimate"], rtol=1e-6, atol=1e-8)
+    assert np.allclose(mmrm["se"], ancova["se"], rtol=1e-5)

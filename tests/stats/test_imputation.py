@@ -43,6 +43,13 @@ def test_contract_untouched_input_repeatable_and_order_free(trial, assumption):
     assert _run(shuffled, assumption=assumption).to_dict() == first
 
 
+def test_one_seed_sequence_object_used_twice_gives_the_same_numbers(trial):
+    seeds = np.random.SeedSequence(5)
+    first = impute(trial, **ROLES, visits=VISITS, reference="placebo", seed_sequence=seeds, **SMALL).to_dict()
+    again = impute(trial, **ROLES, visits=VISITS, reference="placebo", seed_sequence=seeds, **SMALL).to_dict()
+    assert first == again and seeds.n_children_spawned == 0
+
+
 def test_result_tables_and_diagnostics(trial):
     result = _run(trial, assumption="copy_reference")
     differences = result.differences()

@@ -10,7 +10,6 @@ from __future__ import annotations
 
 from typing import Any
 
-from trialcut.errors import ModelSpecificationError, Problem
 from trialcut.run.context import RunContext
 from trialcut.run.tables import plain, table
 from trialcut.stats.imputation import impute
@@ -46,11 +45,6 @@ def _entry(analysis, tables: dict[str, Any], fit: dict[str, Any]) -> dict[str, A
 
 def run_multiple_imputation(data, analysis, context: RunContext) -> dict[str, Any]:
     options = analysis.options
-    if options.analysis_model != "ancova":
-        raise ModelSpecificationError("this analysis model is not available for multiple imputation", [
-            Problem(code="run.imputation_analysis_model", message="completed data sets are analysed by "
-                    "ANCOVA at each visit", field=f"analyses[{analysis.id}].options.analysis_model",
-                    expected="ancova", got=repr(options.analysis_model))])
     result = impute(
         _frame_with_event_flag(data), **_roles(data), covariates=tuple(options.covariates),
         assumption=options.assumption, event=EVENT_FLAG, n_imputations=options.imputations,
@@ -58,6 +52,7 @@ def run_multiple_imputation(data, analysis, context: RunContext) -> dict[str, An
         delta=options.delta, delta_arms=tuple(options.delta_arms), delta_cumulative=options.delta_cumulative,
         seed_sequence=context.seed_sequence(analysis.id), executor=context.executor,
         conf_level=options.conf_level, progress=_progress(context, analysis.id),
+        analysis_model=options.analysis_model,
     )
     tables = {
         "differences": table(result.differences(), f"Differences from the reference arm, pooled over "

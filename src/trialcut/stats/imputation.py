@@ -502,13 +502,14 @@ class ChainTask:
     seeds: tuple[np.random.SeedSequence, ...]     # one per imputation of this chain
     scenarios: np.ndarray                           # (S, K, T) δ by arm and visit
     cumulative: bool
+    analysis: "RepeatedMeasuresAnalysis | None" = None   # None: ANCOVA at each visit
 
 
 @dataclass(frozen=True)
 class ChainOutput:
     estimates: np.ndarray      # (m_chain, S, K − 1, T)
     variances: np.ndarray      # same shape
-    complete_df: int
+    complete_df: np.ndarray    # same shape: the complete-data df of each analysis
     trace: np.ndarray          # (m_chain, n_trace): key parameters of each retained draw
 
 
@@ -519,17 +520,56 @@ def run_chain(task: ChainTask) -> ChainOutput:
     shifts = np.stack([shift_matrix(task.data, s, task.cumulative) for s in task.scenarios])
     steps = imputation_steps(task.data, task.assumption)
     core = AncovaCore(task.data.arm_index, task.data.covariates, len(task.data.arms))
-    estimates, variances, traces = [], [], []
+    estimates, variances, dfs, traces = [], [], [], []
     for position, seed in enumerate(task.seeds):
         rng = np.random.default_rng(seed)
         for _ in range(task.burn_in + task.thinning if position == 0 else task.thinning):
             parameters = sampler.step(y, parameters, rng)
         completed = draw_completed(task.data, parameters, task.assumption, rng, steps)
-        estimate, variance = _analyse(core, completed, shifts)
+        if task.analysis is None:
+            estimate, variance = _analyse(core, completed, shifts)
+            df = np.full(estimate.shape, float(core.df))
+        else:
+            estimate, variance, df = task.analysis.analyse(task.data, completed, shifts)
         estimates.append(estimate)
         variances.append(variance)
+        dfs.append(df)
         traces.append(_trace(parameters, task.covariance_by_arm))
-    return ChainOutput(np.stack(estimates), np.stack(variances), core.df, np.stack(traces))
+    return ChainOutput(np.stack(estimates), np.stack(variances), np.stack(dfs), np.stack(traces))
+
+
+@dataclass(frozen=True)
+class RepeatedMeasuresAnalysis:
+    """Completed data sets analysed by trialcut's repeated-measures model (``fit_mmrm``)
+    instead of ANCOVA at each visit: one fit per completed data set and shift.  Covariates
+    get an effect at each visit, as in the imputation model, so the two stay congenial."""
+
+    covariance: str = "unstructured"
+    df: str = "kenward_roger"
+    method: str = "reml"
+
+    def analyse(self, data: ImputationData, completed: np.ndarray, shifts: np.ndarray):
+        from trialcut.stats.mmrm import fit_mmrm   # imported here: the ANCOVA path never needs it
+
+        names = [f"covariate_{i}" for i in range(data.covariates.shape[1])]
+        n, t = completed.shape
+        base = pd.DataFrame({"subject": np.repeat(np.arange(n), t), "visit": np.tile(np.array(data.visits), n),
+                             "arm": np.repeat(np.array(data.arms)[data.arm_index], t)})
+        for i, name in enumerate(names):
+            base[name] = np.repeat(data.covariates[:, i], t)
+        shape = (shifts.shape[0], len(data.arms) - 1, t)
+        estimate, variance, df = np.empty(shape), np.empty(shape), np.empty(shape)
+        for s, shift in enumerate(shifts):
+            fit = fit_mmrm(base.assign(y=(completed + shift).ravel()), outcome="y", subject="subject",
+                           visit="visit", arm="arm", reference=data.arms[0], visits=list(data.visits),
+                           covariates=tuple(names), covariates_by_visit=tuple(names), covariance=self.covariance,
+                           method=self.method, df=self.df)
+            table = fit.differences().set_index(["arm", "visit"])
+            for k, arm in enumerate(data.arms[1:]):
+                rows = table.loc[arm].loc[list(data.visits)]
+                estimate[s, k], variance[s, k] = rows["estimate"], rows["se"].to_numpy() ** 2
+                df[s, k] = rows["df"]
+        return estimate, variance, df
 
 
 class AncovaCore:
@@ -600,27 +640,36 @@ class ImputationDraws:
 
     estimates: np.ndarray       # (S, m, K − 1, T)
     variances: np.ndarray
-    complete_df: int
+    complete_df: np.ndarray     # (S, K − 1, T): mean over imputations of the complete-data df
     diagnostics: dict[str, Any]
 
 
 def run_imputations(data: ImputationData, *, assumption: str, n_imputations: int, burn_in: int,
                     thinning: int, covariance_by_arm: bool, seed_sequence: np.random.SeedSequence,
                     scenarios: np.ndarray | None = None, cumulative: bool = False, chains: int = 4,
-                    executor: Any = None, progress: Callable[[int, int], None] | None = None) -> ImputationDraws:
-    """Run the chains (through ``executor.map`` when given) and gather their analyses."""
+                    executor: Any = None, progress: Callable[[int, int], None] | None = None,
+                    analysis: RepeatedMeasuresAnalysis | None = None) -> ImputationDraws:
+    """Run the chains (through ``executor.map`` when given) and gather their analyses.
+
+    The complete-data df ν_com for Barnard–Rubin is the mean over imputations of each
+    analysis's df (constant n − p for ANCOVA; a model-based df can vary slightly)."""
     _check_settings(data, assumption, n_imputations, burn_in, thinning, chains, covariance_by_arm)
     if scenarios is None:
         scenarios = np.zeros((1, len(data.arms), len(data.visits)))
-    seeds = seed_sequence.spawn(n_imputations)
+    # A copy, so that the caller's SeedSequence is not advanced: the same seed sequence
+    # passed twice must give the same numbers twice.
+    root = np.random.SeedSequence(seed_sequence.entropy, spawn_key=seed_sequence.spawn_key,
+                                  pool_size=seed_sequence.pool_size)
+    seeds = root.spawn(n_imputations)
     tasks = [ChainTask(data, assumption, covariance_by_arm, burn_in, thinning,
-                       tuple(seeds[i] for i in part), np.asarray(scenarios, float), cumulative)
+                       tuple(seeds[i] for i in part), np.asarray(scenarios, float), cumulative, analysis)
              for part in chain_split(n_imputations, chains)]
     outputs = _map(executor, run_chain, tasks, progress)
     estimates = np.concatenate([o.estimates for o in outputs]).transpose(1, 0, 2, 3)
     variances = np.concatenate([o.variances for o in outputs]).transpose(1, 0, 2, 3)
     diagnostics = _diagnostics(data, outputs, covariance_by_arm)
-    return ImputationDraws(estimates, variances, outputs[0].complete_df, diagnostics)
+    complete_df = np.concatenate([o.complete_df for o in outputs]).mean(axis=0)
+    return ImputationDraws(estimates, variances, complete_df, diagnostics)
 
 
 def _map(executor, function, items, progress):
@@ -718,7 +767,7 @@ class MultipleImputationResult:
     differences_by_visit: tuple[PooledDifference, ...]
     settings: dict[str, Any]
     diagnostics: dict[str, Any]
-    complete_df: int
+    complete_df: float          # the smallest complete-data df over the differences
 
     def differences(self) -> pd.DataFrame:
         rows = [(d.arm, self.reference, d.visit, d.pooled.estimate, d.pooled.std_error, d.pooled.df,
@@ -761,6 +810,17 @@ def delta_by_arm(arms: Sequence[str], visits: Sequence[str], delta, delta_arms: 
     return table
 
 
+def _analysis_model(name: str, options: Mapping[str, str] | None) -> RepeatedMeasuresAnalysis | None:
+    if name == "ancova" and not options:
+        return None
+    if name == "mmrm":
+        return RepeatedMeasuresAnalysis(**dict(options or {}))
+    raise ModelSpecificationError("unknown analysis model for the completed data sets", [
+        Problem(code="stats.analysis_model", message="completed data sets are analysed by ANCOVA at each visit "
+                "or by the repeated-measures model", expected="ancova, or mmrm (with mmrm_options)",
+                got=f"{name!r} with options {dict(options or {})}")])
+
+
 def impute(frame: pd.DataFrame, *, subject: str, arm: str, visit: str, outcome: str,
            visits: Sequence[str], reference: str, covariates: Sequence[str] = (),
            assumption: str = "mar", event: str | Mapping[Any, Any] | None = None,
@@ -768,15 +828,19 @@ def impute(frame: pd.DataFrame, *, subject: str, arm: str, visit: str, outcome: 
            covariance_by_arm: bool = False, delta=None, delta_arms: Sequence[str] = (),
            delta_cumulative: bool = False, seed_sequence: np.random.SeedSequence | int = 0,
            chains: int = 4, executor: Any = None, conf_level: float = 0.95,
-           arms: Sequence[str] | None = None,
+           arms: Sequence[str] | None = None, analysis_model: str = "ancova",
+           mmrm_options: Mapping[str, str] | None = None,
            progress: Callable[[int, int], None] | None = None) -> MultipleImputationResult:
     """Multiple imputation, ANCOVA at every visit on each completed data set, Rubin's rules.
 
     ``event`` marks values missing after an intercurrent event (see :func:`prepare_data`);
     they follow ``assumption``, every other missing value is MAR.  ``delta`` (scalar or one
     value per visit) is added to imputed values of the ``delta_arms``.  The result depends
-    on the seed, m and ``chains`` only, never on the executor.
+    on the seed, m and ``chains`` only, never on the executor.  ``analysis_model`` "mmrm"
+    analyses each completed data set with ``fit_mmrm`` (``mmrm_options``: covariance, df,
+    method) instead of ANCOVA at each visit.
     """
+    analysis = _analysis_model(analysis_model, mmrm_options)
     data = prepare_data(frame, subject=subject, arm=arm, visit=visit, outcome=outcome, visits=visits,
                         reference=reference, covariates=covariates, event=event, arms=arms)
     seeds = seed_sequence if isinstance(seed_sequence, np.random.SeedSequence) else np.random.SeedSequence(seed_sequence)
@@ -784,16 +848,17 @@ def impute(frame: pd.DataFrame, *, subject: str, arm: str, visit: str, outcome: 
     draws = run_imputations(data, assumption=assumption, n_imputations=n_imputations, burn_in=burn_in,
                             thinning=thinning, covariance_by_arm=covariance_by_arm, seed_sequence=seeds,
                             scenarios=scenario, cumulative=delta_cumulative, chains=chains,
-                            executor=executor, progress=progress)
+                            executor=executor, progress=progress, analysis=analysis)
     pooled = tuple(
         PooledDifference(data.arms[k + 1], data.visits[j],
                          rubin_pool(draws.estimates[0, :, k, j], draws.variances[0, :, k, j],
-                                    complete_df=draws.complete_df, conf_level=conf_level))
+                                    complete_df=float(draws.complete_df[0, k, j]), conf_level=conf_level))
         for k in range(len(data.arms) - 1) for j in range(len(data.visits)))
     settings = {"n_imputations": n_imputations, "burn_in": burn_in, "thinning": thinning, "chains": chains,
                 "covariance_by_arm": covariance_by_arm, "covariates": list(data.covariate_names),
                 "delta": None if delta is None else np.broadcast_to(np.asarray(delta, float), (len(data.visits),)).tolist(),
                 "delta_arms": list(delta_arms), "delta_cumulative": delta_cumulative,
-                "analysis": "ancova at each visit", "conf_level": conf_level}
+                "analysis": "ancova at each visit" if analysis is None else f"mmrm ({analysis.covariance}, "
+                f"{analysis.method}, df {analysis.df})", "conf_level": conf_level}
     return MultipleImputationResult(assumption, reference, data.arms, data.visits, pooled, settings,
-                                    draws.diagnostics, draws.complete_df)
+                                    draws.diagnostics, float(draws.complete_df.min()))
