@@ -278,7 +278,7 @@ def command_compare(args) -> int:
     out = args.to or _fresh_sibling(args.run_b.parent.parent.parent / "comparisons",
                                     f"{args.run_a.name}-vs-{args.run_b.name}")
     files = compare_runs(args.run_a, args.run_b, out)
-    console.print(f"comparison: {files.get('html', out)}")
+    console.print(f"comparison: {files.get('comparison.html', out)}")
     return 0
 
 
@@ -339,7 +339,8 @@ def command_demo(args) -> int:
         console.print(f"  {label:8s} report:  {folder / 'report.html'}")
         console.print(f"  {label:8s} PDF:     {folder / 'report.pdf'}")
         console.print(f"  {label:8s} results: {folder / 'results.json'}")
-    console.print(f"  comparison:       {comparison.get('html')}")
+    console.print(f"  comparison:       {comparison.get('comparison.html')}")
+    console.print(f"  comparison PDF:   {comparison.get('comparison.pdf')}")
     return 0
 
 

@@ -22,6 +22,7 @@ from trialcut.run.methods import METHODS
 from trialcut.run.tables import plain, table
 
 RESULTS_FORMAT = 1
+_RUNNER_KEYS = frozenset({"id", "label", "role", "method", "estimand", "population", "status", "error", "options"})
 
 
 @dataclass
@@ -148,7 +149,9 @@ def _run_analysis(plan, cut, endpoint, analysis, role, context, run_warnings) ->
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         try:
-            entry.update(METHODS[analysis.method](data, analysis, context))
+            produced = METHODS[analysis.method](data, analysis, context)
+            # Identity and status belong to the runner; a method contributes its findings.
+            entry.update({k: v for k, v in produced.items() if k not in _RUNNER_KEYS})
         except (FitError, ModelSpecificationError) as error:
             entry["status"] = "failed"
             entry["error"] = error.render()
