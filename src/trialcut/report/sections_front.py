@@ -26,8 +26,10 @@ def facts_table(pairs: Sequence[tuple[str, Any, str]], *, slug: str, title: str,
 
 
 def _lock(plan: Mapping[str, Any], run: Mapping[str, Any]) -> Mapping[str, Any] | None:
+    """The plan's lock record, or None when the run used an unlocked plan (either flag says so)."""
     lock = plan.get("lock")
-    return lock if isinstance(lock, Mapping) and not run.get("unlocked") else None
+    unlocked = run.get("unlocked") or plan.get("lock_status") == "unlocked"
+    return lock if isinstance(lock, Mapping) and not unlocked else None
 
 
 def lock_status(results: Mapping[str, Any]) -> str:
@@ -109,23 +111,25 @@ def run_record(section: "Section", results: Mapping[str, Any], number_format: Nu
                               number_format=number_format))
     history = amendment_history(plan)
     if history:
-        section.table(from_records(history, ("version", "sha256", "locked_utc", "reason"),
+        section.table(from_records(history, ("version", "sha256", "locked_utc", "by", "reason"),
                                    slug="plan_history", title="Plan versions and amendments",
                                    number_format=number_format,
                                    labels={"version": "Plan version", "sha256": "Hash (first 16 characters)",
-                                           "locked_utc": "Locked (UTC)", "reason": "Reason"}))
+                                           "locked_utc": "Locked (UTC)", "by": "Locked by", "reason": "Reason"},
+                                   kinds={"version": "text"}))
     elif _lock(plan, run) is not None:
         section.paragraph("The lock record lists no amendments: this is the first locked version of the plan.")
 
 
 def amendment_history(plan: Mapping[str, Any]) -> list[dict[str, Any]]:
-    lock = plan.get("lock") or {}
-    entries = lock.get("amendments") or lock.get("history") or [] if isinstance(lock, Mapping) else []
+    lock = plan.get("lock") if isinstance(plan.get("lock"), Mapping) else {}
+    entries = lock.get("amendments") or lock.get("history") or plan.get("lock_chain") or []
     out = []
     for entry in entries:
         if isinstance(entry, Mapping):
             out.append({"version": entry.get("version"), "sha256": short_hash(entry.get("sha256"), 16),
                         "locked_utc": entry.get("locked_utc") or entry.get("when"),
+                        "by": entry.get("by") or entry.get("locked_by"),
                         "reason": entry.get("reason") or entry.get("why")})
     return out
 
