@@ -137,10 +137,13 @@ def test_non_convergence_raises_with_attempts(long_frame):
 
 def test_covariance_by_gives_one_matrix_per_group(long_frame):
     fit = tc.fit_mmrm(long_frame, covariance="ar1", covariance_by="TRT01P", **ROLES)
-    matrix = fit.covariance_matrix()
-    assert matrix.index.names == ["group", "visit"]
-    assert sorted(matrix.index.get_level_values("group").unique()) == ["BtheB", "TAU"]
-    assert not np.allclose(matrix.loc["BtheB"].to_numpy(), matrix.loc["TAU"].to_numpy())
+    matrices = fit.covariance_matrix()
+    assert sorted(matrices) == ["BtheB", "TAU"]
+    assert list(matrices["TAU"].columns) == list(VISITS)
+    assert not np.allclose(matrices["BtheB"].to_numpy(), matrices["TAU"].to_numpy())
+    correlation = fit.correlation_matrix()["TAU"].to_numpy()
+    np.testing.assert_allclose(np.diag(correlation), 1.0, **SAME_ARITHMETIC)
+    assert {"covariance_matrix[TAU]", "covariance_matrix[BtheB]"} <= set(fit.to_dict()["tables"])
     assert len(fit.covariance_parameters) == 4
     assert fit.aic == pytest.approx(-2 * fit.loglik + 8)
 

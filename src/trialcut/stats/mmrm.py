@@ -21,7 +21,7 @@ Conventions (also stated in shared/DESIGN.md):
   effect averaged over visits (equal weights) and ``<column>_by_visit`` its visit-specific
   departures from the first visit.
 * ``covariance_matrix()`` and ``correlation_matrix()`` return one DataFrame (visits x visits);
-  with ``covariance_by`` the rows carry a first index level named ``group``.
+  with ``covariance_by`` a dict from each group's value to its DataFrame.
 """
 from __future__ import annotations
 
@@ -127,19 +127,19 @@ class MMRMFit:
         Cholesky factor of the participant's Sigma_i (independent N(0, 1) under the model)."""
         return pd.DataFrame({name: np.array(self.residual_columns[name]) for name in RESIDUAL_COLUMNS})
 
-    def covariance_matrix(self) -> pd.DataFrame:
-        return self._visit_frame(self.covariance_matrices)
+    def covariance_matrix(self) -> pd.DataFrame | dict[Any, pd.DataFrame]:
+        """Visits x visits; with ``covariance_by``, a dict group -> DataFrame."""
+        return self._visit_frames(self.covariance_matrices)
 
-    def correlation_matrix(self) -> pd.DataFrame:
+    def correlation_matrix(self) -> pd.DataFrame | dict[Any, pd.DataFrame]:
         sd = np.sqrt(np.einsum("gjj->gj", self.covariance_matrices))
-        return self._visit_frame(self.covariance_matrices / (sd[:, :, None] * sd[:, None, :]))
+        return self._visit_frames(self.covariance_matrices / (sd[:, :, None] * sd[:, None, :]))
 
-    def _visit_frame(self, matrices: np.ndarray) -> pd.DataFrame:
+    def _visit_frames(self, matrices: np.ndarray):
         visits = list(self.visits)
-        if self.groups == (None,):
-            return pd.DataFrame(matrices[0], index=pd.Index(visits, name="visit"), columns=visits)
-        index = pd.MultiIndex.from_product([list(self.groups), visits], names=["group", "visit"])
-        return pd.DataFrame(matrices.reshape(-1, len(visits)), index=index, columns=visits)
+        frames = {group: pd.DataFrame(matrix, index=pd.Index(visits, name="visit"), columns=visits)
+                  for group, matrix in zip(self.groups, matrices)}
+        return frames[None] if self.groups == (None,) else frames
 
     # ----------------------------------------------------------------- serialisation
     def to_dict(self, conf_level: float = 0.95) -> dict[str, Any]:
@@ -152,9 +152,14 @@ class MMRMFit:
             "marginal_means": _table(self.marginal_means(conf_level)),
             "differences": _table(self.differences(conf_level)),
             "joint_tests": _table(self.joint_tests()),
-            "covariance_matrix": _table(self.covariance_matrix().reset_index()),
-            "correlation_matrix": _table(self.correlation_matrix().reset_index()),
         }
+        for name, frames in (("covariance_matrix", self.covariance_matrix()),
+                             ("correlation_matrix", self.correlation_matrix())):
+            if isinstance(frames, dict):
+                for group, frame in frames.items():
+                    data["tables"][f"{name}[{group}]"] = _table(frame.reset_index())
+            else:
+                data["tables"][name] = _table(frames.reset_index())
         data["conf_level"] = conf_level
         return data
 
