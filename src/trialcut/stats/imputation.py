@@ -350,13 +350,15 @@ class _BatchedConditional:
         precision = np.linalg.inv(covariances)
         d = self.pattern_mask
         padded = d[:, :, None] * precision[self.pattern_arm] * d[:, None, :] + np.eye(t) * (1.0 - d)[:, None, :]
-        root = np.linalg.cholesky(padded)[self.pattern_of]                  # A = LLᵀ
+        root_inverse = np.linalg.inv(np.linalg.cholesky(padded))           # L⁻¹ with A = LLᵀ
+        noise_map = root_inverse.transpose(0, 2, 1)                          # L⁻ᵀ: cov A⁻¹
+        gain = -(noise_map @ root_inverse) @ (d[:, :, None] * precision[self.pattern_arm])   # −A⁻¹DΛ
         centre = mean[self.rows]
         residual = np.where(self.mask, 0.0, y[self.rows] - centre)
-        pull = -self.mask.astype(float) * np.einsum("nij,nj->ni", precision[self.arm], residual)
-        shift = np.linalg.solve(padded[self.pattern_of], pull[:, :, None])[:, :, 0]
-        noise = np.linalg.solve(root.transpose(0, 2, 1), rng.standard_normal((self.rows.size, t, 1)))[:, :, 0]
-        y[self.rows] = np.where(self.mask, centre + shift + noise, y[self.rows])
+        combined = np.concatenate([gain, noise_map], axis=2)[self.pattern_of]
+        draw = np.einsum("nij,nj->ni", combined,
+                         np.concatenate([residual, rng.standard_normal((self.rows.size, t))], axis=1))
+        y[self.rows] = np.where(self.mask, centre + draw, y[self.rows])
 
 
 class _Sampler:
