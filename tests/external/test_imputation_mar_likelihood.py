@@ -110,3 +110,23 @@ def test_mmrm_analysis_of_completed_data_equals_the_ancova_route():
     mmrm = impute(long, **common, analysis_model="mmrm", mmrm_options={"df": "kenward_roger"}).differences()
     assert np.allclose(mmrm["estimate"], ancova["estimate"], rtol=1e-6, atol=1e-8)
     assert np.allclose(mmrm["se"], ancova["se"], rtol=1e-5)
+
+
+@pytest.mark.parametrize("seed", [7, 8])
+def test_common_covariate_effect_matches_the_likelihood_estimate(seed):
+    # Covariate effect common to all visits: the MAR likelihood estimate is fit_mmrm by ML
+    # (unstructured, baseline as a main effect only); Little & Rubin 2002 as above.
+    from trialcut.stats.mmrm import fit_mmrm
+
+    long = beat_the_blues_long()
+    fit = fit_mmrm(long, outcome="bdi", subject="subject", visit="visit", arm="treatment", reference="TAU",
+                   visits=VISITS, covariates=("bdi.pre",), method="ml", df="residual")
+    likelihood = fit.differences().set_index("visit").loc[VISITS, "estimate"].to_numpy()
+    result = impute(long, subject="subject", arm="treatment", visit="visit", outcome="bdi", visits=VISITS,
+                    reference="TAU", covariates=("bdi.pre",), covariate_effects="common", n_imputations=40,
+                    burn_in=100, thinning=5, analysis_model="mmrm", mmrm_options={"df": "residual"},
+                    seed_sequence=np.random.SeedSequence(seed))
+    for j, difference in enumerate(result.differences_by_visit):
+        pooled = difference.pooled
+        allowed = 4 * np.sqrt(pooled.between_variance / pooled.n_imputations) + 0.1 * pooled.std_error
+        assert abs(pooled.estimate - likelihood[j]) < allowed, (seed, difference.visit, pooled.estimate, likelihood[j])

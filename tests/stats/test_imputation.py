@@ -168,3 +168,20 @@ def test_bad_settings_are_refused(trial):
         _run(trial, delta=1.0, delta_arms=("nobody",))
     with pytest.raises(ModelSpecificationError):
         prepare_data(trial, **ROLES, visits=VISITS, reference="nobody")
+
+
+def test_common_covariate_effect_is_one_slope_for_all_visits(trial):
+    from trialcut.stats.imputation import _CommonSlopeSampler
+
+    data = prepare_data(trial, **ROLES, visits=VISITS, reference="placebo", covariates=("BASE",), event="event")
+    sampler = _CommonSlopeSampler(data, covariance_by_arm=False)
+    y, parameters = sampler.start()
+    rng = np.random.default_rng(0)
+    for _ in range(3):
+        parameters = sampler.step(y, parameters, rng)
+    slopes = parameters.coefficients[:, 1, :]
+    assert np.all(slopes == slopes[0, 0])          # the same γ at every visit and in every arm
+    result = _run(trial, covariate_effects="common")
+    assert result.settings["covariate_effects"] == "common"
+    with pytest.raises(ModelSpecificationError):
+        _run(trial, covariate_effects="by_arm")

@@ -51,6 +51,9 @@ from trialcut.stats.names import IMPUTATION_ASSUMPTIONS
 from trialcut.stats.pooling import PooledEstimate, rubin_pool
 
 
+COVARIATE_EFFECTS = ("by_visit", "common")
+
+
 # --------------------------------------------------------------------------- assumptions
 class Assumption(Protocol):
     """How the mean vector of a participant affected from visit index d is built."""
@@ -423,6 +426,49 @@ class _Sampler:
         covariances[:] = sigma[None]
 
 
+class _CommonSlopeSampler(_Sampler):
+    """Covariate effects common to all visits: μᵢ = M[armᵢ] + (cᵢᵀγ)·1.  The mean parameters
+    θ = (vec M, γ) are no longer a matrix-normal block, so the P-step is a two-block Gibbs
+    step: θ | Σ, Y ~ N(I⁻¹r, I⁻¹) with the generalized least-squares information
+    I = Σᵢ XᵢᵀΣ⁻¹Xᵢ and r = Σᵢ XᵢᵀΣ⁻¹yᵢ, then Σ | θ, Y ~ inverse-Wishart(n, Σᵢ eᵢeᵢᵀ) under
+    the same Jeffreys prior (n, not n − p: θ is conditioned on, not integrated out)."""
+
+    def step(self, y: np.ndarray, parameters: ModelParameters, rng: np.random.Generator) -> ModelParameters:
+        self.i_step.draw(y, parameters.means(self.data), parameters.covariances, rng)
+        means, gamma = self._draw_means(y, parameters.covariances, rng)
+        coefficients = np.empty_like(parameters.coefficients)
+        coefficients[:, 0, :] = means
+        coefficients[:, 1:, :] = gamma[None, :, None]
+        residual = y - means[self.data.arm_index] - (self.data.covariates @ gamma)[:, None]
+        covariances = np.empty_like(parameters.covariances)
+        for g, rows in enumerate(self.groups):
+            sigma = _inverse_wishart(rows.size, residual[rows].T @ residual[rows], rng)
+            if self.by_arm:
+                covariances[g] = sigma
+            else:
+                covariances[:] = sigma[None]
+        return ModelParameters(coefficients, covariances)
+
+    def _draw_means(self, y, covariances, rng) -> tuple[np.ndarray, np.ndarray]:
+        k_arms, t, q = self.n_arms, y.shape[1], self.q
+        c, slope = self.data.covariates, slice(k_arms * t, k_arms * t + q)
+        information = np.zeros((k_arms * t + q,) * 2)
+        score = np.zeros(k_arms * t + q)
+        for k, lam in enumerate(np.linalg.inv(covariances)):
+            rows = self.data.arm_index == k
+            block = slice(k * t, (k + 1) * t)
+            lam_one = lam.sum(axis=1)                                   # Λ1
+            information[block, block] = rows.sum() * lam
+            information[block, slope] = np.outer(lam_one, c[rows].sum(axis=0))
+            information[slope, block] = information[block, slope].T
+            information[slope, slope] += lam_one.sum() * (c[rows].T @ c[rows])
+            score[block] = lam @ y[rows].sum(axis=0)
+            score[slope] += c[rows].T @ (y[rows] @ lam_one)
+        root = np.linalg.cholesky(information)
+        theta = np.linalg.solve(information, score) + np.linalg.solve(root.T, rng.standard_normal(score.size))
+        return theta[:k_arms * t].reshape(k_arms, t), theta[slope]
+
+
 # --------------------------------------------------------------------------- one imputation
 @dataclass(frozen=True)
 class _Step:
@@ -505,6 +551,7 @@ class ChainTask:
     scenarios: np.ndarray                           # (S, K, T) δ by arm and visit
     cumulative: bool
     analysis: "RepeatedMeasuresAnalysis | None" = None   # None: ANCOVA at each visit
+    covariate_effects: str = "by_visit"
 
 
 @dataclass(frozen=True)
@@ -517,7 +564,8 @@ class ChainOutput:
 
 def run_chain(task: ChainTask) -> ChainOutput:
     """One chain: burn-in, then per imputation thin, impute, shift and analyse."""
-    sampler = _Sampler(task.data, task.covariance_by_arm)
+    sampler_class = _CommonSlopeSampler if task.covariate_effects == "common" else _Sampler
+    sampler = sampler_class(task.data, task.covariance_by_arm)
     y, parameters = sampler.start()
     shifts = np.stack([shift_matrix(task.data, s, task.cumulative) for s in task.scenarios])
     steps = imputation_steps(task.data, task.assumption)
@@ -549,6 +597,7 @@ class RepeatedMeasuresAnalysis:
     covariance: str = "unstructured"
     df: str = "kenward_roger"
     method: str = "reml"
+    covariates_by_visit: bool = True
 
     def analyse(self, data: ImputationData, completed: np.ndarray, shifts: np.ndarray):
         from trialcut.stats.mmrm import fit_mmrm   # imported here: the ANCOVA path never needs it
@@ -564,7 +613,8 @@ class RepeatedMeasuresAnalysis:
         for s, shift in enumerate(shifts):
             fit = fit_mmrm(base.assign(y=(completed + shift).ravel()), outcome="y", subject="subject",
                            visit="visit", arm="arm", reference=data.arms[0], visits=list(data.visits),
-                           covariates=tuple(names), covariates_by_visit=tuple(names), covariance=self.covariance,
+                           covariates=tuple(names), covariates_by_visit=tuple(names) if self.covariates_by_visit else (),
+                           covariance=self.covariance,
                            method=self.method, df=self.df)
             table = fit.differences().set_index(["arm", "visit"])
             for k, arm in enumerate(data.arms[1:]):
@@ -650,12 +700,17 @@ def run_imputations(data: ImputationData, *, assumption: str, n_imputations: int
                     thinning: int, covariance_by_arm: bool, seed_sequence: np.random.SeedSequence,
                     scenarios: np.ndarray | None = None, cumulative: bool = False, chains: int = 4,
                     executor: Any = None, progress: Callable[[int, int], None] | None = None,
-                    analysis: RepeatedMeasuresAnalysis | None = None) -> ImputationDraws:
+                    analysis: RepeatedMeasuresAnalysis | None = None,
+                    covariate_effects: str = "by_visit") -> ImputationDraws:
     """Run the chains (through ``executor.map`` when given) and gather their analyses.
 
     The complete-data df ν_com for Barnard–Rubin is the mean over imputations of each
     analysis's df (constant n − p for ANCOVA; a model-based df can vary slightly)."""
     _check_settings(data, assumption, n_imputations, burn_in, thinning, chains, covariance_by_arm)
+    if covariate_effects not in COVARIATE_EFFECTS:
+        raise ModelSpecificationError("unknown kind of covariate effect", [
+            Problem(code="stats.covariate_effects", message="covariate effects are by visit or common to all "
+                    "visits", expected=", ".join(COVARIATE_EFFECTS), got=repr(covariate_effects))])
     if scenarios is None:
         scenarios = np.zeros((1, len(data.arms), len(data.visits)))
     # A copy, so that the caller's SeedSequence is not advanced: the same seed sequence
@@ -664,7 +719,8 @@ def run_imputations(data: ImputationData, *, assumption: str, n_imputations: int
                                   pool_size=seed_sequence.pool_size)
     seeds = root.spawn(n_imputations)
     tasks = [ChainTask(data, assumption, covariance_by_arm, burn_in, thinning,
-                       tuple(seeds[i] for i in part), np.asarray(scenarios, float), cumulative, analysis)
+                       tuple(seeds[i] for i in part), np.asarray(scenarios, float), cumulative, analysis,
+                       covariate_effects)
              for part in chain_split(n_imputations, chains)]
     outputs = _map(executor, run_chain, tasks, progress)
     estimates = np.concatenate([o.estimates for o in outputs]).transpose(1, 0, 2, 3)
@@ -812,11 +868,13 @@ def delta_by_arm(arms: Sequence[str], visits: Sequence[str], delta, delta_arms: 
     return table
 
 
-def _analysis_model(name: str, options: Mapping[str, str] | None) -> RepeatedMeasuresAnalysis | None:
+def _analysis_model(name: str, options: Mapping[str, str] | None,
+                    covariate_effects: str) -> RepeatedMeasuresAnalysis | None:
     if name == "ancova" and not options:
         return None
-    if name == "mmrm":
-        return RepeatedMeasuresAnalysis(**dict(options or {}))
+    if name == "mmrm":   # covariate effects as in the imputation model, so the two stay congenial
+        return RepeatedMeasuresAnalysis(**{"covariates_by_visit": covariate_effects == "by_visit",
+                                           **dict(options or {})})
     raise ModelSpecificationError("unknown analysis model for the completed data sets", [
         Problem(code="stats.analysis_model", message="completed data sets are analysed by ANCOVA at each visit "
                 "or by the repeated-measures model", expected="ancova, or mmrm (with mmrm_options)",
@@ -831,7 +889,7 @@ def impute(frame: pd.DataFrame, *, subject: str, arm: str, visit: str, outcome: 
            delta_cumulative: bool = False, seed_sequence: np.random.SeedSequence | int = 0,
            chains: int = 4, executor: Any = None, conf_level: float = 0.95,
            arms: Sequence[str] | None = None, analysis_model: str = "ancova",
-           mmrm_options: Mapping[str, str] | None = None,
+           mmrm_options: Mapping[str, str] | None = None, covariate_effects: str = "by_visit",
            progress: Callable[[int, int], None] | None = None) -> MultipleImputationResult:
     """Multiple imputation, ANCOVA at every visit on each completed data set, Rubin's rules.
 
@@ -842,7 +900,7 @@ def impute(frame: pd.DataFrame, *, subject: str, arm: str, visit: str, outcome: 
     analyses each completed data set with ``fit_mmrm`` (``mmrm_options``: covariance, df,
     method) instead of ANCOVA at each visit.
     """
-    analysis = _analysis_model(analysis_model, mmrm_options)
+    analysis = _analysis_model(analysis_model, mmrm_options, covariate_effects)
     data = prepare_data(frame, subject=subject, arm=arm, visit=visit, outcome=outcome, visits=visits,
                         reference=reference, covariates=covariates, event=event, arms=arms)
     seeds = seed_sequence if isinstance(seed_sequence, np.random.SeedSequence) else np.random.SeedSequence(seed_sequence)
@@ -850,7 +908,8 @@ def impute(frame: pd.DataFrame, *, subject: str, arm: str, visit: str, outcome: 
     draws = run_imputations(data, assumption=assumption, n_imputations=n_imputations, burn_in=burn_in,
                             thinning=thinning, covariance_by_arm=covariance_by_arm, seed_sequence=seeds,
                             scenarios=scenario, cumulative=delta_cumulative, chains=chains,
-                            executor=executor, progress=progress, analysis=analysis)
+                            executor=executor, progress=progress, analysis=analysis,
+                            covariate_effects=covariate_effects)
     pooled = tuple(
         PooledDifference(data.arms[k + 1], data.visits[j],
                          rubin_pool(draws.estimates[0, :, k, j], draws.variances[0, :, k, j],
@@ -858,7 +917,7 @@ def impute(frame: pd.DataFrame, *, subject: str, arm: str, visit: str, outcome: 
         for k in range(len(data.arms) - 1) for j in range(len(data.visits)))
     settings = {"n_imputations": n_imputations, "burn_in": burn_in, "thinning": thinning, "chains": chains,
                 "covariance_by_arm": covariance_by_arm, "covariates": list(data.covariate_names),
-                "delta": None if delta is None else np.broadcast_to(np.asarray(delta, float), (len(data.visits),)).tolist(),
+                "covariate_effects": covariate_effects, "delta": None if delta is None else np.broadcast_to(np.asarray(delta, float), (len(data.visits),)).tolist(),
                 "delta_arms": list(delta_arms), "delta_cumulative": delta_cumulative,
                 "analysis": "ancova at each visit" if analysis is None else f"mmrm ({analysis.covariance}, "
                 f"{analysis.method}, df {analysis.df})", "conf_level": conf_level}

@@ -114,7 +114,8 @@ def tipping_grid(data: ImputationData, *, visit: str, shifts: Sequence[float],
                  n_imputations: int = 50, burn_in: int = 200, thinning: int = 10,
                  covariance_by_arm: bool = False, alpha: float = 0.05,
                  seed_sequence: np.random.SeedSequence | int = 0, chains: int = 4, executor: Any = None,
-                 progress: Callable[[int, int], None] | None = None) -> TippingPointResult:
+                 progress: Callable[[int, int], None] | None = None,
+                 covariate_effects: str = "by_visit") -> TippingPointResult:
     """The grid on prepared data; see :func:`tipping_point` for the data-frame entry."""
     shifts = sorted(float(s) for s in shifts)
     reference_shifts = [0.0] if reference_shifts is None else sorted(float(s) for s in reference_shifts)
@@ -123,7 +124,8 @@ def tipping_grid(data: ImputationData, *, visit: str, shifts: Sequence[float],
     scenarios = shift_scenarios(len(data.arms), len(data.visits), shifts, reference_shifts)
     draws = run_imputations(data, assumption=assumption, n_imputations=n_imputations, burn_in=burn_in,
                             thinning=thinning, covariance_by_arm=covariance_by_arm, seed_sequence=seeds,
-                            scenarios=scenarios, chains=chains, executor=executor, progress=progress)
+                            scenarios=scenarios, chains=chains, executor=executor, progress=progress,
+                            covariate_effects=covariate_effects)
     j = data.visits.index(visit)
     cells = []
     for index, (reference_shift, shift) in enumerate((r, s) for r in reference_shifts for s in shifts):
@@ -135,7 +137,7 @@ def tipping_grid(data: ImputationData, *, visit: str, shifts: Sequence[float],
                    for arm in data.arms[1:] for r in reference_shifts)
     settings = {"assumption": assumption, "n_imputations": n_imputations, "burn_in": burn_in,
                 "thinning": thinning, "chains": chains, "covariance_by_arm": covariance_by_arm,
-                "covariates": list(data.covariate_names), "shifts": shifts,
+                "covariates": list(data.covariate_names), "covariate_effects": covariate_effects, "shifts": shifts,
                 "reference_shifts": reference_shifts, "analysis": "ancova at each visit"}
     return TippingPointResult(data.arms[0], visit, alpha, tuple(cells), points, settings, draws.diagnostics)
 
