@@ -226,6 +226,8 @@ def tipping_chart(cells: Sequence[Mapping[str, Any]], *, arms: Sequence[str], al
 
     panel_arms = [a for a in arms if any(c["arm"] == a for c in cells)]
     significant, lost, unknown = "#7fb8b4", "#f0b27a", "#ffffff"
+    n_rows = len({c.get("reference_shift") or 0.0 for c in cells})
+    height = max(2.2, 1.5 + 0.55 * n_rows)
 
     def draw(figure):
         panels = figure.subplots(1, len(panel_arms), squeeze=False)[0]
@@ -253,27 +255,39 @@ def tipping_chart(cells: Sequence[Mapping[str, Any]], *, arms: Sequence[str], al
         figure.legend(handles=[Patch(color=significant, label=f"still significant (p < {alpha:g})"),
                                Patch(color=lost, label=f"no longer significant (p ≥ {alpha:g})")],
                       loc="lower center", ncols=2, fontsize=8, bbox_to_anchor=(0.5, 0.0))
-        figure.subplots_adjust(bottom=0.3, left=0.12)
+        figure.subplots_adjust(bottom=0.95 / height + 0.05, top=1 - 0.35 / height, left=0.12)
 
-    return _draw(draw, height=3.2, layout=None)
+    return _draw(draw, height=height, layout=None)
 
 
 def forest_chart(rows: Sequence[Mapping[str, Any]], *, arms: Sequence[str], x_label: str) -> bytes:
-    """One line per analysis and arm: the estimate and its confidence interval."""
-    height = max(2.0, 0.28 * len(rows) + 1.0)
+    """One band per analysis, one line per arm inside it: the estimate and its confidence interval."""
+    import textwrap
+
+    labels = list(dict.fromkeys(r["label"] for r in rows))
+    shown_arms = [a for a in arms if any(r["arm"] == a for r in rows)] or list(dict.fromkeys(r["arm"] for r in rows))
+    band = 0.7 / max(1, len(shown_arms))
+    height = max(2.2, 0.42 * len(labels) * max(1, len(shown_arms)) ** 0.5 + 1.2)
 
     def draw(figure):
         axes = figure.subplots()
-        for y, row in enumerate(rows):
+        for row in rows:
             style = arm_style(arms, row["arm"])
+            offset = (shown_arms.index(row["arm"]) - (len(shown_arms) - 1) / 2) * band if row["arm"] in shown_arms else 0
+            y = labels.index(row["label"]) + offset
             if row.get("lower") is not None and row.get("upper") is not None:
                 axes.plot([row["lower"], row["upper"]], [y, y], color=style["color"], linewidth=1.6)
-            axes.plot([row["estimate"]], [y], marker=style["marker"], color=style["color"], markersize=5)
+            axes.plot([row["estimate"]], [y], marker=style["marker"], color=style["color"], markersize=5,
+                      linestyle="none", label=row["arm"])
         axes.axvline(0, color=INK, linewidth=0.8, linestyle=(0, (4, 3)))
-        axes.set_yticks(range(len(rows)), [f"{r['label']} — {r['arm']}" for r in rows], fontsize=7.5)
-        axes.set_ylim(len(rows) - 0.5, -0.5)
+        axes.set_yticks(range(len(labels)), [textwrap.fill(str(l), 34) for l in labels], fontsize=7.5)
+        axes.set_ylim(len(labels) - 0.5, -0.5)
         axes.set_xlabel(x_label)
         axes.grid(axis="y", visible=False)
+        handles, names = axes.get_legend_handles_labels()
+        unique = dict(zip(names, handles))
+        axes.legend(unique.values(), unique.keys(), loc="upper center", bbox_to_anchor=(0.5, -0.12 * 3.4 / height),
+                    ncols=len(unique), fontsize=8)
 
     return _draw(draw, height=height)
 

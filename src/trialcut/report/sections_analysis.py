@@ -312,17 +312,20 @@ def _covariate_summary(context: EndpointContext, fit: Mapping[str, Any]):
     summary = fit.get("covariate_summary")
     if not isinstance(summary, Mapping) or not summary:
         return None
-    pairs = []
-    for name, value in summary.items():
-        if isinstance(value, Mapping):
-            shown = "; ".join(f"{k}: {v:.4g}" if isinstance(v, float) else f"{k}: {v}" for k, v in value.items())
-            pairs.append((str(name), shown, "text"))
-        elif isinstance(value, (int, float)) and not isinstance(value, bool):
-            pairs.append((str(name), value, "general"))
-        elif value is not None:
-            pairs.append((str(name), str(value), "text"))
+    pairs = [(str(name), _covariate_text(value), "text") for name, value in summary.items() if value is not None]
     return facts_table(pairs, slug=f"{context.slug}_covariate_values", title="Covariate values used for the means",
                        number_format=context.number_format) if pairs else None
+
+
+def _covariate_text(value: Any) -> str:
+    if not isinstance(value, Mapping):
+        return f"{value:.4g}" if isinstance(value, float) else str(value)
+    if isinstance(value.get("proportions"), Mapping):
+        shares = ", ".join(f"{level} {100 * share:.1f}%" for level, share in value["proportions"].items())
+        return f"categorical: averaged over {shares}"
+    if value.get("mean") is not None:
+        return f"numeric: set to its mean, {value['mean']:.4g}"
+    return "; ".join(f"{k}: {v}" for k, v in value.items())
 
 
 def _fit_statistics(context: EndpointContext, fit: Mapping[str, Any]):
@@ -421,6 +424,8 @@ def sensitivity(section: "Section", context: EndpointContext, primary, others: S
             continue
         if analysis.get("method") == "tipping_point":
             tipping_point(child, context, analysis)
+        elif analysis.get("method") == "mmrm":
+            mmrm_sensitivity(child, context, analysis)
         else:
             generic_analysis(child, context, analysis)
 
@@ -438,6 +443,27 @@ def _estimates_at_primary_visit(context: EndpointContext, analyses) -> list[dict
                              "arm": row.get("arm"), "estimate": row.get("estimate"), "se": row.get("se"),
                              "lower": row.get("lower"), "upper": row.get("upper"), "p": row.get("p")})
     return rows
+
+
+def mmrm_sensitivity(section: "Section", context: EndpointContext, analysis) -> None:
+    """A repeated-measures model as a sensitivity analysis: what differs, its differences and fit."""
+    tables, fit = analysis.get("tables") or {}, analysis.get("fit") or {}
+    section.paragraph(_model_description(context, analysis))
+    plan = context.results.get("plan") or {}
+    populations = {p.get("id"): p.get("label") for p in plan.get("populations") or []}
+    estimands = {e.get("id"): e.get("label") for e in plan.get("estimands") or []}
+    if analysis.get("population"):
+        section.paragraph(f"Population: {populations.get(analysis['population'], analysis['population'])}; "
+                          f"estimand: {estimands.get(analysis.get('estimand'), analysis.get('estimand') or 'none named')}.")
+    if tables.get("differences"):
+        section.table(_differences_table(context, tables["differences"], f"{analysis.get('id')}_differences",
+                                         f"Differences from {context.reference} by visit",
+                                         f"{_level_text(analysis.get('options') or {})} confidence interval"))
+    fit_table = _fit_statistics(context, fit)
+    if fit_table is not None:
+        from dataclasses import replace
+
+        section.table(replace(fit_table, slug=f"{context.slug}_{analysis.get('id')}_fit"))
 
 
 def generic_analysis(section: "Section", context: EndpointContext, analysis) -> None:
@@ -477,7 +503,9 @@ def generic_analysis(section: "Section", context: EndpointContext, analysis) -> 
 def tipping_point(section: "Section", context: EndpointContext, analysis) -> None:
     tables, options = analysis.get("tables") or {}, analysis.get("options") or {}
     alpha = float(options.get("alpha") or 0.05)
-    grid_name = next((n for n, t in tables.items() if "shift" in (t.get("columns") or [])), None)
+    grid_name = next((n for n, t in tables.items()
+                      if {"shift", "active_shift"} & set(t.get("columns") or []) and "estimate" in (t.get("columns") or [])),
+                     None)
     section.paragraph(
         "Imputed values in the active arm are shifted by each amount in the grid (and, where the plan "
         "asks, in the reference arm too), and the comparison is repeated. The tipping point is the smallest "
@@ -486,11 +514,15 @@ def tipping_point(section: "Section", context: EndpointContext, analysis) -> Non
         section.notice("The tipping-point analysis carries no grid of shifts.")
         return
     grid = tables[grid_name]
-    cells = rows_as_dicts(grid)
-    for line in _tipping_statements(cells, alpha, context.number_format):
-        section.paragraph(line)
+    cells = [{**c, "shift": c.get("shift", c.get("active_shift"))} for c in rows_as_dicts(grid)]
+    recorded = [r for r in rows_as_dicts(tables.get("tipping_points")) if r.get("statement")]
+    if recorded:   # the run's own reading of the grid, with the shifts it searched
+        section.items([f"{r.get('arm')}: {r['statement']}" for r in recorded])
+    else:
+        for line in _tipping_statements(cells, alpha, context.number_format):
+            section.paragraph(line)
     visits = {c.get("visit") for c in cells}
-    hidden = ("visit",) if len(visits) == 1 else ()
+    hidden = ("visit", "reference") if len(visits) == 1 else ("reference",)
     title = "Tipping-point grid: estimate and p-value for each shift"
     if hidden:
         title += f" (at {visits.pop()})"
@@ -498,9 +530,18 @@ def tipping_point(section: "Section", context: EndpointContext, analysis) -> Non
                                      number_format=context.number_format, wide=True,
                                      intervals={"Confidence interval": ("lower", "upper")}))
     for name, source in tables.items():
-        if name != grid_name:
-            section.table(from_results_table(source, slug=f"{context.slug}_tipping_{name}",
-                                             number_format=context.number_format))
+        if name == "differences":
+            section.table(_differences_table(context, source, "tipping_base_differences",
+                                             "Differences from the reference arm with no shift", "Confidence interval"))
+        elif name != grid_name:
+            section.table(from_results_table(source, slug=f"{context.slug}_tipping_{name}", hide=("statement",),
+                                             number_format=context.number_format,
+                                             kinds={"tipping_shift": "shift", "base_shift": "shift",
+                                                    "base_significant": "flag", "crossings": "count"},
+                                             labels={"tipping_shift": "Tipping shift",
+                                                     "base_shift": "Smallest shift in the grid",
+                                                     "base_significant": "Significant without a shift",
+                                                     "crossings": "Changes of conclusion in the grid"}))
     usable = [c for c in cells if c.get("shift") is not None and c.get("arm") is not None]
     section.figure(_figure(
         "tipping_map", "Tipping-point map of p-values",

@@ -62,6 +62,8 @@ def title_facts(results: Mapping[str, Any]) -> list[tuple[str, str]]:
         ("Plan version", str(plan.get("version", "not recorded"))),
         ("Plan hash (SHA-256)", str(plan.get("sha256") or "not recorded")),
         ("Lock status", lock_status(results)),
+        *([("Lock record hash", str(_lock(plan, run).get("record_sha256")))]
+          if _lock(plan, run) is not None and _lock(plan, run).get("record_sha256") else []),
         ("Data cut", str(run.get("cut") or "not recorded")),
         ("Data hash (SHA-256)", str(data.get("sha256") or "not recorded")),
         ("Run", str(run.get("id") or "not recorded")),
@@ -240,7 +242,7 @@ def conformance(section: "Section", results: Mapping[str, Any], number_format: N
     section.paragraph(
         f"{len(checks)} checks were run on the data cut before any analysis; {len(failed)} found something. "
         "Checks of severity error stop a run, so a finished run can only show warnings and notes here.")
-    rows = [{**c, "rows": ", ".join(str(r) for r in (c.get("rows") or [])[:5])} for c in checks]
+    rows = [{**c, "rows": ", ".join(_record_text(r) for r in (c.get("rows") or [])[:5])} for c in checks]
     section.table(from_records(rows, ("id", "description", "severity", "status", "count", "rows"),
                                slug="conformance_checks", title="Conformance checks on the data cut",
                                number_format=number_format,
@@ -249,7 +251,36 @@ def conformance(section: "Section", results: Mapping[str, Any], number_format: N
     derivations = record.get("derivations") or []
     if derivations:
         section.paragraph("Derivations applied to the data before analysis:")
-        section.items([d if isinstance(d, str) else _describe_mapping(d) for d in derivations])
+        section.items(_derivation_lines(derivations))
+
+
+def _record_text(record: Any) -> str:
+    """One offending record in words: participant, visit and where it sits in the file."""
+    if not isinstance(record, Mapping):
+        return str(record)
+    parts = [str(record[k]) for k in ("subject", "visit") if record.get(k) not in (None, "")]
+    if record.get("where"):
+        parts.append(f"({record['where']})")
+    return " ".join(parts) or _describe_mapping(record)
+
+
+DERIVATIONS_SHOWN = 5
+
+
+def _derivation_lines(derivations: Sequence[Any]) -> list[str]:
+    """Text entries as they are; logged records grouped by step, with the first few shown."""
+    lines = [d for d in derivations if isinstance(d, str)]
+    groups: dict[str, list[Mapping[str, Any]]] = {}
+    for entry in derivations:
+        if isinstance(entry, Mapping):
+            groups.setdefault(str(entry.get("step") or "derivation"), []).append(entry)
+    for step, entries in groups.items():
+        examples = "; ".join(
+            " ".join(str(e[k]) for k in ("participant", "subject") if e.get(k)) + f": {e.get('reason') or _describe_mapping(e)}"
+            for e in entries[:DERIVATIONS_SHOWN])
+        more = f" (and {len(entries) - DERIVATIONS_SHOWN} more in conformance.json)" if len(entries) > DERIVATIONS_SHOWN else ""
+        lines.append(f"{step.replace('_', ' ')}: {len(entries)} records. {examples}{more}")
+    return lines
 
 
 def _describe_mapping(entry: Mapping[str, Any]) -> str:
@@ -281,13 +312,29 @@ def audit_appendix(section: "Section", results: Mapping[str, Any], audit: Mappin
         section.items([w if isinstance(w, str) else _describe_mapping(w) for w in warnings])
     else:
         section.paragraph("No warnings were recorded during the run.")
+    for key in AUDIT_SHOWN_ELSEWHERE:
+        audit.pop(key, None)
+    scalars = [(key.replace("_", " ").capitalize(), value, "text") for key, value in audit.items()
+               if isinstance(value, (str, int, float)) and not isinstance(value, bool)]
+    command = audit.pop("command_line", None)
+    if isinstance(command, list):
+        scalars.insert(0, ("Command line", " ".join(str(c) for c in command), "text"))
+    if scalars:
+        section.table(facts_table(scalars, slug="audit_run", title="Run facts from the audit record",
+                                  number_format=number_format))
     for key, value in audit.items():
-        _audit_part(section, key, value, number_format)
+        if isinstance(value, (Mapping, list)) and value:
+            _audit_part(section, key, value, number_format)
 
+
+# Parts of audit.json the report already shows in its own sections (lock record, conformance).
+AUDIT_SHOWN_ELSEWHERE = ("lock", "conformance_problems")
 
 AUDIT_TITLES = {
     "environment": "Software environment", "hashes": "Hashes of the files involved", "steps": "Steps and their timing",
     "timings": "Steps and their timing", "packages": "Package versions", "files": "Files of the run folder",
+    "thread_settings": "Thread settings of the numerical libraries", "executor": "How the analyses were executed",
+    "plan_problems": "Problems found in the plan",
 }
 
 

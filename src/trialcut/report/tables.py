@@ -23,7 +23,7 @@ COLUMN_LABELS = {
     "den_df": "Denominator DF", "F": "F", "expected": "Expected", "observed": "Observed",
     "missing": "Missing", "percent_missing": "Missing (%)", "pattern": "Visits observed",
     "count": "Participants", "share": "Share of arm (%)", "monotone": "Monotone",
-    "shift": "Shift in active arm", "reference_shift": "Shift in reference arm",
+    "shift": "Shift in active arm", "active_shift": "Shift in active arm", "reference_shift": "Shift in reference arm",
     "significant": "Significant", "population": "Population", "status": "Status", "total": "Total",
 }
 
@@ -39,7 +39,7 @@ COLUMN_KINDS = {
     "n": "count", "count": "count", "expected": "count", "observed": "count", "missing": "count",
     "total": "count", "percent_missing": "percent", "share": "share",
     "monotone": "flag", "significant": "flag", "converged": "flag",
-    "shift": "shift", "reference_shift": "shift",
+    "shift": "shift", "active_shift": "shift", "reference_shift": "shift",
     "log_likelihood": "criterion", "aic": "criterion", "bic": "criterion",
 }
 
