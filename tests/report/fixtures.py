@@ -252,9 +252,13 @@ def build_results(*, unlocked: bool = False, dummy_arms: bool = False, seed: int
         options={"assumption": "jump_to_reference", "imputations": 100})
     tipping = _analysis(
         "tipping_point", "Tipping-point analysis", "sensitivity", "tipping_point", "main",
-        {"grid": table("Tipping-point grid at the primary visit",
-                       ["arm", "visit", "shift", "reference_shift", "estimate", "se", "lower", "upper",
-                        "p", "significant"], _tipping_grid(differences))},
+        {"tipping_grid": table("Tipping-point grid at the primary visit",
+                               ["arm", "visit", "active_shift", "reference_shift", "estimate", "se", "lower",
+                                "upper", "p", "significant"], _tipping_grid(differences)),
+         "tipping_points": table("Shift at which the conclusion changes",
+                                 ["arm", "reference_shift", "tipping_shift", "statement"],
+                                 [[arm, 0.0, None, "the conclusion does not change for shifts from 0 to 1.5"]
+                                  for arm in ARMS[1:]])},
         options={"shifts": [0.0, 0.25, 0.5, 0.75, 1.0, 1.25, 1.5], "reference_shifts": [0.0, -0.25, -0.5],
                  "alpha": 0.05})
     trajectories = table(
@@ -332,12 +336,14 @@ def build_results(*, unlocked: bool = False, dummy_arms: bool = False, seed: int
                  "severity": "error", "status": "passed", "count": 0, "rows": []},
                 {"id": "value_in_range", "description": "Measured values lie in the plan's range",
                  "severity": "warning", "status": "failed", "count": 2,
-                 "rows": ["LVT-201-0117 Week 8", "LVT-201-0142 Week 4"]},
+                 "rows": [{"row": 388, "where": "line 388", "subject": "LVT-201-0117", "visit": "Week 8"},
+                          {"row": 512, "where": "line 512", "subject": "LVT-201-0142", "visit": "Week 4"}]},
                 {"id": "unscheduled_visits", "description": "Records at visits not in the schedule",
                  "severity": "info", "status": "passed", "count": 0, "rows": []},
             ],
             "derivations": ["CHG recomputed as AVAL - BASE and compared with the supplied column",
-                            "Intercurrent events assigned from RESCDY and TRTSTPDY"],
+                            *[{"step": "visit_window", "participant": f"LVT-201-{101 + i:04d}",
+                               "reason": f"day {40 + i} is outside every visit window"} for i in range(7)]],
         },
         "populations": table("Participants in each analysis population",
                              ["population", "label", "arm", "participants"],

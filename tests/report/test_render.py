@@ -317,5 +317,13 @@ def test_missing_trajectories_skip_the_figure_with_a_note(report_fixtures):
     assert "Individual trajectories by arm: Not drawn" in text
 
 
+def test_run_records_are_summarised_in_words(report_fixtures):
+    text = render_html(build_document(report_fixtures.build_results()))
+    checks = table_by_caption(read_html(text), "Conformance checks on the data cut")
+    assert ["LVT-201-0117 Week 8 (line 388), LVT-201-0142 Week 4 (line 512)"] in [row[-1:] for row in checks["rows"]]
+    assert "visit window: 7 records." in text and "(and 2 more in conformance.json)" in text
+    assert "Lorvatide 10 mg: the conclusion does not change for shifts from 0 to 1.5" in text
+
+
 def test_templates_are_found_from_the_repository():
     assert (templates_folder() / "report.html.j2").is_file()
