@@ -39,8 +39,7 @@ analyses its completed data sets, so only small arrays travel back.
 """
 from __future__ import annotations
 
-import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any, Callable, Mapping, Protocol, Sequence
 
 import numpy as np
