@@ -71,8 +71,15 @@ def test_estimates_side_by_side_with_their_change(runs):
 
 
 def test_render_comparison_writes_html_pdf_and_csv(runs, tmp_path):
-    written = render_comparison(*runs, tmp_path, data_diff={"participants_added": ["LVT-201-9999"],
-                                                            "participant_level": True})
+    first, second = runs[0], copy.deepcopy(runs[1])
+    second["plan"]["report"]["paper"] = "Letter"
+    written = render_comparison(first, second, tmp_path, data_diff={"participants_added": ["LVT-201-9999"],
+                                                                    "participant_level": True})
+    pypdf = pytest.importorskip("pypdf")
+    # US Letter is 8.5 x 11 inches = 612 x 792 PostScript points (ANSI/ASME Y14.1).
+    boxes = {(round(float(p.mediabox.width)), round(float(p.mediabox.height)))
+             for p in pypdf.PdfReader(written["comparison.pdf"]).pages}
+    assert (612, 792) in boxes and boxes <= {(612, 792), (792, 612)}
     assert {"comparison.html", "comparison.pdf"} <= set(written)
     html = written["comparison.html"].read_text(encoding="utf-8")
     assert "The plan is the same in both runs" in html
