@@ -325,5 +325,20 @@ def test_run_records_are_summarised_in_words(report_fixtures):
     assert "Lorvatide 10 mg: the conclusion does not change for shifts from 0 to 1.5" in text
 
 
+def test_a_repeated_measures_sensitivity_analysis_gets_its_differences_and_a_fit_sentence(report_fixtures):
+    results = report_fixtures.build_results()
+    analyses = results["endpoints"][0]["analyses"]
+    extra = {**analyses[0], "id": "mmrm_robust", "label": "Model with sandwich errors", "role": "sensitivity"}
+    analyses.append(extra)
+    text = render_html(build_document(results))
+    fit = extra["fit"]
+    assert (f"Fit: unstructured covariance, converged after {fit['iterations']} iterations; log-likelihood "
+            f"-512.83; {fit['n_subjects']} participants and {fit['n_obs']} observations.") in text
+    table = [t for t in read_html(text).tables if t["caption"].endswith("Differences from Placebo by visit")]
+    assert len(table) == 1
+    for cells, row in zip(table[0]["rows"], rows_of(extra["tables"]["differences"])):
+        assert_shown(cells[2], row["estimate"], MEAN)
+
+
 def test_templates_are_found_from_the_repository():
     assert (templates_folder() / "report.html.j2").is_file()

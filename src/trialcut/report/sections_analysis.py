@@ -459,11 +459,24 @@ def mmrm_sensitivity(section: "Section", context: EndpointContext, analysis) -> 
         section.table(_differences_table(context, tables["differences"], f"{analysis.get('id')}_differences",
                                          f"Differences from {context.reference} by visit",
                                          f"{_level_text(analysis.get('options') or {})} confidence interval"))
-    fit_table = _fit_statistics(context, fit)
-    if fit_table is not None:
-        from dataclasses import replace
+    section.paragraph(_fit_sentence(context, fit))
 
-        section.table(replace(fit_table, slug=f"{context.slug}_{analysis.get('id')}_fit"))
+
+def _fit_sentence(context: EndpointContext, fit: Mapping[str, Any]) -> str:
+    """A sensitivity model's fit in one sentence; the primary model gets the full table."""
+    if not fit:
+        return "The results record no facts about this fit."
+    structure = STRUCTURE_WORDS.get(fit.get("structure"), fit.get("structure") or "an unrecorded")
+    converged = "converged" if fit.get("converged") else "did not report convergence"
+    parts = [f"Fit: {structure} covariance, {converged}"]
+    if fit.get("iterations") is not None:
+        parts[0] += f" after {fit['iterations']} iterations"
+    log_likelihood = fit.get("loglik", fit.get("log_likelihood"))
+    if log_likelihood is not None:
+        parts.append(f"log-likelihood {context.number_format.cell(log_likelihood, 'criterion')}")
+    if fit.get("n_subjects") is not None:
+        parts.append(f"{fit['n_subjects']} participants and {fit.get('n_obs', '?')} observations")
+    return "; ".join(parts) + "."
 
 
 def generic_analysis(section: "Section", context: EndpointContext, analysis) -> None:
