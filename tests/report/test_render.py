@@ -223,6 +223,17 @@ def test_pdf_every_page_has_header_footer_and_banner(results, pdf_pages):
         assert "UNLOCKED PLAN" in flat and "DUMMY TREATMENT CODES" in flat, number
 
 
+def test_pdf_title_page_carries_identity_and_cautions(results, pdf_pages):
+    first = " ".join(pdf_pages[0].split())
+    for fact in (results["plan"]["sha256"], results["data"]["sha256"], results["run"]["id"], "Plan version 1.1",
+                 "NOT LOCKED"):
+        assert fact in first
+    # The cautions the brief requires, on the page every reader sees.
+    for words in ("qualified statistician", "regulatory, ethics committee or local review",
+                  "assumptions about missing data"):
+        assert words in first
+
+
 def test_pdf_contents_lists_every_table_and_figure_on_its_page(pdf_pages, html_reader, rendered):
     html = rendered["report.html"].read_text(encoding="utf-8")
     listed = re.findall(r'<span class="toc-number">((?:Table|Figure) 14\.2\.\d+)</span>', html)

@@ -91,14 +91,11 @@ def build_document(results: Mapping[str, Any], audit: Mapping[str, Any] | None =
     base_format = NumberFormat.from_results(results)
     sections: list[Section] = []
 
+    # The cautions stand on the title page, where no reader can miss them.
     about = Section("run", "About this run")
     sections_front.run_record(about, results, base_format)
+    about.paragraph(describe_rules(base_format))
     sections.append(about)
-
-    cautions = Section("cautions", "Cautions for the reader")
-    cautions.items(CAUTIONS)
-    cautions.paragraph(describe_rules(base_format))
-    sections.insert(0, cautions)
 
     estimands = Section("estimands", "Estimands")
     sections_front.estimands(estimands, results, base_format)

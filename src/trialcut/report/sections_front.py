@@ -70,6 +70,11 @@ def title_facts(results: Mapping[str, Any]) -> list[tuple[str, str]]:
         ("Run time (UTC)", f"{run.get('started_utc') or '?'} to {run.get('finished_utc') or '?'}"),
         ("Tool version", f"trialcut {run.get('tool_version') or 'not recorded'}"),
     ]
+    history = amendment_history(plan) if _lock(plan, run) is not None else []
+    if history:
+        facts.insert(4, ("Amendment history", "; ".join(
+            f"version {h['version']} locked {h['locked_utc']}" + (f" ({h['reason']})" if h.get("reason") else "")
+            for h in history)))
     if run.get("dummy_arms_seed") is not None:
         facts.append(("Treatment codes", f"dummy codes drawn with seed {run['dummy_arms_seed']}"))
     return facts
