@@ -5,6 +5,7 @@ answer out with the same templates, stylesheet and table model as the report.
 """
 from __future__ import annotations
 
+from dataclasses import replace
 from pathlib import Path
 from typing import Any, Mapping, Sequence
 
@@ -12,7 +13,7 @@ from trialcut.report.document import Document, Section, number_items
 from trialcut.report.formatting import NumberFormat, short_hash
 from trialcut.report.render import render_html, write_outputs
 from trialcut.report.sections_front import facts_table
-from trialcut.report.tables import from_records, rows_as_dicts
+from trialcut.report.tables import ReportColumn, from_records, rows_as_dicts
 
 
 # --------------------------------------------------------------------------- plan
@@ -252,9 +253,6 @@ def _estimates_section(rows: Sequence[Mapping[str, Any]], results_b, number_form
                                  "change": "Change (B − A)"},
                          kinds={"estimate_a": "mean", "estimate_b": "mean", "change": "mean",
                                 "p_a": "p", "p_b": "p"})
-    from trialcut.report.tables import ReportColumn
-    from dataclasses import replace
-
     display = [c for c in table.display if c.sources[0] not in ("lower_a", "upper_a", "lower_b", "upper_b")]
     for side in ("a", "b"):
         position = next(i for i, c in enumerate(display) if c.sources == (f"estimate_{side}",)) + 1

@@ -25,10 +25,6 @@ CORRELATION_DECIMALS = 3
 CRITERION_DECIMALS = 2
 MISSING_TEXT = "–"   # en dash: a cell with no value
 
-# Column kinds a table declares; each maps to one rule below.
-KINDS = ("text", "count", "mean", "sd", "p", "df", "statistic", "correlation", "percent",
-         "share", "criterion", "flag", "shift", "term", "general", "by_row")
-
 
 def round_half_away(value: float, decimals: int) -> str:
     """``value`` rounded to ``decimals`` places, as text without a spurious "-0"."""
