@@ -85,7 +85,8 @@ def main(argv: list[str] | None = None) -> int:
     rows, failures = [], []
     for name, module in discover(options.only).items():
         try:
-            rows += module.run()
+            # Each row names its benchmark, so a module need not repeat its own name.
+            rows += [{"benchmark": name} | row for row in module.run()]
         except Exception as error:  # one broken benchmark must not hide the others' figures
             failures.append({"benchmark": name, "error": f"{type(error).__name__}: {error}"})
     show(rows)
