@@ -255,6 +255,15 @@ def test_pdf_primary_differences_equal_results(results, pdf_pages):
         check_difference_row(numbers, row)
 
 
+def test_pdf_a_table_continued_on_the_next_page_repeats_its_header(pdf_pages):
+    # The fixture's tipping-point grid (42 rows) does not fit one page.
+    start = next(i for i, t in enumerate(pdf_pages) if "Tipping-point grid: estimate and p-value" in t and i > 3)
+    lines = pdf_pages[start].splitlines()
+    header = lines[next(i for i, l in enumerate(lines) if "Tipping-point grid" in l) + 1]
+    assert header.startswith("Arm Shift in active arm")
+    assert pdf_pages[start + 1].splitlines()[0] == header
+
+
 def test_pdf_wide_tables_sit_on_landscape_pages(rendered, pdf_pages):
     reader = pypdf.PdfReader(rendered["report.pdf"])
     page = next(i for i, t in enumerate(pdf_pages) if "Observed values by arm and visit" in t and i > 3)
