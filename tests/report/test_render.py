@@ -359,5 +359,34 @@ def test_a_repeated_measures_sensitivity_analysis_gets_its_differences_and_a_fit
         assert_shown(cells[2], row["estimate"], MEAN)
 
 
+@pytest.mark.parametrize("partial", [
+    {},
+    {"run": {"id": "r1"}, "plan": {}, "endpoints": [{"id": "e", "analyses": []}]},
+    {"endpoints": [{"id": "e", "primary_visit": "W1", "analyses": [
+        {"id": "a", "role": "primary", "method": "mmrm", "status": "ok", "tables": {}, "fit": {}, "options": {}}]}]},
+])
+def test_sparse_results_still_render_and_say_what_is_missing(partial):
+    text = render_html(build_document(partial))
+    assert "<h1>" in text and "not recorded" in text
+
+
 def test_templates_are_found_from_the_repository():
     assert (templates_folder() / "report.html.j2").is_file()
+
+
+def test_a_templates_folder_can_be_named_and_a_bad_one_is_refused(tmp_path, monkeypatch):
+    import shutil
+
+    from trialcut.report import render as render_module
+
+    copy_folder = tmp_path / "named"
+    shutil.copytree(templates_folder(), copy_folder)
+    monkeypatch.setenv("TRIALCUT_TEMPLATES", str(copy_folder))
+    assert templates_folder() == copy_folder
+    # Nothing anywhere: the error names the places it looked.
+    monkeypatch.setenv("TRIALCUT_TEMPLATES", str(tmp_path / "empty"))
+    monkeypatch.setattr(render_module, "__file__", str(tmp_path / "a" / "b" / "c" / "render.py"))
+    monkeypatch.setattr(render_module.resources, "files", lambda package: tmp_path / "nowhere")
+    with pytest.raises(render_module.ReportError) as raised:
+        templates_folder()
+    assert raised.value.problems[0].code == "report.templates_missing"
