@@ -321,6 +321,9 @@ class ImputationOptions(Strict):
     burn_in: int = Field(default=200, ge=0)
     thinning: int = Field(default=10, ge=1)
     covariance_by_arm: bool = False
+    chains: int = Field(default=4, ge=1, le=64, description=(
+        "Independent imputation chains, each with its own burn-in. Part of the random-number "
+        "layout: changing it changes the numbers; the worker count never does."))
     covariates: tuple[str, ...] = ()
     analysis_model: Literal["ancova", "mmrm"] = "ancova"
     delta: tuple[float, ...] | None = Field(default=None, description="Shift added to imputed values, per visit.")
@@ -334,6 +337,10 @@ class TippingPointOptions(Strict):
     imputations: int = Field(default=50, ge=2, le=100_000)
     burn_in: int = Field(default=200, ge=0)
     thinning: int = Field(default=10, ge=1)
+    covariance_by_arm: bool = False
+    chains: int = Field(default=4, ge=1, le=64, description=(
+        "Independent imputation chains, each with its own burn-in. Part of the random-number "
+        "layout: changing it changes the numbers; the worker count never does."))
     covariates: tuple[str, ...] = ()
     shifts: tuple[float, ...] = Field(min_length=2, description="Grid of δ added to imputed values in the active arm(s).")
     reference_shifts: tuple[float, ...] | None = Field(

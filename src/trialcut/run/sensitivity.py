@@ -49,7 +49,7 @@ def run_multiple_imputation(data, analysis, context: RunContext) -> dict[str, An
         _frame_with_event_flag(data), **_roles(data), covariates=tuple(options.covariates),
         assumption=options.assumption, event=EVENT_FLAG, n_imputations=options.imputations,
         burn_in=options.burn_in, thinning=options.thinning, covariance_by_arm=options.covariance_by_arm,
-        delta=options.delta, delta_arms=tuple(options.delta_arms), delta_cumulative=options.delta_cumulative,
+        chains=options.chains, delta=options.delta, delta_arms=tuple(options.delta_arms), delta_cumulative=options.delta_cumulative,
         seed_sequence=context.seed_sequence(analysis.id), executor=context.executor,
         conf_level=options.conf_level, progress=_progress(context, analysis.id),
         analysis_model=options.analysis_model,
@@ -73,6 +73,7 @@ def run_tipping_point(data, analysis, context: RunContext) -> dict[str, Any]:
         shifts=options.shifts, reference_shifts=options.reference_shifts, covariates=tuple(options.covariates),
         event=EVENT_FLAG, assumption=options.assumption, n_imputations=options.imputations,
         burn_in=options.burn_in, thinning=options.thinning, alpha=options.alpha,
+        chains=options.chains, covariance_by_arm=options.covariance_by_arm,
         seed_sequence=context.seed_sequence(analysis.id), executor=context.executor,
         progress=_progress(context, analysis.id),
     )
