@@ -38,6 +38,8 @@ ASSUMPTION_WORDS = {
     "mar": "missing at random", "jump_to_reference": "jump to reference", "copy_reference": "copy reference",
     "copy_increments_in_reference": "copy increments in reference",
 }
+FACT_LABELS = {"complete_df": "Complete-data DF", "burn_in": "Burn-in iterations",
+               "thinning": "Iterations between imputations", "chains": "Independent chains"}
 AVERAGING_RULE = (
     "Model-estimated means set each numeric covariate to its mean over the participants in the fit "
     "(each participant counted once) and average over categorical covariates in their observed proportions."
@@ -504,8 +506,10 @@ def generic_analysis(section: "Section", context: EndpointContext, analysis) -> 
             section.table(from_results_table(source, slug=f"{context.slug}_{analysis.get('id')}_{name}",
                                              number_format=context.number_format))
     fit = {k: v for k, v in (analysis.get("fit") or {}).items() if isinstance(v, (int, float, str, bool))}
+    if fit.get("assumption"):
+        fit["assumption"] = ASSUMPTION_WORDS.get(fit["assumption"], fit["assumption"])
     if fit:
-        section.table(facts_table([(k.replace("_", " ").capitalize(), v,
+        section.table(facts_table([(FACT_LABELS.get(k, k.replace("_", " ").capitalize()), v,
                                     "text" if isinstance(v, str) else ("count" if isinstance(v, int) else "general"))
                                    for k, v in fit.items()],
                                   slug=f"{context.slug}_{analysis.get('id')}_facts",

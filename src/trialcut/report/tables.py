@@ -25,6 +25,12 @@ COLUMN_LABELS = {
     "count": "Participants", "share": "Share of arm (%)", "monotone": "Monotone",
     "shift": "Shift in active arm", "active_shift": "Shift in active arm", "reference_shift": "Shift in reference arm",
     "significant": "Significant", "population": "Population", "status": "Status", "total": "Total",
+    # Pooling over imputations (Rubin's rules; Barnard–Rubin degrees of freedom).
+    "imputations": "Imputations", "within_variance": "Within-imputation variance",
+    "between_variance": "Between-imputation variance", "total_variance": "Total variance",
+    "relative_increase": "Relative increase in variance", "proportion_due_to_missing": "Share due to missing data",
+    "fraction_missing_information": "Fraction of missing information", "relative_efficiency": "Relative efficiency",
+    "complete_df": "Complete-data DF",
 }
 
 # Column name -> kind.  Names not listed are "text" when their values are text and
@@ -41,6 +47,9 @@ COLUMN_KINDS = {
     "monotone": "flag", "significant": "flag", "converged": "flag",
     "shift": "shift", "active_shift": "shift", "reference_shift": "shift",
     "log_likelihood": "criterion", "aic": "criterion", "bic": "criterion",
+    "imputations": "count", "within_variance": "general", "between_variance": "general", "total_variance": "general",
+    "relative_increase": "correlation", "proportion_due_to_missing": "correlation",
+    "fraction_missing_information": "correlation", "relative_efficiency": "correlation", "complete_df": "df",
 }
 
 
