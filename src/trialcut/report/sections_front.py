@@ -232,6 +232,12 @@ def multiplicity(section: "Section", results: Mapping[str, Any], number_format: 
               "graphical": "graphical"}.get(method, method)
     section.paragraph(f"Hypotheses tested with the {method} procedure at an overall two-sided level of "
                       f"{record.get('alpha', 0.05):g}.")
+    labels = {a.get("id"): a.get("label") for e in results.get("endpoints") or [] for a in e.get("analyses") or []}
+    columns = list(hypotheses.get("columns") or [])
+    if "analysis" in columns:   # the analysis by its label, as everywhere else in the report
+        position = columns.index("analysis")
+        hypotheses = {**hypotheses, "data": [[labels.get(v, v) if i == position else v for i, v in enumerate(row)]
+                                             for row in hypotheses.get("data") or []]}
     section.table(from_results_table(hypotheses, slug="multiplicity", title="Tests adjusted for multiplicity",
                                      number_format=number_format,
                                      labels={"id": "Hypothesis", "analysis": "Analysis", "weight": "Weight",
