@@ -43,7 +43,7 @@ def test_demo_plan_declares_the_shared_demo_study():
     assert sensitivity == ["mmrm_treatment_policy", "mmrm_robust", "ancova_observed", "ancova_per_protocol",
                            "mi_jump_to_reference", "mi_copy_increments", "tipping_point"]
     tipping = endpoint.analyses.sensitivity[-1].options
-    assert tipping.shifts == (0, 2.5, 5, 7.5, 10) and tipping.imputations == 20
+    assert tipping.shifts == (0, 5, 10, 15, 20, 25, 30) and tipping.imputations == 20
     assert plan.multiplicity.method == "holm" and len(plan.multiplicity.hypotheses) == 2
 
 
