@@ -128,7 +128,14 @@ def check_difference_row(cells: list[str], row: dict) -> None:
 @pytest.fixture(scope="module")
 def results(report_fixtures):
     # Unlocked plan and dummy arms: the banners must then be on every PDF page.
-    return report_fixtures.build_results(unlocked=True, dummy_arms=True)
+    results = report_fixtures.build_results(unlocked=True, dummy_arms=True)
+    # A listing longer than a page among the primary analysis' tables (the primary analysis
+    # shows every table it carries), so a table continues onto the next PDF page.
+    residuals = results["endpoints"][0]["analyses"][0]["diagnostics"]["residuals"]
+    results["endpoints"][0]["analyses"][0]["tables"]["fitted_values"] = {
+        "title": "Fitted values and residuals, first 70 records", "columns": residuals["columns"],
+        "data": residuals["data"][:70]}
+    return results
 
 
 @pytest.fixture(scope="module")
@@ -202,7 +209,11 @@ def test_html_is_self_contained_and_accessible(rendered, html_reader):
 
 def test_csv_files_hold_every_table_at_full_precision(results, rendered, html_reader):
     csv_paths = [p for key, p in rendered.items() if key.startswith("tables/")]
-    assert len(csv_paths) == len(html_reader.tables)
+    # Tables laid out in the report, plus detail tables of sensitivity analyses that the report
+    # names as CSV files only.
+    listed = re.findall(r"<code>tables/([^<]+\.csv)</code>", rendered["report.html"].read_text(encoding="utf-8"))
+    assert listed and all(f"tables/{name}" in rendered for name in listed)
+    assert len(csv_paths) == len(html_reader.tables) + len(listed)
     differences = next(p for p in csv_paths if p.name.endswith("primary_differences.csv"))
     lines = differences.read_text(encoding="utf-8").splitlines()
     first = rows_of(primary(results)["tables"]["differences"])[0]
@@ -256,12 +267,25 @@ def test_pdf_primary_differences_equal_results(results, pdf_pages):
 
 
 def test_pdf_a_table_continued_on_the_next_page_repeats_its_header(pdf_pages):
-    # The fixture's tipping-point grid (42 rows) does not fit one page.
-    start = next(i for i, t in enumerate(pdf_pages) if "Tipping-point grid: estimate and p-value" in t and i > 3)
+    # The listing of 70 fitted values added to the fixture's primary analysis does not fit one page.
+    start = next(i for i, t in enumerate(pdf_pages) if "Fitted values and residuals, first 70" in t and i > 3)
     lines = pdf_pages[start].splitlines()
-    header = lines[next(i for i, l in enumerate(lines) if "Tipping-point grid" in l) + 1]
-    assert header.startswith("Arm Shift in active arm")
-    assert pdf_pages[start + 1].splitlines()[0] == header
+    header = lines[next(i for i, l in enumerate(lines) if "Fitted values and residuals" in l) + 1]
+    assert header.startswith("USUBJID Arm Visit")
+    following = pdf_pages[start + 1].splitlines()
+    assert header in following[:3], following[:3]
+
+
+def test_sensitivity_detail_tables_are_csv_files_named_in_the_report(results, rendered, html_reader, pdf_pages):
+    # The tipping-point grid is detail of a sensitivity analysis: a CSV file at full precision,
+    # named in its section; the map figure and the tipping shifts stay in the report.
+    assert not [t for t in html_reader.tables if "Tipping-point grid" in t["caption"]]
+    grid_csv = next(p for key, p in rendered.items() if key.startswith("tables/") and key.endswith("_tipping_grid.csv"))
+    grid = results["endpoints"][0]["analyses"][-1]["tables"]["tipping_grid"]
+    assert len(grid_csv.read_text(encoding="utf-8").splitlines()) == 1 + len(grid["data"])
+    text = " ".join(" ".join(page.split()) for page in pdf_pages)
+    assert f"tables/ {grid_csv.name}" in text or f"tables/{grid_csv.name}" in text
+    assert "Tipping-point map of p-values" in text and "Shift at which the conclusion changes" in text
 
 
 def test_pdf_wide_tables_sit_on_landscape_pages(rendered, pdf_pages):
@@ -272,8 +296,11 @@ def test_pdf_wide_tables_sit_on_landscape_pages(rendered, pdf_pages):
 
 
 # --------------------------------------------------------------------------- determinism, re-rendering
-def test_rerendering_a_run_folder_gives_identical_bytes_and_leaves_it_untouched(results, rendered, tmp_path):
-    # Re-rendering from results.json alone must reproduce the first rendering byte for byte.
+def test_rerendering_a_run_folder_gives_identical_bytes_and_leaves_it_untouched(results, rendered, tmp_path,
+                                                                                 monkeypatch):
+    # Re-rendering from results.json alone must reproduce the first rendering byte for byte,
+    # also when the figures are drawn in this process rather than in a forked child.
+    monkeypatch.setenv("TRIALCUT_DRAW_IN_PROCESS", "1")
     run = tmp_path / "run"
     run.mkdir()
     (run / "results.json").write_text(json.dumps(results), encoding="utf-8")
@@ -390,3 +417,20 @@ def test_a_templates_folder_can_be_named_and_a_bad_one_is_refused(tmp_path, monk
     with pytest.raises(render_module.ReportError) as raised:
         templates_folder()
     assert raised.value.problems[0].code == "report.templates_missing"
+
+
+def test_a_figure_that_cannot_be_drawn_becomes_a_note_when_drawn_in_a_child(report_fixtures, tmp_path, monkeypatch):
+    # The figures are drawn in a forked child while the PDF is laid out; a failure there must
+    # end as it does when drawing here: a note in the figure's place, the other figures drawn.
+    from trialcut.report import figures
+
+    def broken(*args, **kwargs):
+        raise RuntimeError("no ink")
+
+    monkeypatch.setattr(figures, "forest_chart", broken)
+    written = render_documents(report_fixtures.build_results(), tmp_path)
+    html = written["report.html"].read_text(encoding="utf-8")
+    assert "Not drawn: RuntimeError: no ink" in html
+    assert not any(key.endswith("_forest.svg") for key in written)
+    assert any(key.endswith("_tipping_map.svg") for key in written)
+    assert written["report.pdf"].read_bytes().startswith(b"%PDF")

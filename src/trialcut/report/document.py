@@ -17,7 +17,7 @@ from trialcut.report.tables import ReportTable
 
 @dataclass
 class Block:
-    kind: str          # "paragraph", "list", "notice", "table", "figure"
+    kind: str          # "paragraph", "list", "notice", "table", "figure", "csv_tables"
     content: Any
 
 
@@ -44,6 +44,12 @@ class Section:
         if table is not None and table.rows:
             self.blocks.append(Block("table", table))
 
+    def csv_only(self, tables: Sequence[ReportTable | None]) -> None:
+        """Detail tables written as CSV beside the report and listed here, not laid out in it."""
+        kept = [t for t in tables if t is not None and t.rows]
+        if kept:
+            self.blocks.append(Block("csv_tables", kept))
+
     def figure(self, figure: FigureImage | None) -> None:
         if figure is not None:
             self.blocks.append(Block("figure", figure))
@@ -67,6 +73,7 @@ class Document:
     cautions: list[str]
     sections: list[Section]
     tables: list[ReportTable] = field(default_factory=list)
+    csv_tables: list[ReportTable] = field(default_factory=list)    # CSV files only, listed in the text
     figures: list[FigureImage] = field(default_factory=list)
 
     @property
@@ -83,7 +90,10 @@ CAUTIONS = (
 )
 
 
-def build_document(results: Mapping[str, Any], audit: Mapping[str, Any] | None = None) -> Document:
+def build_document(results: Mapping[str, Any], audit: Mapping[str, Any] | None = None, *,
+                   draw: bool = True) -> Document:
+    """The report's content.  ``draw=False`` leaves each figure's drawing as a job for the
+    renderer (see render.py); numbering assumes every such figure will be drawn."""
     run = results.get("run") or {}
     plan = results.get("plan") or {}
     study = plan.get("study") or {}
@@ -136,7 +146,23 @@ def build_document(results: Mapping[str, Any], audit: Mapping[str, Any] | None =
         cautions=list(CAUTIONS),
         sections=sections,
     )
+    if draw:
+        map_figures(document, FigureImage.drawn)
     return number_items(document, report_settings)
+
+
+def map_figures(document: Document, change) -> Document:
+    """Replace every figure of ``document`` (in place) by ``change(figure)``, each changed once."""
+    listed = {f.anchor for f in document.figures}
+    figures = []
+    for section in walk(document.sections):
+        for block in section.blocks:
+            if block.kind == "figure":
+                block.content = change(block.content)
+                if block.content.anchor and block.content.anchor in listed:
+                    figures.append(block.content)
+    document.figures = figures
+    return document
 
 
 def walk(sections: Sequence[Section]):
@@ -146,23 +172,38 @@ def walk(sections: Sequence[Section]):
 
 
 def number_items(document: Document, report_settings: Mapping[str, Any]) -> Document:
-    """Number tables and figures in reading order with the plan's prefixes; slugs become unique."""
+    """Number tables and figures in reading order with the plan's prefixes; slugs become unique.
+
+    A CSV-only table takes the number of the last table shown before it and a letter
+    ("12a_…"), so the files in tables/ sort in reading order.
+    """
     table_prefix = report_settings.get("table_prefix", "Table ")
     figure_prefix = report_settings.get("figure_prefix", "Figure ")
-    tables, figures = [], []
+    tables, csv_tables, figures = [], [], []
+    letters = "abcdefghijklmnopqrstuvwxyz"
+    csv_after: dict[int, int] = {}     # tables shown so far -> CSV-only tables already after them
     for section in walk(document.sections):
         for block in section.blocks:
-            if block.kind == "table":
+            if block.kind == "csv_tables":
+                numbered = []
+                for table in block.content:
+                    position = csv_after.get(len(tables), 0)
+                    csv_after[len(tables)] = position + 1
+                    suffix = letters[position] if position < len(letters) else f"z{position}"
+                    numbered.append(replace(table, slug=f"{len(tables):02d}{suffix}_{table.slug}"))
+                csv_tables.extend(numbered)
+                block.content = numbered
+            elif block.kind == "table":
                 number = len(tables) + 1
                 block.content = replace(block.content.with_number(f"{table_prefix}{number}", f"table-{number}"),
                                         slug=f"{number:02d}_{block.content.slug}")
                 tables.append(block.content)
-            elif block.kind == "figure" and block.content.svg is not None:
+            elif block.kind == "figure" and block.content.shown:
                 number = len(figures) + 1
                 block.content = replace(block.content, number=f"{figure_prefix}{number}",
                                         anchor=f"figure-{number}", slug=f"{number:02d}_{block.content.slug}")
                 figures.append(block.content)
-    document.tables, document.figures = tables, figures
+    document.tables, document.csv_tables, document.figures = tables, csv_tables, figures
     return document
 
 

@@ -10,8 +10,8 @@ from __future__ import annotations
 
 import io
 import math
-from dataclasses import dataclass
-from typing import Any, Mapping, Sequence
+from dataclasses import dataclass, field, replace
+from typing import Any, Callable, Mapping, Sequence
 
 import numpy as np
 
@@ -46,10 +46,29 @@ class FigureImage:
     slug: str
     title: str
     alt: str
-    svg: bytes | None       # None: the figure could not be drawn; ``note`` says why
+    svg: bytes | None       # None: not drawn (yet, when ``job`` is set; else ``note`` says why)
     note: str = ""
     number: str = ""
     anchor: str = ""
+    # How to draw it (a call returning SVG bytes), kept until it is drawn: the renderer may
+    # draw every figure in a second process while the PDF engine lays out the text.
+    job: Callable[[], bytes] | None = field(default=None, compare=False, repr=False)
+    link: str = ""          # set: the PDF's HTML names the image by this URL instead of inlining it
+
+    @property
+    def shown(self) -> bool:
+        """Drawn, or waiting to be drawn: it takes a number and a place in the report."""
+        return self.svg is not None or self.job is not None
+
+    def drawn(self) -> "FigureImage":
+        """This figure drawn here and now; a drawing failure becomes a note, not a failed report."""
+        if self.job is None:
+            return self
+        try:
+            svg = self.job()
+        except Exception as error:  # noqa: BLE001 - one bad figure must not hide the rest of the report
+            return replace(self, svg=None, job=None, note=f"Not drawn: {type(error).__name__}: {error}")
+        return replace(self, svg=svg, job=None)
 
 
 def _new_figure(width: float, height: float, layout: str | None):

@@ -11,13 +11,15 @@ import base64
 import json
 import os
 import tempfile
+from dataclasses import replace
 from importlib import resources
 from pathlib import Path
 from typing import Any, Mapping
 
 from trialcut.errors import InputError, Problem, TrialcutError
 from trialcut.report.csv_output import write_table_csv
-from trialcut.report.document import Document, build_document
+from trialcut.report.document import Document, build_document, map_figures
+from trialcut.report.drawing import FigureDrawing, link as figure_link
 
 TEMPLATES_ENVIRONMENT_VARIABLE = "TRIALCUT_TEMPLATES"
 STYLESHEET = "report.css"
@@ -73,25 +75,31 @@ def render_html(document: Document, template: str = "report.html.j2", **extra: A
     return environment.get_template(template).render(document=document, stylesheet=stylesheet_text(), **extra)
 
 
-def html_to_pdf(html: str, target: Path) -> Path:
+def html_to_pdf(html: str, target: Path, url_fetcher=None) -> Path:
     try:
         from weasyprint import HTML
     except ImportError as error:  # pragma: no cover - weasyprint is a dependency
         raise ReportError("WeasyPrint is not installed", [Problem(code="report.pdf_engine_missing",
                                                                   message=str(error))]) from error
-    HTML(string=html, base_url=str(target.parent)).write_pdf(target)
+    HTML(string=html, base_url=str(target.parent), url_fetcher=url_fetcher).write_pdf(target)
     return target
 
 
-def write_outputs(document: Document, html: str, out_folder: Path, stem: str = "report") -> dict[str, Path]:
-    """The HTML, the PDF, every table as CSV and every figure as SVG; keys are relative paths."""
+def write_outputs(document: Document, html: str, out_folder: Path, stem: str = "report", *,
+                  pdf_html: str | None = None, url_fetcher=None) -> dict[str, Path]:
+    """The HTML, the PDF, every table as CSV and every figure as SVG; keys are relative paths.
+
+    ``pdf_html`` (default ``html``) is what the PDF engine reads, with ``url_fetcher``.
+    """
     out_folder.mkdir(parents=True, exist_ok=True)
     written: dict[str, Path] = {}
     html_path = out_folder / f"{stem}.html"
     html_path.write_text(html, encoding="utf-8")
     written[f"{stem}.html"] = html_path
-    written[f"{stem}.pdf"] = html_to_pdf(html, out_folder / f"{stem}.pdf")
-    for table in document.tables:
+    written[f"{stem}.pdf"] = out_folder / f"{stem}.pdf"
+    if pdf_html is None:
+        html_to_pdf(html, out_folder / f"{stem}.pdf", url_fetcher)
+    for table in [*document.tables, *document.csv_tables]:
         path = write_table_csv(table, out_folder / "tables" / f"{table.slug}.csv")
         written[f"tables/{path.name}"] = path
     for figure in document.figures:
@@ -107,10 +115,26 @@ def render_documents(results: Mapping[str, Any], run_folder: Path, *,
     """Render ``results`` (and ``audit``) into ``run_folder``; returns {relative path: path}.
 
     Keys: "report.html", "report.pdf", "tables/<name>.csv", "figures/<name>.svg".
+
+    The figures are drawn while the PDF engine works (see drawing.py).  If one cannot be
+    drawn, the report is built again the plain way, so its place shows the reason instead.
     """
-    document = build_document(results, audit)
-    html = render_html(document)
-    return write_outputs(document, html, Path(run_folder))
+    run_folder = Path(run_folder)
+    document = build_document(results, audit, draw=False)
+    drawing = FigureDrawing(document.figures)
+    try:
+        pdf_html = render_html(map_figures(document, lambda f: replace(f, link=figure_link(f))))
+        run_folder.mkdir(parents=True, exist_ok=True)
+        html_to_pdf(pdf_html, run_folder / "report.pdf", drawing.fetcher())
+        complete = drawing.all_drawn()
+        map_figures(document, lambda f: replace(drawing.drawn(replace(f, link="")), link=""))
+    finally:
+        drawing.close()
+    if not complete:
+        document = build_document(results, audit)
+        html = render_html(document)
+        return write_outputs(document, html, run_folder)
+    return write_outputs(document, render_html(document), run_folder, pdf_html=pdf_html)
 
 
 def render_run(run_folder: Path, out: Path | None = None) -> dict[str, Path]:

@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import math
 import re
+from dataclasses import replace
 from typing import TYPE_CHECKING, Any, Mapping, Sequence
 
 import numpy as np
@@ -194,7 +195,7 @@ def _trajectories_figure(context: EndpointContext) -> FigureImage:
         f"Line charts, one per arm, of {context.label} over visits for {shown} participants.",
         lambda: draw.trajectories_chart(sampled, arms=context.arms, visits=context.visits,
                                         visit_days=context.visit_days, y_label=context.y_label), context)
-    return FigureImage(figure.slug, figure.title, figure.alt, figure.svg, note=figure.note or note)
+    return replace(figure, note=figure.note or note)
 
 
 def _sample(series: dict[str, dict[str, list]], sample_size: int, seed: int):
@@ -481,8 +482,16 @@ def _fit_sentence(context: EndpointContext, fit: Mapping[str, Any]) -> str:
     return "; ".join(parts) + "."
 
 
+# A sensitivity analysis shows these tables in the PDF; its other tables are CSV files listed
+# in its section (a reviewer compares analyses by their differences; the rest is detail).
+SENSITIVITY_SHOWN = ("differences", "joint_tests")
+
+
 def generic_analysis(section: "Section", context: EndpointContext, analysis) -> None:
-    """Any method: a sentence on what it is, then every table it carries."""
+    """Any method: a sentence on what it is, then its tables (a sensitivity analysis: the
+    differences and joint tests laid out, the other tables as CSV files, the facts in a sentence)."""
+    # A method this report does not know is shown whole: its tables are all a reader has of it.
+    detail_shown = analysis.get("role") == "primary" or analysis.get("method") not in METHOD_WORDS
     method = analysis.get("method")
     options = analysis.get("options") or {}
     words = METHOD_WORDS.get(method, f"Method '{method}'")
@@ -497,24 +506,42 @@ def generic_analysis(section: "Section", context: EndpointContext, analysis) -> 
         text += " This method is not described further by this version of the report; its tables follow as recorded."
     section.paragraph(text)
     level = _level_text(options)
+    detail = []
     for name, source in (analysis.get("tables") or {}).items():
         if name == "differences":
             section.table(_differences_table(context, source, f"{analysis.get('id')}_differences",
                                              source.get("title") or "Differences from the reference arm",
                                              f"{level} confidence interval"))
+            continue
+        table = from_results_table(source, slug=f"{context.slug}_{analysis.get('id')}_{name}",
+                                   number_format=context.number_format)
+        if detail_shown or name in SENSITIVITY_SHOWN:
+            section.table(table)
         else:
-            section.table(from_results_table(source, slug=f"{context.slug}_{analysis.get('id')}_{name}",
-                                             number_format=context.number_format))
+            detail.append(table)
     fit = {k: v for k, v in (analysis.get("fit") or {}).items() if isinstance(v, (int, float, str, bool))}
     if fit.get("assumption"):
         fit["assumption"] = ASSUMPTION_WORDS.get(fit["assumption"], fit["assumption"])
-    if fit:
+    if fit and not detail_shown:
+        section.paragraph(_facts_sentence(fit, context.number_format))
+    elif fit:
         section.table(facts_table([(FACT_LABELS.get(k, k.replace("_", " ").capitalize()), v,
                                     "text" if isinstance(v, str) else ("count" if isinstance(v, int) else "general"))
                                    for k, v in fit.items()],
                                   slug=f"{context.slug}_{analysis.get('id')}_facts",
                                   title=f"Settings and facts of {analysis.get('label') or analysis.get('id')}",
                                   number_format=context.number_format))
+    section.csv_only(detail)
+
+
+def _facts_sentence(fit: Mapping[str, Any], number_format: NumberFormat) -> str:
+    """The settings and facts of a sensitivity analysis as one line of text."""
+    parts = []
+    for key, value in fit.items():
+        label = FACT_LABELS.get(key, key.replace("_", " ").capitalize())
+        kind = "text" if isinstance(value, str) else ("count" if isinstance(value, int) else "general")
+        parts.append(f"{label}: {number_format.cell(value, kind)}")
+    return "Settings and facts: " + "; ".join(parts) + "."
 
 
 def tipping_point(section: "Section", context: EndpointContext, analysis) -> None:
@@ -543,9 +570,10 @@ def tipping_point(section: "Section", context: EndpointContext, analysis) -> Non
     title = "Tipping-point grid: estimate and p-value for each shift"
     if hidden:
         title += f" (at {visits.pop()})"
-    section.table(from_results_table(grid, slug=f"{context.slug}_tipping_grid", title=title, hide=hidden,
-                                     number_format=context.number_format, wide=True,
-                                     intervals={"Confidence interval": ("lower", "upper")}))
+    # The map below shows every cell's estimate and conclusion; the grid's numbers are a CSV file.
+    grid_table = from_results_table(grid, slug=f"{context.slug}_tipping_grid", title=title, hide=hidden,
+                                    number_format=context.number_format, wide=True,
+                                    intervals={"Confidence interval": ("lower", "upper")})
     for name, source in tables.items():
         if name == "differences":
             section.table(_differences_table(context, source, "tipping_base_differences",
@@ -566,6 +594,7 @@ def tipping_point(section: "Section", context: EndpointContext, analysis) -> Non
         f" for {len({c['arm'] for c in usable})} arms; each tile is labelled with the estimated difference.",
         lambda: draw.tipping_chart(usable, arms=context.arms, alpha=alpha,
                                    label=lambda v: context.number_format.cell(v, "mean")), context))
+    section.csv_only([grid_table])
 
 
 def _tipping_statements(cells, alpha: float, number_format: NumberFormat) -> list[str]:
@@ -599,10 +628,6 @@ def _level_text(options: Mapping[str, Any]) -> str:
 
 
 def _figure(slug: str, title: str, alt: str, render, context: EndpointContext, note: str = "") -> FigureImage:
-    """Draw a figure; a drawing failure becomes a note in the report, not a failed report."""
-    try:
-        svg = render()
-    except Exception as error:  # noqa: BLE001 - one bad figure must not hide the rest of the report
-        return FigureImage(f"{context.slug}_{slug}", title, alt, None,
-                           note=f"Not drawn: {type(error).__name__}: {error}")
-    return FigureImage(f"{context.slug}_{slug}", title, alt, svg, note=note)
+    """A figure to be drawn by ``render`` (see :meth:`FigureImage.drawn`): drawing waits until the
+    renderer knows whether a second process can do it."""
+    return FigureImage(f"{context.slug}_{slug}", title, alt, None, note=note, job=render)

@@ -1,0 +1,141 @@
+"""Draw the report's figures in a second process while the PDF engine lays out the text.
+
+The PDF engine asks for an image only when it builds that image's box, after it has parsed
+the HTML and computed the styles; matplotlib (import and drawing) takes about as long.  So the
+PDF's HTML names each figure by a ``trialcut-figure:<slug>`` URL, a forked child draws the
+figures in reading order, and the engine's URL fetcher waits for the one it needs.  The child
+runs the same drawing calls as the parent would, so the bytes are the same either way.
+
+Forking is used only where it is safe and cheap: a platform that has it, a parent with no
+other threads (forking a threaded process can copy a held lock) and not itself a daemonic
+worker.  Otherwise the figures are drawn here, first.
+"""
+from __future__ import annotations
+
+import multiprocessing
+import os
+import threading
+from typing import Sequence
+
+from trialcut.report.figures import FigureImage
+
+SCHEME = "trialcut-figure:"
+
+
+def link(figure: FigureImage) -> str:
+    return f"{SCHEME}{figure.slug}"
+
+
+class FigureDrawing:
+    """SVG bytes of ``figures`` by slug, drawn in a child process when possible.
+
+    ``fetch`` is a WeasyPrint URL fetcher for the figure links; ``drawn()`` gives every figure
+    drawn (a failed one carries its note, exactly as drawing it here would).
+    """
+
+    def __init__(self, figures: Sequence[FigureImage]):
+        self._waiting = [f for f in figures if f.job is not None]
+        self._drawn: dict[str, FigureImage] = {f.slug: f for f in figures if f.job is None}
+        self._child = self._connection = None
+        if self._waiting and _can_fork():
+            self._start_child()
+        else:
+            self._draw_here()
+
+    # ------------------------------------------------------------------ drawing
+    def _draw_here(self) -> None:
+        for figure in self._waiting:
+            self._drawn[figure.slug] = figure.drawn()
+        self._waiting = []
+
+    def _start_child(self) -> None:
+        context = multiprocessing.get_context("fork")
+        receiving, sending = context.Pipe(duplex=False)
+        figures = self._waiting
+
+        def draw_all() -> None:
+            receiving.close()
+            for figure in figures:
+                done = figure.drawn()
+                sending.send((figure.slug, done.svg, done.note))
+            sending.close()
+
+        self._child = context.Process(target=draw_all, name="trialcut-figures", daemon=True)
+        self._child.start()
+        sending.close()
+        self._connection = receiving
+
+    def _receive_until(self, slug: str | None) -> None:
+        """Read the child's answers until ``slug`` has arrived (None: all of them)."""
+        by_slug = {f.slug: f for f in self._waiting}
+        while self._connection is not None and (slug is None or slug not in self._drawn):
+            try:
+                got, svg, note = self._connection.recv()
+            except EOFError:      # the child died: draw what is missing here
+                self._close()
+                self._waiting = [f for f in self._waiting if f.slug not in self._drawn]
+                self._draw_here()
+                return
+            waiting = by_slug[got]
+            self._drawn[got] = FigureImage(waiting.slug, waiting.title, waiting.alt, svg, note=note or waiting.note,
+                                           number=waiting.number, anchor=waiting.anchor)
+        if self._connection is not None and all(f.slug in self._drawn for f in self._waiting):
+            self._close()
+
+    def _close(self) -> None:
+        if self._connection is not None:
+            self._connection.close()
+            self._connection = None
+        if self._child is not None:
+            self._child.join(timeout=5)
+            if self._child.is_alive():
+                self._child.kill()
+                self._child.join()
+            self._child = None
+
+    # ------------------------------------------------------------------ answers
+    def fetcher(self):
+        """A WeasyPrint URL fetcher that answers the figure links and passes other URLs on."""
+        from weasyprint.urls import URLFetcher, URLFetcherResponse
+
+        drawing = self
+
+        class FigureFetcher(URLFetcher):
+            def fetch(self, url, headers=None):
+                if not url.startswith(SCHEME):
+                    return super().fetch(url, headers)
+                svg = drawing.svg(url[len(SCHEME):])
+                return URLFetcherResponse(url, svg, {"Content-Type": "image/svg+xml"})
+
+        return FigureFetcher()
+
+    def svg(self, slug: str) -> bytes:
+        self._receive_until(slug)
+        figure = self._drawn.get(slug)
+        if figure is None or figure.svg is None:
+            raise ValueError(f"figure {slug} was not drawn")
+        return figure.svg
+
+    def drawn(self, figure: FigureImage) -> FigureImage:
+        if figure.job is None:
+            return figure
+        self._receive_until(figure.slug)
+        return self._drawn[figure.slug]
+
+    def all_drawn(self) -> bool:
+        """Whether every figure came out; False means one failed and carries a note instead."""
+        self._receive_until(None)
+        return all(f.svg is not None for f in self._drawn.values())
+
+    def close(self) -> None:
+        self._close()
+
+
+def _can_fork() -> bool:
+    if os.environ.get("TRIALCUT_DRAW_IN_PROCESS"):
+        return False
+    if "fork" not in multiprocessing.get_all_start_methods():
+        return False
+    if threading.active_count() > 1 or multiprocessing.current_process().daemon:
+        return False
+    return True
