@@ -5,6 +5,8 @@ analyses: the same seed must give the same numbers on any machine layout).
 """
 from __future__ import annotations
 
+import os
+
 import numpy as np
 import pytest
 
@@ -12,6 +14,8 @@ from tests.stats.test_imputation_support import ROLES, simulate_trial
 from trialcut.errors import InputError
 from trialcut.run.executor import DaskExecutor, InlineExecutor, ProcessPoolExecutor, make_executor
 from trialcut.stats.imputation import impute
+
+TRIM = "MALLOC_TRIM_THRESHOLD_"
 
 
 def _square(value: int) -> int:
@@ -48,9 +52,13 @@ def test_process_pool_keeps_order_reports_progress_and_matches_inline_exactly(in
 
 def test_dask_local_cluster_matches_inline_exactly(inline_result):
     pytest.importorskip("dask.distributed")
+    ours = os.environ.get(TRIM)
     with DaskExecutor() as executor:
         assert executor.map(_square, [3, 1, 2]) == [9, 1, 4]
         assert _small_run(executor) == inline_result
+        # The workers inherit this process's setting (usually none): dask's own default of
+        # 65536 made every chain about 1.5 times slower (benchmarks/bench_imputation.py).
+        assert set(executor._client.run(os.environ.get, TRIM).values()) == {ours}
     assert executor._client is None and executor._cluster is None   # closed what it opened
 
 

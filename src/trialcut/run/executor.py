@@ -20,6 +20,9 @@ __all__ = ["InlineExecutor", "ProcessPoolExecutor", "DaskExecutor", "make_execut
 
 Progress = Callable[[int, int], None]
 
+# Dask config key of the environment variable its nannies set before spawning a worker.
+_TRIM_SETTING = "distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_"
+
 
 class _Closing:
     reports_progress = True
@@ -65,7 +68,16 @@ class ProcessPoolExecutor(_Closing):
 
 class DaskExecutor(_Closing):
     """Work on a Dask cluster: the scheduler at ``address``, or a local cluster of two
-    single-threaded worker processes on 127.0.0.1 (no dashboard) that ``close()`` stops."""
+    single-threaded worker processes on 127.0.0.1 (no dashboard) that ``close()`` stops.
+
+    The local cluster's workers keep the C library's own rule for handing freed memory back
+    to the system.  Dask starts workers with ``MALLOC_TRIM_THRESHOLD_=65536``, which makes
+    glibc return the top of the heap after almost every NumPy temporary of the imputation
+    sampler and fault it in again on the next one: a chain then takes about 1.5 times as
+    long as in this process (benchmarks/bench_imputation.py).  Workers of a cluster at
+    ``address`` are started by someone else; start them without that variable for the same
+    speed.
+    """
 
     def __init__(self, address: str | None = None, n_workers: int = 2):
         self.address = address
@@ -75,11 +87,15 @@ class DaskExecutor(_Closing):
 
     def _ensure(self):
         if self._client is None:
+            import dask
             from dask.distributed import Client, LocalCluster   # optional dependency
 
             if self.address is None:
-                self._cluster = LocalCluster(n_workers=self.n_workers, threads_per_worker=1, processes=True,
-                                             dashboard_address=None, host="127.0.0.1")
+                # Read when the workers are spawned, inside the constructor; distributed is
+                # imported above, so leaving the block restores its defaults intact.
+                with dask.config.set({_TRIM_SETTING: None}):
+                    self._cluster = LocalCluster(n_workers=self.n_workers, threads_per_worker=1, processes=True,
+                                                 dashboard_address=None, host="127.0.0.1")
                 self._client = Client(self._cluster)
             else:
                 self._client = Client(self.address)
