@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import multiprocessing
 import os
+import sys
 import threading
 from typing import Sequence
 
@@ -61,6 +62,9 @@ class FigureDrawing:
             sending.close()
 
         self._child = context.Process(target=draw_all, name="trialcut-figures", daemon=True)
+        # Text waiting in our buffers would be copied into the child and written twice.
+        sys.stdout.flush()
+        sys.stderr.flush()
         self._child.start()
         sending.close()
         self._connection = receiving
@@ -82,12 +86,12 @@ class FigureDrawing:
         if self._connection is not None and all(f.slug in self._drawn for f in self._waiting):
             self._close()
 
-    def _close(self) -> None:
+    def _close(self, wait: float = 5.0) -> None:
         if self._connection is not None:
             self._connection.close()
             self._connection = None
         if self._child is not None:
-            self._child.join(timeout=5)
+            self._child.join(timeout=wait)
             if self._child.is_alive():
                 self._child.kill()
                 self._child.join()
@@ -128,7 +132,8 @@ class FigureDrawing:
         return all(f.svg is not None for f in self._drawn.values())
 
     def close(self) -> None:
-        self._close()
+        """Stop the child; one still drawing (the PDF failed before it needed the figures) is killed."""
+        self._close(wait=0.0 if self._connection is not None else 5.0)
 
 
 def _can_fork() -> bool:

@@ -62,8 +62,12 @@ def _environment():
         autoescape=select_autoescape(enabled_extensions=("html", "j2"), default=True),
         undefined=StrictUndefined, trim_blocks=True, lstrip_blocks=True, keep_trailing_newline=True,
     )
-    environment.filters["data_uri"] = lambda data, mime: f"data:{mime};base64,{base64.b64encode(data).decode('ascii')}"
+    environment.filters["data_uri"] = data_uri
     return environment
+
+
+def data_uri(data: bytes, mime: str) -> str:
+    return f"data:{mime};base64,{base64.b64encode(data).decode('ascii')}"
 
 
 def stylesheet_text() -> str:
@@ -127,6 +131,7 @@ def render_documents(results: Mapping[str, Any], run_folder: Path, *,
         run_folder.mkdir(parents=True, exist_ok=True)
         html_to_pdf(pdf_html, run_folder / "report.pdf", drawing.fetcher())
         complete = drawing.all_drawn()
+        links = {f.link: f for f in document.figures}
         map_figures(document, lambda f: replace(drawing.drawn(replace(f, link="")), link=""))
     finally:
         drawing.close()
@@ -134,7 +139,11 @@ def render_documents(results: Mapping[str, Any], run_folder: Path, *,
         document = build_document(results, audit)
         html = render_html(document)
         return write_outputs(document, html, run_folder)
-    return write_outputs(document, render_html(document), run_folder, pdf_html=pdf_html)
+    # The reader's HTML is the PDF's with each figure inlined (the template's own data URI).
+    html = pdf_html
+    for link, figure in links.items():
+        html = html.replace(f'src="{link}"', f'src="{data_uri(drawing.svg(figure.slug), "image/svg+xml")}"')
+    return write_outputs(document, html, run_folder, pdf_html=pdf_html)
 
 
 def render_run(run_folder: Path, out: Path | None = None) -> dict[str, Path]:
