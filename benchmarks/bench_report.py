@@ -2,7 +2,7 @@
 
 The results come from running the demo plan on the demo simulator's final cut (invented
 data, fixed seed).  Figures: the wall time of ``render_documents`` (HTML, PDF, CSV, SVG;
-target under 5 s from issue 5), its page count, and the ratio of that time to a bare
+target under 5 s from issue 5; best of three renderings, the slowest shown beside), its page count, and the ratio of that time to a bare
 reference measured in the same process: every results table written with pandas'
 ``DataFrame.to_html`` and laid out by WeasyPrint with no styling, figures or contents page
 (the irreducible cost of the PDF engine for the same numbers).
@@ -16,6 +16,7 @@ from pathlib import Path
 import pandas as pd
 
 ROOT = Path(__file__).resolve().parents[1]
+RENDERINGS = 3
 
 
 def _demo_results() -> dict:
@@ -81,13 +82,18 @@ def run() -> list[dict]:
         scratch = Path(scratch)
         _bare_reference(results, scratch)  # warm WeasyPrint's fonts and caches for both sides
         reference = _bare_reference(results, scratch)
-        started = time.perf_counter()
-        written = render_documents(results, scratch / "run")
-        ours = time.perf_counter() - started
+        # Best of three: the machine is shared, and a busy neighbour only ever adds time.
+        times = []
+        for attempt in range(RENDERINGS):
+            started = time.perf_counter()
+            written = render_documents(results, scratch / f"run{attempt}")
+            times.append(time.perf_counter() - started)
+        ours = min(times)
         pages = len(pypdf.PdfReader(written["report.pdf"]).pages)
     return [
-        {"figure": "render the demo final cut's report (HTML, PDF, CSV, SVG)", "value": round(ours, 2),
-         "unit": "s", "target": "< 5", "passed": ours < 5, "detail": f"{pages} PDF pages"},
+        {"figure": f"render the demo final cut's report (HTML, PDF, CSV, SVG), best of {RENDERINGS}",
+         "value": round(ours, 2), "unit": "s", "target": "< 5", "passed": ours < 5,
+         "detail": f"{pages} PDF pages; slowest {max(times):.2f} s"},
         {"figure": "report render time / bare pandas to_html + WeasyPrint of the same tables",
          "value": round(ours / reference, 2), "unit": "ratio", "target": "report only", "passed": True,
          "detail": f"bare reference {reference:.2f} s"},

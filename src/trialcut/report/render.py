@@ -8,6 +8,8 @@ rendering the same input twice gives the same bytes.
 from __future__ import annotations
 
 import base64
+import contextlib
+import gc
 import json
 import os
 import tempfile
@@ -123,7 +125,32 @@ def render_documents(results: Mapping[str, Any], run_folder: Path, *,
     The figures are drawn while the PDF engine works (see drawing.py).  If one cannot be
     drawn, the report is built again the plain way, so its place shows the reason instead.
     """
-    run_folder = Path(run_folder)
+    with _older_objects_left_alone():
+        return _render_documents(results, Path(run_folder), audit)
+
+
+@contextlib.contextmanager
+def _older_objects_left_alone():
+    """Keep the garbage collector's full passes off the objects that existed before rendering.
+
+    Rendering allocates millions of small objects, so the collector runs full passes; in a
+    process that already holds a finished run (results, models, libraries) each pass walked
+    every one of those objects too: a second or more of the demo's rendering.  ``gc.freeze``
+    sets them aside until the rendering ends (they are alive anyway); objects made while
+    rendering are collected as usual.  Left alone if the caller already froze objects.
+    """
+    if gc.get_freeze_count():
+        yield
+        return
+    gc.freeze()
+    try:
+        yield
+    finally:
+        gc.unfreeze()
+
+
+def _render_documents(results: Mapping[str, Any], run_folder: Path,
+                      audit: Mapping[str, Any] | None) -> dict[str, Path]:
     document = build_document(results, audit, draw=False)
     drawing = FigureDrawing(document.figures)
     try:
