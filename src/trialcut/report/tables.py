@@ -53,9 +53,8 @@ COLUMN_KINDS = {
 }
 
 
-# Characters, for the column widths: a cell's padding is about two; short text stays on a line.
+# Characters, for the column widths: a cell's padding is about two.
 CELL_PADDING = 2
-SHORT_TEXT = 28
 # Characters of 8.6 pt DejaVu Sans that fit across an A4 page's text block, upright and landscape.
 ROOM_PORTRAIT, ROOM_LANDSCAPE = 100, 148
 
@@ -115,7 +114,7 @@ class ReportTable:
         Widths follow the rule of automatic layout, counted in characters: a column needs at
         least its longest word (numbers never wrap: their longest cell) and at most its longest
         cell; when the page cannot hold every column at its most, each gets its least plus the
-        same share of what it would like beyond that (a short text column keeps its most).
+        same share of what it would like beyond that.
         """
         room = ROOM_LANDSCAPE if self.wide else ROOM_PORTRAIT
         most, least = [], []
@@ -125,10 +124,6 @@ class ReportTable:
             longest = max([len(text) for text in cells] + [longest_word, 2])
             most.append(longest + CELL_PADDING)
             least.append((longest if column.numeric else longest_word) + CELL_PADDING)
-        # Short text (a label of a few words) is kept on one line while the page has room for it.
-        whole = [m if m <= SHORT_TEXT + CELL_PADDING else l for m, l in zip(most, least)]
-        if sum(whole) <= room:
-            least = whole
         if sum(most) > room and sum(most) > sum(least):
             share = max(0.0, room - sum(least)) / (sum(most) - sum(least))
             most = [l + share * (m - l) for m, l in zip(most, least)]
