@@ -58,7 +58,7 @@ def test_dask_local_cluster_matches_inline_exactly(inline_result):
         assert _small_run(executor) == inline_result
         # The workers inherit this process's setting (usually none): dask's own default of
         # 65536 made every chain about 1.5 times slower (benchmarks/bench_imputation.py).
-        assert set(executor._client.run(os.environ.get, TRIM).values()) == {ours}
+        assert set(executor.on_workers(os.environ.get, TRIM).values()) == {ours}
     assert executor._client is None and executor._cluster is None   # closed what it opened
 
 

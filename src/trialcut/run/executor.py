@@ -110,7 +110,11 @@ class DaskExecutor(_Closing):
 
     def preload(self, *modules: str) -> None:
         """Import modules on every worker now, so the first batch does not pay for it."""
-        self._ensure().run(_import_quietly, list(modules))
+        self.on_workers(_import_quietly, list(modules))
+
+    def on_workers(self, function: Callable[..., Any], *args: Any) -> dict[str, Any]:
+        """``function(*args)`` once on every worker (set-up, measurements): {worker address: result}."""
+        return self._ensure().run(function, *args)
 
     def close(self) -> None:
         if self._client is not None:
