@@ -198,6 +198,8 @@ def _executor(workers: int, scheduler: str | None):
 
     if scheduler is not None:
         made = executors.DaskExecutor(address=None if scheduler == "local" else scheduler)
+        # Import the imputation code on every worker now, not inside the first timed batch.
+        made.preload("trialcut.stats.imputation", "trialcut.stats.tipping")
     else:
         made = executors.ProcessPoolExecutor(workers=workers)
     return made, getattr(made, "close", lambda: None)
