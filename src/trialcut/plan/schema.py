@@ -313,11 +313,10 @@ class AncovaOptions(Strict):
     conf_level: float = Field(default=0.95, gt=0, lt=1)
 
 
-class ImputationOptions(Strict):
-    """Multiple imputation under an assumption for values missing after intercurrent events."""
+class _ImputationSettings(Strict):
+    """What every analysis by multiple imputation shares."""
 
     assumption: ImputationAssumption = "mar"
-    imputations: int = Field(default=100, ge=2, le=100_000)
     burn_in: int = Field(default=200, ge=0)
     thinning: int = Field(default=10, ge=1)
     covariance_by_arm: bool = False
@@ -325,6 +324,12 @@ class ImputationOptions(Strict):
         "Independent imputation chains, each with its own burn-in. Part of the random-number "
         "layout: changing it changes the numbers; the worker count never does."))
     covariates: tuple[str, ...] = ()
+
+
+class ImputationOptions(_ImputationSettings):
+    """Multiple imputation under an assumption for values missing after intercurrent events."""
+
+    imputations: int = Field(default=100, ge=2, le=100_000)
     analysis_model: Literal["ancova", "mmrm"] = "ancova"
     delta: tuple[float, ...] | None = Field(default=None, description="Shift added to imputed values, per visit.")
     delta_arms: tuple[str, ...] = Field(default=(), description="Arms whose imputed values are shifted.")
@@ -332,16 +337,8 @@ class ImputationOptions(Strict):
     conf_level: float = Field(default=0.95, gt=0, lt=1)
 
 
-class TippingPointOptions(Strict):
-    assumption: ImputationAssumption = "mar"
+class TippingPointOptions(_ImputationSettings):
     imputations: int = Field(default=50, ge=2, le=100_000)
-    burn_in: int = Field(default=200, ge=0)
-    thinning: int = Field(default=10, ge=1)
-    covariance_by_arm: bool = False
-    chains: int = Field(default=4, ge=1, le=64, description=(
-        "Independent imputation chains, each with its own burn-in. Part of the random-number "
-        "layout: changing it changes the numbers; the worker count never does."))
-    covariates: tuple[str, ...] = ()
     shifts: tuple[float, ...] = Field(min_length=2, description="Grid of δ added to imputed values in the active arm(s).")
     reference_shifts: tuple[float, ...] | None = Field(
         default=None, description="Second dimension: δ in the reference arm (two-dimensional grid).")
