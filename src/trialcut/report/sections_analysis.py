@@ -19,7 +19,7 @@ if TYPE_CHECKING:
 
 METHOD_WORDS = {
     "mmrm": "Mixed model for repeated measures (MMRM)",
-    "ancova": "Covariance analysis (ANCOVA) at each visit, observed data",
+    "ancova": "Covariance analysis (ANCOVA) of observed data, one model per visit",
     "multiple_imputation": "Multiple imputation, pooled with Rubin's rules",
     "tipping_point": "Tipping-point analysis",
 }

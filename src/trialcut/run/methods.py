@@ -89,8 +89,10 @@ def run_ancova(data, analysis, context: RunContext) -> dict[str, Any]:
             "differences": table(result.differences(), "Differences from the reference arm (observed data)"),
             "adjusted_means": table(result.adjusted_means(), "Adjusted means by arm and visit (observed data)"),
         },
-        "fit": _fit_summary(plain(result.to_dict())),
-        "diagnostics": {},
+        # What a reader needs to know about the fit, in words (the tables carry the numbers).
+        "fit": {"visits": ", ".join(visits), "covariates": ", ".join(options.covariates) or "none",
+                "outcome": data.outcome, "reference": data.reference, "conf_level": options.conf_level},
+        "diagnostics": {"per_visit": plain(result.to_dict())},
     }
 
 
