@@ -40,3 +40,15 @@ def test_named_methods_match_statsmodels(method, reference):
 def test_missing_p_value_is_not_rejected():
     out = adjust([0.001, None], method="holm", alpha=0.05)
     assert out["adjusted_p"][1] is None and out["rejected"] == [True, False]
+
+
+def test_weighted_holm_by_hand():
+    # Weighted Holm (Holm 1979, Scand J Statist 6:65; as a graph in Bretz et al. 2009):
+    # with weights (0.8, 0.2), H1 is tested at 0.8α first; once rejected, H2 gets the full α.
+    # Adjusted p-values: q1 = p1/0.8; q2 = max(q1, p2).
+    out = adjust([0.03, 0.045], method="holm", alpha=0.05, weights=[0.8, 0.2])
+    np.testing.assert_allclose(out["adjusted_p"], [0.03 / 0.8, 0.045])
+    assert out["rejected"] == [True, True]
+    # H2 first: p2/0.2 = 0.05 < p1/0.8 = 0.0625, so q2 = 0.05 and q1 = max(0.05, p1) = 0.05.
+    out = adjust([0.05, 0.01], method="holm", alpha=0.05, weights=[0.8, 0.2])
+    np.testing.assert_allclose(out["adjusted_p"], [0.05, 0.05])

@@ -1,6 +1,7 @@
 """Multiplicity adjustment of a family of hypothesis tests.
 
-Bonferroni, Holm and Hochberg go through statsmodels' ``multipletests``.  The graphical
+Bonferroni, Holm and Hochberg go through statsmodels' ``multipletests`` (unweighted; Holm
+with unequal weights is run as its graph, the weighted Holm procedure).  The graphical
 approach follows Bretz, Maurer, Brannath & Posch (2009), "A graphical approach to
 sequentially rejective multiple test procedures", Statistics in Medicine 28:586–604:
 weights w and a transition matrix G; the adjusted p-value of the hypothesis removed at
@@ -27,6 +28,8 @@ def adjust(p_values: Sequence[float | None], *, method: str, alpha: float,
     adjusted = np.full(p.shape, np.nan)
     if method == "none":
         adjusted[known] = p[known]
+    elif method == "holm" and weights is not None and known.all() and len(set(weights)) > 1:
+        adjusted = graphical_adjusted_p(p, *_weighted_holm_graph(np.asarray(weights, float)))
     elif method in _STATSMODELS_NAME:
         if known.any():
             adjusted[known] = multipletests(p[known], alpha=alpha, method=_STATSMODELS_NAME[method])[1]
@@ -39,6 +42,16 @@ def adjust(p_values: Sequence[float | None], *, method: str, alpha: float,
         raise ModelSpecificationError(f"unknown multiplicity method {method!r}")
     rejected = [bool(a <= alpha) if not np.isnan(a) else False for a in adjusted]
     return {"adjusted_p": [None if np.isnan(a) else float(a) for a in adjusted], "rejected": rejected}
+
+
+def _weighted_holm_graph(weights: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Weighted Holm as a graph: each hypothesis passes its level to the others in
+    proportion to their weights (Bretz et al. 2009, section 3)."""
+    w = weights / weights.sum()
+    transitions = np.tile(w, (len(w), 1))
+    np.fill_diagonal(transitions, 0.0)
+    row_sums = transitions.sum(axis=1, keepdims=True)
+    return w, np.divide(transitions, row_sums, out=np.zeros_like(transitions), where=row_sums > 0)
 
 
 def graphical_adjusted_p(p: np.ndarray, weights: np.ndarray, transitions: np.ndarray) -> np.ndarray:
