@@ -161,7 +161,7 @@ def test_other_parameters_are_set_aside(plan):
     assert any(e["step"] == "parameter_selection" and e["count"] == 6 for e in cut.derivations)
 
 
-def test_csv_numbers_are_parsed_and_sas_missing_dot_is_missing(plan):
+def test_csv_numbers_are_parsed_and_a_lone_dot_means_missing(plan):
     frame = _good().astype(str).replace({"None": "", "nan": ""})
     frame.loc[5, "AVAL"] = "."
     cut = prepare_cut(plan, raw(frame, typed=False))

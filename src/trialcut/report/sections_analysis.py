@@ -254,7 +254,7 @@ def primary_analysis(section: "Section", context: EndpointContext, analysis: Map
             section.table(from_results_table(tables[name], slug=f"{context.slug}_{name}", title=title,
                                              number_format=number_format,
                                              kinds={c: kind for c in columns[1:]}))
-    section.table(_fit_statistics(context, fit))
+    section.table(_model_fit_facts(context, fit))
     known = {"marginal_means", "differences", "joint_tests", "fixed_effects"}
     for name, source in tables.items():
         if name not in known and not name.startswith(("covariance", "correlation")):
@@ -331,7 +331,7 @@ def _covariate_text(value: Any) -> str:
     return "; ".join(f"{k}: {v}" for k, v in value.items())
 
 
-def _fit_statistics(context: EndpointContext, fit: Mapping[str, Any]):
+def _model_fit_facts(context: EndpointContext, fit: Mapping[str, Any]):
     pairs, used = [], set()
     for key, label, kind in FIT_FACTS:
         if key in fit and fit[key] is not None and label not in {p[0] for p in pairs}:
@@ -349,7 +349,7 @@ def _fit_statistics(context: EndpointContext, fit: Mapping[str, Any]):
             pairs.append((key.replace("_", " ").capitalize(), value, "general" if not isinstance(value, str) else "text"))
     if not pairs:
         return None
-    return facts_table(pairs, slug=f"{context.slug}_fit_statistics", title="Fit of the model",
+    return facts_table(pairs, slug=f"{context.slug}_model_fit", title="Fit of the model",
                        number_format=context.number_format)
 
 
