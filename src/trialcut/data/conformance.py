@@ -592,16 +592,12 @@ def _check_baseline_present(state: _State) -> None:
     if not state.has(cols.subject):
         state.record("baseline_present", "participants without a baseline value (their change cannot be computed)", "warning")
         return
-    keys = _group_columns(state)
     base_record = (state.work[ROLE] == "baseline")
     if state.has(cols.value):
         base_record &= state.work[cols.value].notna()
-    has_base = state.work[base_record][keys].drop_duplicates()
     if state.has(cols.baseline):
-        has_base = pd.concat([has_base, state.work[state.work[cols.baseline].notna()][keys]]).drop_duplicates()
-    merged = state.work[keys].merge(has_base.assign(__has=True), on=keys, how="left")
-    lacking = pd.Series(merged["__has"].isna().to_numpy(), index=state.work.index)
-    first_each = lacking & ~state.work.duplicated(subset=keys)
+        base_record |= state.work[cols.baseline].notna()
+    first_each = _first_record_of_participants_without(state, base_record)
     state.record("baseline_present", "participants without a baseline value (their change cannot be computed)",
                  "warning", first_each, field=cols.baseline or cols.value, unit="participants",
                  hint="their outcomes are left missing; check the baseline records in the export")
@@ -612,16 +608,19 @@ def _check_post_baseline(state: _State) -> None:
     if not state.has(cols.subject):
         state.record("post_baseline_present", "participants without post-baseline data at any analysis visit", "warning")
         return
-    keys = _group_columns(state)
     analysed = state.work[CHOSEN].astype(bool)
     if state.has(cols.value):
         analysed &= state.work[cols.value].notna()
-    with_data = state.work[analysed][keys].drop_duplicates().assign(__has=True)
-    merged = state.work[keys].merge(with_data, on=keys, how="left")
-    lacking = pd.Series(merged["__has"].isna().to_numpy(), index=state.work.index)
-    first_each = lacking & ~state.work.duplicated(subset=keys)
+    first_each = _first_record_of_participants_without(state, analysed)
     state.record("post_baseline_present", "participants without post-baseline data at any analysis visit",
                  "warning", first_each, unit="participants", hint="they add nothing to a repeated-measures fit; check whether data are expected")
+
+
+def _first_record_of_participants_without(state: _State, having: pd.Series) -> pd.Series:
+    """True on the first record of each participant (and parameter) none of whose records is ``having``."""
+    keys = _group_columns(state)
+    has_any = having.groupby([state.work[k] for k in keys], dropna=False).transform("any")
+    return ~has_any.astype(bool) & ~state.work.duplicated(subset=keys)
 
 
 def _check_event_timing(state: _State) -> None:
