@@ -114,8 +114,7 @@ def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: P
             results = run_plan(
                 plan, cut, context, timer=timer, run_block=run_block,
                 plan_block=_plan_block(loaded, lock),
-                data_block=dict(raw.manifest) | {
-                    "participants": int(raw.frame[plan.columns.subject].nunique()),
+                data_block=cut.summary() | {
                     "participant_hashes": participant_hashes(raw.frame, plan.columns.subject),
                 },
             )

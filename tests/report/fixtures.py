@@ -345,10 +345,9 @@ def build_results(*, unlocked: bool = False, dummy_arms: bool = False, seed: int
                             *[{"step": "visit_window", "participant": f"LVT-201-{101 + i:04d}",
                                "reason": f"day {40 + i} is outside every visit window"} for i in range(7)]],
         },
-        "populations": table("Participants in each analysis population",
-                             ["population", "label", "arm", "participants"],
-                             [["fas", "Full analysis set", arm, n] for arm, n in zip(ARMS, n_per_arm)]
-                             + [["safety", "Safety set", arm, n] for arm, n in zip(ARMS, (60, 59, 60))]),
+        "populations": table("Participants in each analysis population", ["population", *ARMS, "Total"],
+                             [["Full analysis set", *n_per_arm, sum(n_per_arm)],
+                              ["Safety set", 60, 59, 60, 179]]),
         "disposition": table("Disposition", ["status", *ARMS, "total"], [
             ["Randomised", *n_per_arm, 180], ["Completed Week 12", 52, 50, 51, 153],
             ["Stopped study treatment early", 6, 8, 7, 21], ["Started rescue medication", 5, 3, 2, 10]]),

@@ -194,30 +194,11 @@ def populations(section: "Section", results: Mapping[str, Any], number_format: N
     for key, slug, title in (("populations", "populations", "Participants per analysis population and arm"),
                              ("disposition", "disposition", "Disposition of participants by arm")):
         source = results.get(key)
-        if key == "populations" and isinstance(source, Mapping):
-            source = _populations_by_arm(source, results)
         if isinstance(source, Mapping) and source.get("data"):
             section.table(from_results_table(source, slug=slug, title=title, number_format=number_format))
             shown = True
     if not shown:
         section.notice("The results carry no population or disposition counts.")
-
-
-def _populations_by_arm(source: Mapping[str, Any], results: Mapping[str, Any]) -> Mapping[str, Any]:
-    """One row per population and one column per arm, from the long form (population, arm, participants)."""
-    columns = list(source.get("columns") or [])
-    if not {"arm", "participants"} <= set(columns):
-        return source
-    rows = [dict(zip(columns, r)) for r in source.get("data") or []]
-    arm_list = [a.get("code") for a in ((results.get("plan") or {}).get("arms") or {}).get("list") or []]
-    arms = arm_list or list(dict.fromkeys(r["arm"] for r in rows))
-    counts: dict[str, dict[str, Any]] = {}
-    for row in rows:
-        name = row.get("label") or row.get("population")
-        counts.setdefault(name, {})[row["arm"]] = row["participants"]
-    data = [[name, *[per_arm.get(a, 0) for a in arms], sum(v or 0 for v in per_arm.values())]
-            for name, per_arm in counts.items()]
-    return {"title": source.get("title"), "columns": ["population", *arms, "total"], "data": data}
 
 
 # --------------------------------------------------------------------------- multiplicity

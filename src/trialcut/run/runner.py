@@ -55,7 +55,7 @@ def run_plan(plan, cut, context: RunContext, *, plan_block: dict[str, Any], data
         "plan": plan_block,
         "data": data_block,
         "conformance": plain(cut.conformance.to_dict()) | {"derivations": plain(list(cut.derivations))},
-        "populations": _population_counts(plan, cut),
+        "populations": table(cut.population_counts(), "Participants in each analysis population"),
         "disposition": table(cut.disposition(), "Disposition by arm"),
         "endpoints": [],
         "warnings": [],
@@ -65,18 +65,6 @@ def run_plan(plan, cut, context: RunContext, *, plan_block: dict[str, Any], data
             results["endpoints"].append(_run_endpoint(plan, cut, endpoint, context, timer, results["warnings"]))
     results["multiplicity"] = _multiplicity(plan, results)
     return results
-
-
-def _population_counts(plan, cut) -> dict[str, Any]:
-    endpoint = plan.endpoints[0]
-    rows = []
-    for population in plan.populations:
-        data = cut.analysis_data(endpoint.id, population_id=population.id)
-        per_arm = data.frame.groupby(data.arm, observed=False)[data.subject].nunique()
-        for arm in data.arms:
-            rows.append({"population": population.id, "label": population.label, "arm": arm,
-                         "participants": int(per_arm.get(arm, 0))})
-    return table(pd.DataFrame(rows), "Participants in each analysis population")
 
 
 def _analysis_population(plan, analysis) -> str:
