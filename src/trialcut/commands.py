@@ -61,8 +61,8 @@ def command_lock(args) -> int:
 
     loaded = load_plan(args.plan)
     record = lock_plan(loaded, by=args.by, reason=args.reason)
-    console.print(f"[green]locked[/green] {args.plan} as {_short(_field(record, 'plan_sha256', 'hash'))} "
-                  f"by {args.by} ({_field(record, 'locked_utc', 'time')})")
+    console.print(f"[green]locked[/green] {args.plan} as {_short(record.plan_sha256)} "
+                  f"by {args.by} ({record.locked_utc})")
     return 0
 
 
@@ -189,18 +189,18 @@ def _record(out_root: Path, plan, cut_label, run_id, results, audit, loaded, raw
 
 
 def _executor(workers: int, scheduler: str | None):
-    if scheduler is None and workers <= 1:
-        from trialcut.run.context import InlineExecutor
-
-        return InlineExecutor(), lambda: None
-    from trialcut.run import executor as executors
+    """The executor the command line asks for, and how to close it."""
+    from trialcut.run.executor import make_executor
 
     if scheduler is not None:
-        made = executors.DaskExecutor(address=None if scheduler == "local" else scheduler)
+        # A local cluster gets at least two workers; --workers raises that.
+        made = make_executor("dask", workers=max(workers, 2), address=None if scheduler == "local" else scheduler)
         # Import the imputation code on every worker now, not inside the first timed batch.
         made.preload("trialcut.stats.imputation", "trialcut.stats.tipping")
+    elif workers > 1:
+        made = make_executor("processes", workers=workers)
     else:
-        made = executors.ProcessPoolExecutor(workers=workers)
+        made = make_executor("inline")
     return made, getattr(made, "close", lambda: None)
 
 
@@ -260,7 +260,7 @@ def command_verify(args) -> int:
                 hint="pass the registry.sqlite of the output folder the run was written to")])
     else:
         report = verify_all(args.out, registry)
-    console.print(f"[green]verified[/green] {_field(report, 'summary', default='no differences found')}")
+    console.print(f"[green]verified[/green] {report.summary}")
     return 0
 
 
@@ -378,22 +378,3 @@ def _utc_now() -> str:
 
 def _short(hash_text: str | None) -> str:
     return (hash_text or "")[:12]
-
-
-def _field(obj: Any, *names: str, default: Any = None) -> Any:
-    for name in names:
-        if isinstance(obj, dict) and name in obj:
-            return obj[name]
-        if hasattr(obj, name):
-            return getattr(obj, name)
-    return default
-
-
-def _plain(obj: Any) -> Any:
-    if obj is None:
-        return None
-    if hasattr(obj, "to_dict"):
-        return obj.to_dict()
-    if isinstance(obj, (list, tuple)):
-        return [_plain(o) for o in obj]
-    return obj
