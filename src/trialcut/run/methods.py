@@ -1,9 +1,9 @@
 """The registry of analysis methods a plan can name.
 
 Each method takes the data layer's ``AnalysisData``, the plan's analysis entry and the
-``RunContext`` and returns the parts of the analysis entry of Results that only it knows:
-``tables`` (at least ``differences`` for comparative methods), ``fit`` and
-``diagnostics``.  The runner adds identity, status and timing.  The registry's keys equal
+``RunContext`` and returns exactly the parts of the analysis entry of Results that only it
+knows: ``tables`` (at least ``differences`` for comparative methods), ``fit`` and
+``diagnostics``.  The runner owns identity, options, status and timing.  The registry's keys equal
 ``trialcut.plan.schema.ANALYSIS_METHODS`` (checked by a test), so a new method is added
 there and here, and nowhere else.
 """

@@ -22,7 +22,6 @@ from trialcut.run.methods import METHODS
 from trialcut.run.tables import plain, table
 
 RESULTS_FORMAT = 1
-_RUNNER_KEYS = frozenset({"id", "label", "role", "method", "estimand", "population", "status", "error", "options"})
 
 
 @dataclass
@@ -137,9 +136,7 @@ def _run_analysis(plan, cut, endpoint, analysis, role, context, run_warnings) ->
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         try:
-            produced = METHODS[analysis.method](data, analysis, context)
-            # Identity and status belong to the runner; a method contributes its findings.
-            entry.update({k: v for k, v in produced.items() if k not in _RUNNER_KEYS})
+            entry.update(METHODS[analysis.method](data, analysis, context))
         except (FitError, ModelSpecificationError) as error:
             entry["status"] = "failed"
             entry["error"] = error.render()

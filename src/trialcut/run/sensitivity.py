@@ -37,10 +37,9 @@ def _progress(context: RunContext, label: str):
     return lambda done, total: context.progress(label, done, total)
 
 
-def _entry(analysis, tables: dict[str, Any], fit: dict[str, Any]) -> dict[str, Any]:
-    return {"id": analysis.id, "label": analysis.label, "method": analysis.method, "status": "done",
-            "options": plain(analysis.options.model_dump()), "tables": tables, "fit": plain(fit),
-            "diagnostics": {}}
+def _entry(tables: dict[str, Any], fit: dict[str, Any]) -> dict[str, Any]:
+    """What a method contributes; identity, options and status are the runner's."""
+    return {"tables": tables, "fit": plain(fit), "diagnostics": {}}
 
 
 def run_multiple_imputation(data, analysis, context: RunContext) -> dict[str, Any]:
@@ -63,7 +62,7 @@ def run_multiple_imputation(data, analysis, context: RunContext) -> dict[str, An
            "thinning": options.thinning, "chains": result.settings["chains"], "complete_df": result.complete_df,
            "covariates": result.settings["covariates"], "diagnostics": result.diagnostics,
            "delta": result.settings["delta"], "delta_arms": result.settings["delta_arms"]}
-    return _entry(analysis, tables, fit)
+    return _entry(tables, fit)
 
 
 def run_tipping_point(data, analysis, context: RunContext) -> dict[str, Any]:
@@ -88,7 +87,7 @@ def run_tipping_point(data, analysis, context: RunContext) -> dict[str, Any]:
            "thinning": options.thinning, "chains": result.settings["chains"], "alpha": options.alpha,
            "visit": data.primary_visit, "shifts": result.settings["shifts"],
            "reference_shifts": result.settings["reference_shifts"], "diagnostics": result.diagnostics}
-    return _entry(analysis, tables, fit)
+    return _entry(tables, fit)
 
 
 def _assumption_words(name: str) -> str:
