@@ -16,6 +16,7 @@ import yaml
 from trialcut.cli import main
 from trialcut.record.registry import record_run
 from tests.record.tamper import TAMPER_ACTIONS, apply_tamper
+from tests.test_bad_input_cases import _expand
 
 CASES = Path(__file__).resolve().parents[1] / "cases"
 VERIFY_CASES = sorted(CASES.glob("verify_*/case.yaml"))
@@ -28,15 +29,6 @@ def fill(folder: Path) -> None:
     (folder / "audit.json").write_text('{"command_line": []}\n', encoding="utf-8")
     (folder / "tables").mkdir()
     (folder / "tables" / "differences.csv").write_text("arm,estimate\nActive,-1.0\n")
-
-
-def expand(argv: list[str], tokens: dict[str, Path]) -> list[str]:
-    expanded = []
-    for argument in argv:
-        for key, value in tokens.items():
-            argument = argument.replace("{" + key + "}", str(value))
-        expanded.append(argument)
-    return expanded
 
 
 def test_there_are_at_least_four_verification_cases():
@@ -56,10 +48,10 @@ def test_verification_case(case_file: Path, tmp_path: Path, capsys):
         tokens["run"] = record_run(out, out / "registry.sqlite", "S", "c1", "r1", fill,
                                    ENTRY).folder
         # The untampered run verifies, so the failure below is the tamper's doing.
-        assert main(expand(spec["argv"], tokens)) == 0
+        assert main(_expand(spec["argv"], tokens)) == 0
         apply_tamper(tokens["run"], out / "registry.sqlite", spec["setup"])
     capsys.readouterr()
-    status = main(expand(spec["argv"], tokens))
+    status = main(_expand(spec["argv"], tokens))
     shown = capsys.readouterr().err
     assert status == spec["exit"], shown
     assert spec["message"].lower() in shown.lower(), shown

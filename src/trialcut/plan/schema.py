@@ -149,6 +149,10 @@ class Arms(Strict):
     strata: tuple[str, ...] = Field(
         default=(), description="Columns holding the randomisation strata (used by dummy arms).")
 
+    @property
+    def codes(self) -> tuple[str, ...]:
+        return tuple(a.code for a in self.list)
+
     @model_validator(mode="after")
     def _reference_is_an_arm(self) -> "Arms":
         _raise_issues(_arms_issues(self))
@@ -179,6 +183,10 @@ class Visits(Strict):
     baseline: str = Field(default="Baseline", description="Label of the baseline visit in the visit column.")
     windowing: bool = Field(default=False, description="Assign records to visits from the study day column.")
     schedule: tuple[Visit, ...] = Field(min_length=1, description="Post-baseline analysis visits, in time order.")
+
+    @property
+    def labels(self) -> tuple[str, ...]:
+        return tuple(v.label for v in self.schedule)
 
     @model_validator(mode="after")
     def _ordered_and_windowed(self) -> "Visits":
@@ -483,11 +491,11 @@ class AnalysisPlan(Strict):
 
     @property
     def visit_labels(self) -> tuple[str, ...]:
-        return tuple(v.label for v in self.visits.schedule)
+        return self.visits.labels
 
     @property
     def arm_codes(self) -> tuple[str, ...]:
-        return tuple(a.code for a in self.arms.list)
+        return self.arms.codes
 
 
 def _not_declared(path, what: str, name: str, known: Iterable[str], code: str) -> RuleIssue:
@@ -541,11 +549,11 @@ class PlanSections:
 
     @property
     def visit_labels(self) -> tuple[str, ...]:
-        return tuple(v.label for v in self.visits.schedule)
+        return self.visits.labels
 
     @property
     def arm_codes(self) -> tuple[str, ...]:
-        return tuple(a.code for a in self.arms.list)
+        return self.arms.codes
 
 
 @lru_cache(maxsize=None)
