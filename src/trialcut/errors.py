@@ -8,7 +8,7 @@ in one pass.  The command line maps the error classes to exit statuses:
 """
 from __future__ import annotations
 
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass
 from typing import Any
 
 

@@ -12,7 +12,7 @@ import pytest
 from trialcut.data.prepare import prepare_cut
 from trialcut.errors import PlanError
 
-from .conftest import appended, frame_of, make_plan, participant, raw, record
+from .conftest import frame_of, make_plan, participant, raw
 
 
 def _cut(frame, plan=None, **kwargs):

@@ -84,9 +84,6 @@ class RegistryRow:
     def to_dict(self) -> dict[str, Any]:
         return asdict(self)
 
-    def hashed_fields(self) -> dict[str, Any]:
-        return {key: value for key, value in asdict(self).items() if key != "row_hash"}
-
     def folder_path(self, registry_path: Path) -> Path:
         return Path(registry_path).parent / self.folder
 

@@ -27,7 +27,6 @@ class Section:
     title: str
     blocks: list[Block] = field(default_factory=list)
     subsections: list["Section"] = field(default_factory=list)
-    landscape: bool = False
 
     def paragraph(self, text: str) -> None:
         if text:

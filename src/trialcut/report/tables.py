@@ -7,7 +7,6 @@ templates read :meth:`ReportTable.header` and :meth:`ReportTable.body` only.
 """
 from __future__ import annotations
 
-import re
 from dataclasses import dataclass, field, replace
 from typing import Any, Iterable, Mapping, Sequence
 
@@ -132,11 +131,6 @@ class ReportTable:
 
     def with_number(self, number: str, anchor: str) -> "ReportTable":
         return replace(self, number=number, anchor=anchor)
-
-
-def slugify(text: str) -> str:
-    slug = re.sub(r"[^a-z0-9]+", "_", text.lower()).strip("_")
-    return slug[:60] or "table"
 
 
 def column_kind(name: str, values: Iterable[Any]) -> str:

@@ -9,7 +9,7 @@ there and here, and nowhere else.
 """
 from __future__ import annotations
 
-from typing import Any, Callable, Protocol
+from typing import Any, Protocol
 
 from trialcut.run.context import RunContext
 from trialcut.run.tables import plain, table
@@ -108,7 +108,7 @@ def run_tipping_point(data, analysis, context: RunContext) -> dict[str, Any]:
     return run(data, analysis, context)
 
 
-METHODS: dict[str, Callable[..., dict[str, Any]]] = {
+METHODS: dict[str, AnalysisMethod] = {
     "mmrm": run_mmrm,
     "ancova": run_ancova,
     "multiple_imputation": run_multiple_imputation,

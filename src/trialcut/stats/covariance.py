@@ -273,7 +273,7 @@ class _ToeplitzCorrelation:
         return rho
 
     def derivatives(self, gamma, order):
-        m, k = self.n_parameters, self.n_visits
+        m = self.n_parameters
         rho = self._lag_correlations(np.asarray(gamma, float))
         values = np.array([1.0] + [r.value for r in rho])
         gradients = np.vstack([np.zeros(m)] + [r.gradient for r in rho]) if m else np.zeros((1, 0))

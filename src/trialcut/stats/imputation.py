@@ -116,7 +116,7 @@ def reference_based_covariance(own: np.ndarray, reference: np.ndarray, deviation
         return reference.copy()
     if d >= own.shape[0]:
         return own.copy()
-    r11, r12, r21, r22 = reference[:d, :d], reference[:d, d:], reference[d:, :d], reference[d:, d:]
+    r11, r12, r22 = reference[:d, :d], reference[:d, d:], reference[d:, d:]
     a11 = own[:d, :d]
     regression = np.linalg.solve(r11, r12).T          # Σᵣ₂₁Σᵣ₁₁⁻¹
     joint = np.empty_like(own)

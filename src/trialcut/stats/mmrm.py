@@ -380,7 +380,7 @@ def _identifiability(design: Design, structures) -> str | None:
 def _assemble(design: Design, settings, name, likelihood: Likelihood, maximum: Maximum,
               inference: Inference, attempts, caught) -> MMRMFit:
     evaluation = maximum.evaluation
-    p, k = design.n_parameters, len(design.visits)
+    p = design.n_parameters
     fixed = inference.contrasts(np.eye(p))
     cell = design.cell_means.reshape(-1, p)
     means = inference.contrasts(cell)

@@ -228,10 +228,10 @@ def _direction(evaluation: Evaluation, previous_decrement: float) -> tuple[np.nd
 
 def _finish(evaluation: Evaluation, iterations: int, decrement: float, message: str = "converged") -> Maximum:
     if not _is_positive_definite(-evaluation.hessian):
-        raise ConvergenceError(f"the gradient vanished but the observed information is not positive "
+        raise ConvergenceError("the gradient vanished but the observed information is not positive "
                                "definite (a saddle point or a flat direction)")
     if any(np.linalg.cond(sigma) > 1e12 for sigma in evaluation.sigmas):
-        raise ConvergenceError(f"the estimated covariance matrix is numerically singular")
+        raise ConvergenceError("the estimated covariance matrix is numerically singular")
     return Maximum(evaluation, True, iterations, float(np.abs(evaluation.gradient).max()), decrement / 2, message)
 
 
