@@ -253,11 +253,9 @@ def command_verify(args) -> int:
 
     registry = args.registry or args.out / "registry.sqlite"
     if args.run_folder is not None:
-        report = verify_run(args.run_folder, registry_path=registry if registry.exists() else None)
-        if args.registry is not None and not registry.exists():  # asked for, so it must be there
-            raise InputError(f"no registry at {registry}", [Problem(
-                code="record.no_registry", message="the registry file does not exist", file=str(registry),
-                hint="pass the registry.sqlite of the output folder the run was written to")])
+        # An explicit --registry must exist; the default one may be absent (chain not checked).
+        use = registry if args.registry is not None or registry.exists() else None
+        report = verify_run(args.run_folder, registry_path=use)
     else:
         report = verify_all(args.out, registry)
     console.print(f"[green]verified[/green] {report.summary}")

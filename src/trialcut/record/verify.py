@@ -15,7 +15,7 @@ from typing import Any
 
 from trialcut.errors import InputError, Problem, VerificationFailed
 from trialcut.record.manifest import MANIFEST_NAME, list_entries, parse_manifest, sha256_file
-from trialcut.record.registry import RegistryRow, list_runs, verify_chain
+from trialcut.record.registry import RegistryRow, list_runs, open_registry, verify_chain
 from trialcut.record.runfolder import list_run_folders
 
 _RERUN_HINT = ("do not use this folder's results; restore it from a trusted copy or run the "
@@ -55,9 +55,13 @@ class VerificationReport:
 def verify_run(run_folder: Path, registry_path: Path | None = None) -> VerificationReport:
     """Check one run folder (and, given a registry, its row and the whole chain)."""
     folder = Path(run_folder)
-    rows = list_runs(registry_path) if registry_path is not None else []
+    # Judge the folder before the registry: a wrong folder argument is the first thing to say.
+    readable = registry_path is not None and Path(registry_path).is_file()
+    rows = list_runs(registry_path) if readable else []
     row = next((item for item in rows if item.run_id == folder.name), None)
     _require_run_folder(folder, registered=row is not None)
+    if registry_path is not None and not readable:
+        open_registry(registry_path)  # says the registry is missing and what to pass instead
     files_checked, problems = _folder_problems(folder)
     if registry_path is not None:
         problems += _registration_problems(folder, row, registry_path)
