@@ -1,8 +1,11 @@
 """Assemble the report's content from Results: sections of paragraphs, tables and figures.
 
-Nothing here knows about HTML or PDF.  The builders read results.json (and audit.json when
-given) and produce a :class:`Document`; the templates only lay it out.  Unknown analysis
-methods get a generic section from their ``tables``; a failed analysis shows its error.
+Nothing here knows about HTML or PDF.  The section modules (``sections_*.py``) read
+results.json (and audit.json when given) and fill :class:`~trialcut.report.blocks.Section`
+objects with blocks; they never import this module.  This module only assembles their
+sections into a :class:`Document` and numbers its tables and figures; the templates lay it
+out.  Unknown analysis methods get a generic section from their ``tables``; a failed
+analysis shows its error.
 """
 from __future__ import annotations
 
@@ -10,53 +13,10 @@ from dataclasses import dataclass, field, replace
 from typing import Any, Mapping, Sequence
 
 from trialcut.report import sections_analysis, sections_front
+from trialcut.report.blocks import Block, Section, walk
 from trialcut.report.figures import FigureImage
 from trialcut.report.formatting import NumberFormat, describe_rules, short_hash
 from trialcut.report.tables import ReportTable
-
-
-@dataclass
-class Block:
-    kind: str          # "paragraph", "list", "notice", "table", "figure", "csv_tables"
-    content: Any
-
-
-@dataclass
-class Section:
-    anchor: str
-    title: str
-    blocks: list[Block] = field(default_factory=list)
-    subsections: list["Section"] = field(default_factory=list)
-
-    def paragraph(self, text: str) -> None:
-        if text:
-            self.blocks.append(Block("paragraph", text))
-
-    def items(self, texts: Sequence[str]) -> None:
-        if texts:
-            self.blocks.append(Block("list", list(texts)))
-
-    def notice(self, text: str) -> None:
-        self.blocks.append(Block("notice", text))
-
-    def table(self, table: ReportTable | None) -> None:
-        if table is not None and table.rows:
-            self.blocks.append(Block("table", table))
-
-    def csv_only(self, tables: Sequence[ReportTable | None]) -> None:
-        """Detail tables written as CSV beside the report and listed here, not laid out in it."""
-        kept = [t for t in tables if t is not None and t.rows]
-        if kept:
-            self.blocks.append(Block("csv_tables", kept))
-
-    def figure(self, figure: FigureImage | None) -> None:
-        if figure is not None:
-            self.blocks.append(Block("figure", figure))
-
-    def child(self, anchor: str, title: str) -> "Section":
-        section = Section(anchor=f"{self.anchor}-{anchor}", title=title)
-        self.subsections.append(section)
-        return section
 
 
 @dataclass
@@ -162,12 +122,6 @@ def map_figures(document: Document, change) -> Document:
                     figures.append(block.content)
     document.figures = figures
     return document
-
-
-def walk(sections: Sequence[Section]):
-    for section in sections:
-        yield section
-        yield from walk(section.subsections)
 
 
 def number_items(document: Document, report_settings: Mapping[str, Any]) -> Document:

@@ -4,18 +4,16 @@ from __future__ import annotations
 import math
 import re
 from dataclasses import replace
-from typing import TYPE_CHECKING, Any, Mapping, Sequence
+from typing import Any, Mapping, Sequence
 
 import numpy as np
 
 from trialcut.report import figures as draw
+from trialcut.report.blocks import Section
 from trialcut.report.figures import FigureImage
 from trialcut.report.formatting import NumberFormat
 from trialcut.report.sections_front import facts_table
 from trialcut.report.tables import from_records, from_results_table, rows_as_dicts
-
-if TYPE_CHECKING:
-    from trialcut.report.document import Section
 
 METHOD_WORDS = {
     "mmrm": "Mixed model for repeated measures (MMRM)",
@@ -57,7 +55,7 @@ FIT_FACTS = (
 )
 
 
-def endpoint(section: "Section", results, endpoint: Mapping[str, Any], number_format: NumberFormat) -> None:
+def endpoint(section: Section, results, endpoint: Mapping[str, Any], number_format: NumberFormat) -> None:
     context = EndpointContext(results, endpoint, number_format)
     missing_data(section.child("missing", "Missing data"), context)
     descriptive(section.child("descriptive", "Descriptive statistics"), context)
@@ -108,7 +106,7 @@ def _levels(endpoint, column: str) -> list[str]:
 
 
 # --------------------------------------------------------------------------- missing data
-def missing_data(section: "Section", context: EndpointContext) -> None:
+def missing_data(section: Section, context: EndpointContext) -> None:
     endpoint, number_format = context.endpoint, context.number_format
     by_visit = endpoint.get("missing_by_visit")
     if by_visit:
@@ -133,7 +131,7 @@ def missing_data(section: "Section", context: EndpointContext) -> None:
 
 
 # --------------------------------------------------------------------------- descriptive
-def descriptive(section: "Section", context: EndpointContext) -> None:
+def descriptive(section: Section, context: EndpointContext) -> None:
     source = context.endpoint.get("descriptive")
     if not source:
         section.notice("The results carry no descriptive statistics for this endpoint.")
@@ -214,7 +212,7 @@ def _sample(series: dict[str, dict[str, list]], sample_size: int, seed: int):
 
 
 # --------------------------------------------------------------------------- primary analysis
-def primary_analysis(section: "Section", context: EndpointContext, analysis: Mapping[str, Any]) -> None:
+def primary_analysis(section: Section, context: EndpointContext, analysis: Mapping[str, Any]) -> None:
     if _failed(section, analysis):
         return
     if analysis.get("method") != "mmrm":
@@ -284,7 +282,7 @@ def _model_description(context: EndpointContext, analysis) -> str:
     )
 
 
-def _fallbacks(section: "Section", context: EndpointContext, fit, options) -> None:
+def _fallbacks(section: Section, context: EndpointContext, fit, options) -> None:
     planned = list(options.get("covariance") or [])
     if planned:
         section.paragraph("Covariance structures in the plan, tried in this order until one converges: "
@@ -397,7 +395,7 @@ def _residual_figure(context: EndpointContext, analysis) -> FigureImage:
 
 
 # --------------------------------------------------------------------------- sensitivity analyses
-def sensitivity(section: "Section", context: EndpointContext, primary, others: Sequence[Mapping[str, Any]]) -> None:
+def sensitivity(section: Section, context: EndpointContext, primary, others: Sequence[Mapping[str, Any]]) -> None:
     rows = _estimates_at_primary_visit(context, [primary, *others])
     if rows:
         section.paragraph(
@@ -448,7 +446,7 @@ def _estimates_at_primary_visit(context: EndpointContext, analyses) -> list[dict
     return rows
 
 
-def mmrm_sensitivity(section: "Section", context: EndpointContext, analysis) -> None:
+def mmrm_sensitivity(section: Section, context: EndpointContext, analysis) -> None:
     """A repeated-measures model as a sensitivity analysis: what differs, its differences and fit."""
     tables, fit = analysis.get("tables") or {}, analysis.get("fit") or {}
     section.paragraph(_model_description(context, analysis))
@@ -487,7 +485,7 @@ def _fit_sentence(context: EndpointContext, fit: Mapping[str, Any]) -> str:
 SENSITIVITY_SHOWN = ("differences", "joint_tests")
 
 
-def generic_analysis(section: "Section", context: EndpointContext, analysis) -> None:
+def generic_analysis(section: Section, context: EndpointContext, analysis) -> None:
     """Any method: a sentence on what it is, then its tables (a sensitivity analysis: the
     differences and joint tests laid out, the other tables as CSV files, the facts in a sentence)."""
     # A method this report does not know is shown whole: its tables are all a reader has of it.
@@ -544,7 +542,7 @@ def _facts_sentence(fit: Mapping[str, Any], number_format: NumberFormat) -> str:
     return "Settings and facts: " + "; ".join(parts) + "."
 
 
-def tipping_point(section: "Section", context: EndpointContext, analysis) -> None:
+def tipping_point(section: Section, context: EndpointContext, analysis) -> None:
     tables, options = analysis.get("tables") or {}, analysis.get("options") or {}
     alpha = float(options.get("alpha") or 0.05)
     grid_name = next((n for n, t in tables.items()
@@ -613,7 +611,7 @@ def _tipping_statements(cells, alpha: float, number_format: NumberFormat) -> lis
 
 
 # --------------------------------------------------------------------------- shared
-def _failed(section: "Section", analysis) -> bool:
+def _failed(section: Section, analysis) -> bool:
     status = analysis.get("status")
     if status in (None, "ok"):
         return False

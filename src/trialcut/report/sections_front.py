@@ -2,13 +2,11 @@
 from __future__ import annotations
 
 from dataclasses import replace
-from typing import TYPE_CHECKING, Any, Mapping, Sequence
+from typing import Any, Mapping, Sequence
 
+from trialcut.report.blocks import Section
 from trialcut.report.formatting import NumberFormat, short_hash
 from trialcut.report.tables import ReportTable, column_kind, from_records, from_results_table
-
-if TYPE_CHECKING:
-    from trialcut.report.document import Section
 
 STRATEGY_WORDS = {
     "treatment_policy": "treatment policy", "hypothetical": "hypothetical", "composite": "composite",
@@ -81,7 +79,7 @@ def title_facts(results: Mapping[str, Any]) -> list[tuple[str, str]]:
 
 
 # --------------------------------------------------------------------------- about this run
-def run_record(section: "Section", results: Mapping[str, Any], number_format: NumberFormat) -> None:
+def run_record(section: Section, results: Mapping[str, Any], number_format: NumberFormat) -> None:
     plan, run, data = results.get("plan") or {}, results.get("run") or {}, results.get("data") or {}
     study = plan.get("study") or {}
     section.paragraph(
@@ -142,7 +140,7 @@ def amendment_history(plan: Mapping[str, Any]) -> list[dict[str, Any]]:
 
 
 # --------------------------------------------------------------------------- estimands
-def estimands(section: "Section", results: Mapping[str, Any], number_format: NumberFormat) -> None:
+def estimands(section: Section, results: Mapping[str, Any], number_format: NumberFormat) -> None:
     plan = results.get("plan") or {}
     entries = plan.get("estimands") or []
     if not entries:
@@ -189,7 +187,7 @@ def _events_text(estimand: Mapping[str, Any], event_labels: Mapping[str, str]) -
 
 
 # --------------------------------------------------------------------------- populations
-def populations(section: "Section", results: Mapping[str, Any], number_format: NumberFormat) -> None:
+def populations(section: Section, results: Mapping[str, Any], number_format: NumberFormat) -> None:
     shown = False
     for key, slug, title in (("populations", "populations", "Participants per analysis population and arm"),
                              ("disposition", "disposition", "Disposition of participants by arm")):
@@ -202,7 +200,7 @@ def populations(section: "Section", results: Mapping[str, Any], number_format: N
 
 
 # --------------------------------------------------------------------------- multiplicity
-def multiplicity(section: "Section", results: Mapping[str, Any], number_format: NumberFormat) -> None:
+def multiplicity(section: Section, results: Mapping[str, Any], number_format: NumberFormat) -> None:
     record = results.get("multiplicity") or {}
     method = record.get("method") or "none"
     hypotheses = record.get("hypotheses")
@@ -227,7 +225,7 @@ def multiplicity(section: "Section", results: Mapping[str, Any], number_format: 
 
 
 # --------------------------------------------------------------------------- conformance
-def conformance(section: "Section", results: Mapping[str, Any], number_format: NumberFormat) -> None:
+def conformance(section: Section, results: Mapping[str, Any], number_format: NumberFormat) -> None:
     record = results.get("conformance") or {}
     checks = record.get("checks") or []
     failed = [c for c in checks if str(c.get("status")).lower() not in ("passed", "pass", "ok")]
@@ -280,7 +278,7 @@ def _describe_mapping(entry: Mapping[str, Any]) -> str:
 
 
 # --------------------------------------------------------------------------- audit appendix
-def audit_appendix(section: "Section", results: Mapping[str, Any], audit: Mapping[str, Any] | None,
+def audit_appendix(section: Section, results: Mapping[str, Any], audit: Mapping[str, Any] | None,
                    number_format: NumberFormat) -> None:
     run = results.get("run") or {}
     if not audit:
@@ -330,7 +328,7 @@ AUDIT_TITLES = {
 }
 
 
-def _audit_part(section: "Section", key: str, value: Any, number_format: NumberFormat,
+def _audit_part(section: Section, key: str, value: Any, number_format: NumberFormat,
                 title: str | None = None) -> None:
     title = title or AUDIT_TITLES.get(key, key.replace("_", " ").capitalize())
     slug = f"audit_{key}"
