@@ -321,7 +321,9 @@ def test_audit_record_reaches_the_appendix(results):
              "warnings": ["a warning from the audit record"]}
     reader = read_html(render_html(build_document(results, audit)))
     steps = table_by_caption(reader, "Steps and their timing")
-    assert steps["rows"] == [["load plan", "0.012"], ["endpoint fbs_change", "4.500"]]
+    # Steps in words, the endpoint by its label (sections_audit.py).
+    endpoint_label = results["endpoints"][0]["label"]
+    assert steps["rows"] == [["Load plan", "0.012"], [f"All analyses of {endpoint_label}", "4.500"]]
     assert table_by_caption(reader, "Package versions")["rows"] == [["numpy", "1.26.4"]]
 
 
