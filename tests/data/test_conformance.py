@@ -204,5 +204,44 @@ def test_categorical_columns_from_a_typed_file_are_plain_values(plan):
 
 
 def test_counts_name_their_unit():
-    problems, _ = _codes(_good().drop(columns="FASFL"))
-    assert problems["data.required_columns"].got == "1 column"
+    frame = _good().drop(columns="FASFL")
+    problems, _ = _codes(frame)
+    # One column is missing, but the file is not a one-column file: say both (issue 10).
+    assert problems["data.required_columns"].got.startswith(
+        f"1 of 11 needed columns missing from a file with {len(frame.columns)} columns: USUBJID")
+
+
+
+# --------------------------------------------------------------------------- issue 10
+def test_a_change_that_is_not_value_minus_baseline_is_refused():
+    # ADaM defines CHG = AVAL − BASE (CDISC ADaM Implementation Guide, BDS change from
+    # baseline); an export whose change column is shifted by −20 must not be analysed.
+    frame = _good().assign(BASE=[30.0, 30.0, 30.0, 40.0, 40.0, 40.0])
+    frame["CHG"] = frame["AVAL"] - frame["BASE"]
+    frame.loc[frame["ABLFL"] != "Y", "CHG"] -= 20
+    problems, error = _codes(frame)
+    problem = problems["data.change_consistent"]
+    assert "CHG differs from AVAL − BASE" in problem.message and "tolerance" in problem.hint
+    assert problem.rows[0].startswith("record 2 (S1, Week 2): '-22'")
+    assert problem.got == "4 records"
+
+
+def test_a_change_within_rounding_of_value_minus_baseline_passes(plan):
+    frame = _good().assign(BASE=[30.0, 30.0, 30.0, 40.0, 40.0, 40.0])
+    frame["CHG"] = frame["AVAL"] - frame["BASE"] + 1e-7     # below 1e-6 × |AVAL|
+    assert not check_cut(plan, raw(frame)).report.errors
+
+
+def test_an_absurdly_large_value_is_refused_with_its_row():
+    frame = _good()
+    frame.loc[4, "AVAL"] = 1e200
+    problems, _ = _codes(frame)
+    assert problems["data.value_magnitude"].rows[0].startswith("record 5 (S2, Week 2): '1e+200'")
+
+
+def test_a_cut_with_no_record_at_any_analysis_visit_is_refused():
+    frame = _good()
+    frame["ADY"] = frame["ADY"] - 500          # every study day before randomisation
+    problems, _ = _codes(frame)
+    assert "no record of any participant falls at an analysis visit" in problems["data.analysable_records"].message
+    assert problems["data.analysable_records"].field == "ADY"

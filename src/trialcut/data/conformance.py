@@ -33,6 +33,13 @@ ROLE = "__role"        # "baseline", "post", or "other" (a baseline-labelled rec
 ANALYSIS_VISIT = "__analysis_visit"
 CHOSEN = "__chosen"    # the one record analysed per participant and visit
 MISSING_TEXT = {"", ".", "NA", "NaN", "nan"}
+# The analyses square values and multiply covariance matrices; beyond this size that
+# arithmetic overflows a double (about 1.8e308).  No measured score comes near it.
+LARGEST_VALUE = 1e60
+# A filled change may differ from value minus baseline by rounding in the export only:
+# this relative tolerance (of the larger of 1, |value| and |baseline|) allows for a
+# decimal written with 6 significant digits, and nothing more.
+CHANGE_TOLERANCE = 1e-6
 FLAG_VALUES = {"Y", "N"}
 SHOWN_ROWS = 10
 
@@ -48,6 +55,7 @@ class Check:
     field: str | None = None
     hint: str | None = None
     unit: str = "records"             # what ``count`` counts: records, participants, columns, visits
+    got: str | None = None            # what was found, when a count alone would mislead
 
     @property
     def failed(self) -> bool:
@@ -83,7 +91,7 @@ class ConformanceReport:
     def problems(self, severity: str = "error") -> list[Problem]:
         failed = self.errors if severity == "error" else self.warnings
         return [Problem(code=f"data.{c.id}", message=c.description, file=self.file, field=c.field,
-                        got=f"{c.count} {_unit(c)}", hint=c.hint,
+                        got=c.got or f"{c.count} {_unit(c)}", hint=c.hint,
                         rows=tuple(_row_text(r) for r in c.rows)) for c in failed]
 
 
@@ -156,19 +164,21 @@ class _State:
     def record(self, check_id: str, description: str, severity: str, mask: pd.Series | None = None,
                *, count: int | None = None, field: str | None = None, hint: str | None = None,
                value_column: str | None = None, rows: tuple[dict[str, Any], ...] | None = None,
-               unit: str = "records") -> None:
+               unit: str = "records", got: str | None = None) -> None:
         if mask is None and count is None:
             self.checks.append(Check(check_id, description, severity, "not_run", 0, (), field, hint, unit))
             return
         found = int(mask.sum()) if count is None else count
         shown = rows if rows is not None else (self.offending(mask, value_column) if found else ())
         status = "failed" if found else "passed"
-        self.checks.append(Check(check_id, description, severity, status, found, shown, field, hint, unit))
+        self.checks.append(Check(check_id, description, severity, status, found, shown, field, hint, unit,
+                                 got if found else None))
 
 
 def _value_text(value: Any) -> str | None:
     """A cell as the user wrote it: 98 rather than 98.0, text unchanged."""
-    if isinstance(value, (float, np.floating)) and np.isfinite(value) and float(value).is_integer():
+    if isinstance(value, (float, np.floating)) and np.isfinite(value) and float(value).is_integer() \
+            and abs(value) < 1e15:
         return str(int(value))
     return _text_or_none(value)
 
@@ -221,10 +231,13 @@ def _check_required(state: _State) -> None:
     if absent:
         description = "columns the plan needs that are missing: " + ", ".join(
             f"{n} ({needed[n]})" for n in absent)
+    present = [c for c in state.work.columns if c != ROW]
+    shown = ", ".join(present[:12]) + (f", … ({len(present) - 12} more)" if len(present) > 12 else "")
     state.record("required_columns", description, "error", count=len(absent), unit="columns",
                  field=", ".join(absent) or None,
                  hint="add the columns to the export, or map them in the plan's 'columns' section",
-                 rows=())
+                 rows=(), got=f"{len(absent)} of {len(needed)} needed columns missing from a file with "
+                              f"{len(present)} column{'s' if len(present) != 1 else ''}: {shown}")
 
 
 # --------------------------------------------------------------------------- types
@@ -438,6 +451,23 @@ def _check_finite(state: _State) -> None:
     state.record("finite_values", "numeric values that are infinite", "error", mask,
                  field=", ".join(bad_columns) or None, value_column=bad_columns[0] if bad_columns else None,
                  hint="replace infinite values by the measured value or leave them empty")
+    _check_magnitude(state)
+
+
+def _check_magnitude(state: _State) -> None:
+    mask = pd.Series(False, index=state.work.index)
+    bad_columns = []
+    for name in numeric_columns(state.plan):
+        if state.has(name):
+            values = state.work[name].astype(float)
+            column_mask = np.isfinite(values) & (values.abs() > LARGEST_VALUE)
+            if column_mask.any():
+                bad_columns.append(name)
+            mask |= column_mask
+    state.record("value_magnitude", f"numeric values beyond ±{LARGEST_VALUE:g}, too large for the analyses' "
+                 "arithmetic", "error", mask, field=", ".join(bad_columns) or None,
+                 value_column=bad_columns[0] if bad_columns else None,
+                 hint="correct the values (a unit or export error?) and declare the endpoint's range in the plan")
 
 
 def _endpoint_rows(state: _State, endpoint) -> pd.Series:
@@ -468,6 +498,23 @@ def _check_range(state: _State) -> None:
                  field=", ".join(dict.fromkeys(bad_columns)) or None,
                  value_column=bad_columns[0] if bad_columns else None,
                  hint=f"declared ranges: {hint}; correct the values or the plan" if ranged else None)
+
+
+def _check_change(state: _State) -> None:
+    """A filled change must equal value − baseline (the ADaM definition of CHG) within the
+    rounding of an export; a shifted or stale change column would otherwise be analysed as is."""
+    cols = state.columns
+    if not (cols.change and state.has(cols.change, cols.value, cols.baseline)):
+        return
+    change, value, baseline = (state.work[c].astype(float) for c in (cols.change, cols.value, cols.baseline))
+    scale = np.maximum(1.0, np.maximum(value.abs(), baseline.abs()))
+    filled = change.notna() & value.notna() & baseline.notna()
+    mask = filled & ((change - (value - baseline)).abs() > CHANGE_TOLERANCE * scale)
+    state.record("change_consistent", f"{cols.change} differs from {cols.value} − {cols.baseline}", "error", mask,
+                 field=cols.change, value_column=cols.change,
+                 hint=f"correct {cols.change}, or leave it empty and trialcut derives it as {cols.value} − "
+                      f"{cols.baseline} (tolerance: {CHANGE_TOLERANCE:g} × the larger of 1, |{cols.value}| "
+                      f"and |{cols.baseline}|)")
 
 
 def _check_exact_duplicates(state: _State) -> None:
@@ -614,6 +661,15 @@ def _check_post_baseline(state: _State) -> None:
     first_each = _first_record_of_participants_without(state, analysed)
     state.record("post_baseline_present", "participants without post-baseline data at any analysis visit",
                  "warning", first_each, unit="participants", hint="they add nothing to a repeated-measures fit; check whether data are expected")
+    if len(state.work) and not analysed.any():
+        # Nothing to analyse at all (e.g. every study day negative): an export or a plan error.
+        post = state.work[ROLE] == "post"
+        state.record("analysable_records", "no record of any participant falls at an analysis visit", "error",
+                     count=1, rows=state.offending(post, cols.study_day if state.has(cols.study_day) else cols.visit),
+                     got=f"none of {int(post.sum())} post-baseline records",
+                     field=cols.study_day if state.plan.visits.windowing else cols.visit,
+                     hint="check the study days (relative to randomisation, day 1 the first day) and the "
+                          "visit windows or labels in the plan")
 
 
 def _first_record_of_participants_without(state: _State, having: pd.Series) -> pd.Series:
@@ -639,7 +695,8 @@ def _check_event_timing(state: _State) -> None:
 
 _STEPS: tuple[Callable[[_State], None], ...] = (
     _check_required, _check_types, _check_identifiers, _check_parameters, _check_arms, _check_arm_constant,
-    _check_subject_level, _check_flags, _check_baseline_flag, _check_finite, _check_range, _check_exact_duplicates,
+    _check_subject_level, _check_flags, _check_baseline_flag, _check_finite, _check_range, _check_change,
+    _check_exact_duplicates,
     _assign_roles, _check_one_baseline, _check_visits, _check_baseline_present, _check_post_baseline,
     _check_event_timing,
 )

@@ -24,6 +24,7 @@ import datetime as _dt
 import hashlib
 import json
 import math
+import re
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
@@ -43,6 +44,11 @@ _NUMERIC_JSON_TYPES = ("integer", "decimal", "float", "double")
 _REQUIRED_TOP_LEVEL = ("datasetJSONCreationDateTime", "datasetJSONVersion", "itemGroupOID",
                        "records", "name", "label", "columns", "rows")
 _REQUIRED_COLUMN_KEYS = ("itemOID", "name", "label", "dataType")
+_DECIMAL = re.compile(r"[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?")
+
+# A data cut of a repeated-measures trial is a few megabytes; a file beyond this is an export
+# gone wrong (or the wrong file), and reading it whole would take minutes and all the memory.
+MAX_DATA_BYTES = 1 << 30
 
 
 @dataclass(frozen=True)
@@ -86,6 +92,11 @@ def read_cut(path: str | Path) -> RawCut:
     if not path.is_file():
         raise _error(path, "data.not_found", "the data file does not exist or is not a file",
                      hint="check the path given with --data")
+    size = path.stat().st_size
+    if size > MAX_DATA_BYTES:
+        raise _error(path, "data.too_large", "the data file is larger than trialcut reads",
+                     expected=f"at most {MAX_DATA_BYTES // (1 << 20)} MB", got=f"{size / (1 << 20):.0f} MB",
+                     hint="check that this is the analysis dataset; export only the parameters the plan analyses")
     try:
         content = path.read_bytes()
     except OSError as exc:
@@ -112,13 +123,10 @@ def _error(path: Path, code: str, message: str, **extra: Any) -> DataError:
 
 # --------------------------------------------------------------------------- CSV
 def _read_csv(path: Path, content: bytes):
+    import csv
     import io
 
-    try:
-        text = content.decode("utf-8-sig")
-    except UnicodeDecodeError as exc:
-        raise _error(path, "data.encoding", f"the CSV file is not UTF-8 text (byte {exc.start})",
-                     hint="save the file as UTF-8") from exc
+    text = _decode(path, content, "CSV file")
     try:
         # Everything as text: typed conversion happens in the checks, with line numbers.
         # index_col=False and warnings as errors: a line with more fields than the header
@@ -127,17 +135,57 @@ def _read_csv(path: Path, content: bytes):
             warnings.simplefilter("error", pd.errors.ParserWarning)
             frame = pd.read_csv(io.StringIO(text), dtype=str, keep_default_na=False,
                                 na_values=[""], skip_blank_lines=True, index_col=False)
-    except (pd.errors.ParserError, pd.errors.ParserWarning, pd.errors.EmptyDataError, ValueError) as exc:
+    except (pd.errors.ParserError, pd.errors.ParserWarning, pd.errors.EmptyDataError, ValueError,
+            csv.Error) as exc:
         raise _error(path, "data.malformed_csv", f"the CSV file cannot be parsed: {exc}",
-                     hint="check quoting and that every line has as many fields as the header") from exc
-    unnamed = [c for c in frame.columns if str(c).startswith("Unnamed:")]
-    duplicated = [c for c in frame.columns if "." in str(c) and str(c).rsplit(".", 1)[0] in frame.columns]
-    if unnamed or duplicated:
-        raise _error(path, "data.bad_header", "the CSV header has empty or repeated column names",
-                     got=", ".join(map(str, unnamed + duplicated)),
-                     hint="give every column one unique name in the first line")
+                     hint=_delimiter_hint(text) or
+                     "check quoting and that every line has as many fields as the header") from exc
+    _check_csv_header(path, frame, text)
     frame.columns = [str(c).strip() for c in frame.columns]
     return frame, 2, "line", False
+
+
+def _decode(path: Path, content: bytes, what: str) -> str:
+    try:
+        return content.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        line = content[:exc.start].count(b"\n") + 1
+        column = exc.start - (content.rfind(b"\n", 0, exc.start) + 1) + 1
+        raise _error(path, "data.encoding", f"the {what} is not UTF-8 text", line=line, column=column,
+                     expected="UTF-8", got=f"byte 0x{content[exc.start]:02x} at line {line}, column {column}",
+                     hint="save the file as UTF-8 (a spreadsheet's 'CSV UTF-8' export)") from exc
+
+
+def _delimiter_hint(text: str) -> str | None:
+    """When the header holds no comma but semicolons or tabs, say so: a spreadsheet in a
+    locale with the decimal comma writes CSV with ';' between fields."""
+    header = text.split("\n", 1)[0]
+    if "," in header:
+        return None
+    for mark, name in ((";", "semicolons (;)"), ("\t", "tabs")):
+        if header.count(mark) >= 1:
+            return (f"the first line separates its fields with {name}, not commas: export the file "
+                    "as comma-separated CSV (with '.' as the decimal mark)")
+    return None
+
+
+def _check_csv_header(path: Path, frame: pd.DataFrame, text: str) -> None:
+    names = [str(c) for c in frame.columns]
+    unnamed = [c for c in names if c.startswith("Unnamed:")]
+    # pandas renames a repeated name 'AVAL' to 'AVAL.1'; names that differ only by spaces
+    # ('AVAL' and ' AVAL') become one column once trimmed: both are repeats.
+    renamed = [c for c in names if "." in c and c.rsplit(".", 1)[0] in names]
+    trimmed = [c.strip() for c in names]
+    spaced = sorted({repr(c) for c in names if trimmed.count(c.strip()) > 1})
+    if unnamed or renamed or spaced:
+        raise _error(path, "data.bad_header", "the CSV header has empty or repeated column names",
+                     line=1, got=", ".join(unnamed + renamed + spaced),
+                     hint="give every column one unique name in the first line (spaces around a name do not count)")
+    if len(names) == 1:
+        hint = _delimiter_hint(text)
+        if hint:
+            raise _error(path, "data.one_column", f"the CSV file reads as a single column {names[0][:60]!r}",
+                         line=1, expected="comma-separated fields", got="1 column", hint=hint)
 
 
 # --------------------------------------------------------------------------- Parquet
@@ -149,21 +197,42 @@ def _read_parquet(path: Path, content: bytes):
 
     try:
         table = pq.read_table(io.BytesIO(content))
-    except (pa.ArrowException, OSError, ValueError) as exc:
+        table = _decimals_as_floats(table)
+        frame = table.to_pandas()
+    except (pa.ArrowException, OSError, ValueError, TypeError, NotImplementedError) as exc:
         raise _error(path, "data.malformed_parquet", f"the Parquet file cannot be read: {exc}",
                      hint="write the cut again with a Parquet writer (e.g. pandas.DataFrame.to_parquet)") from exc
-    frame = table.to_pandas()
     frame = frame.reset_index(drop=True)
     frame.columns = [str(c) for c in frame.columns]
     return frame, 1, "record", True
 
 
+def _decimals_as_floats(table):
+    """Decimal columns (fixed-point, as databases export them) become float64: every value of
+    a score or a study day fits a double's 15 significant digits."""
+    import pyarrow as pa
+
+    for index, column in enumerate(table.schema):
+        if pa.types.is_decimal(column.type):
+            table = table.set_column(index, column.name, table.column(index).cast(pa.float64()))
+    return table
+
+
 # --------------------------------------------------------------------------- Dataset-JSON
 def _read_dataset_json(path: Path, content: bytes):
+    text = _decode(path, content, "Dataset-JSON file")
     try:
-        document = json.loads(content.decode("utf-8-sig"))
-    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+        document = json.loads(text, parse_constant=_refuse_constant)
+    except json.JSONDecodeError as exc:
+        raise _error(path, "data.malformed_json", f"the file is not valid JSON: {exc.msg}",
+                     line=exc.lineno, column=exc.colno,
+                     hint="export the cut again as CDISC Dataset-JSON v1.1") from exc
+    except ValueError as exc:      # NaN or Infinity, which JSON does not have
         raise _error(path, "data.malformed_json", f"the file is not valid JSON: {exc}",
+                     hint="write a missing value as null; JSON has no NaN or Infinity") from exc
+    except RecursionError as exc:
+        raise _error(path, "data.malformed_json", "the JSON is nested too deeply to be a Dataset-JSON file",
+                     expected="an object whose rows are arrays of values", got="arrays or objects nested thousands deep",
                      hint="export the cut again as CDISC Dataset-JSON v1.1") from exc
     problems = _dataset_json_structure(document)
     if problems:
@@ -179,6 +248,10 @@ def _read_dataset_json(path: Path, content: bytes):
     for column in columns:
         frame[column["name"]] = _json_column(frame[column["name"]], column["dataType"])
     return frame, 1, "record", True
+
+
+def _refuse_constant(name: str) -> Any:
+    raise ValueError(f"{name} is not a JSON value")
 
 
 def _dataset_json_structure(document: Any) -> list[dict[str, Any]]:
@@ -232,6 +305,10 @@ def _dataset_json_column_problems(columns: list[Any]) -> list[dict[str, Any]]:
                                  message="unknown dataType", expected="one of " + ", ".join(DATASET_JSON_TYPES),
                                  got=repr(column.get("dataType"))))
         name = column.get("name")
+        if "name" in column and (not isinstance(name, str) or not name.strip()):
+            problems.append(dict(code="data.dataset_json_structure", field=f"{where}.name",
+                                 message="a column name must be non-empty text", got=_shown(name)))
+            continue
         if name in seen:
             problems.append(dict(code="data.dataset_json_structure", field=f"{where}.name",
                                  message="column name used twice", got=repr(name)))
@@ -252,7 +329,7 @@ def _dataset_json_rows(rows: list[Any], columns: list[dict[str, Any]]) -> list[d
         for value, column in zip(row, columns):
             if value is not None and not _fits(value, column["dataType"]):
                 key = ("data.dataset_json_value", f"values do not fit column {column['name']}'s dataType {column['dataType']}")
-                problems.setdefault(key, []).append(f"record {number} ({value!r})")
+                problems.setdefault(key, []).append(f"record {number} ({_shown(value)})")
     return [dict(code=code, message=message, rows=tuple(found[:10]), got=f"{len(found)} rows",
                  hint="export the cut again as CDISC Dataset-JSON v1.1")
             for (code, message), found in problems.items()]
@@ -262,23 +339,30 @@ def _fits(value: Any, data_type: str) -> bool:
     if data_type == "boolean":
         return isinstance(value, bool)
     if data_type == "integer":
-        return isinstance(value, int) and not isinstance(value, bool)
+        # Integers become float64: beyond 2**53 they would silently lose digits.
+        return isinstance(value, int) and not isinstance(value, bool) and abs(value) <= 2 ** 53
+    if data_type in ("float", "double", "decimal") and isinstance(value, (int, float)) and not isinstance(value, bool):
+        # A number too large for a double (1e999) reads as infinity: not a measurement.
+        return _finite(value)
     if data_type in ("float", "double"):
-        return isinstance(value, (int, float)) and not isinstance(value, bool)
+        return False
     if data_type == "decimal":
-        # Decimals travel as strings; a plain JSON number is accepted too.
-        if isinstance(value, (int, float)) and not isinstance(value, bool):
-            return True
-        return isinstance(value, str) and _parses_as_number(value)
+        # Decimals travel as strings: digits with an optional point and exponent, never
+        # 'NaN' or 'Infinity' (missing is null), never beyond a double's range.
+        return isinstance(value, str) and _DECIMAL.fullmatch(value.strip()) is not None and _finite(value)
     return isinstance(value, str)
 
 
-def _parses_as_number(text: str) -> bool:
+def _finite(value: Any) -> bool:
     try:
-        float(text)
-    except ValueError:
+        return math.isfinite(float(value))
+    except OverflowError:       # an integer with hundreds of digits
         return False
-    return True
+
+
+def _shown(value: Any) -> str:
+    text = json.dumps(value, ensure_ascii=False, default=str)
+    return text if len(text) <= 60 else text[:59] + "…"
 
 
 def _json_column(values: pd.Series, data_type: str) -> pd.Series:
