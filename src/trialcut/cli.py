@@ -11,6 +11,7 @@ import sys
 import tempfile
 import time
 import traceback
+from datetime import date
 from pathlib import Path
 from typing import Sequence
 
@@ -25,6 +26,13 @@ class UsageError(TrialcutError):
 class _Parser(argparse.ArgumentParser):
     def error(self, message: str):  # argparse would exit; we want main() to return 2
         raise UsageError(f"{self.prog}: {message} (see '{self.prog} --help')")
+
+
+def _iso_date(text: str) -> date:
+    try:
+        return date.fromisoformat(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a date as YYYY-MM-DD, got {text!r}") from None
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -50,6 +58,8 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("--out", type=Path, default=Path("outputs"), help="output root (default: outputs)")
     run.add_argument("--unlocked", action="store_true", help="rehearse with a plan that is not locked")
     run.add_argument("--dummy-arms", type=int, metavar="SEED", help="blinded dry run: permute arm codes with SEED")
+    run.add_argument("--cut-off", type=_iso_date, metavar="DATE",
+                     help="database cut-off date, YYYY-MM-DD (default: the latest date in the data)")
     run.add_argument("--workers", type=int, default=1, help="local worker processes for imputation work")
     run.add_argument("--scheduler", metavar="ADDRESS",
                      help="Dask scheduler address, or 'local' for a local cluster")

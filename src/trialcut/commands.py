@@ -81,7 +81,8 @@ def command_run(args) -> int:
 
 def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: Path, unlocked: bool = False,
                 dummy_arms_seed: int | None = None, workers: int = 1, scheduler: str | None = None,
-                command_line: list[str] | None = None, started: str | None = None) -> tuple[Path, Path]:
+                command_line: list[str] | None = None, started: str | None = None,
+                cut_off=None) -> tuple[Path, Path]:
     """Load, check, run, render and record one data cut. Returns (run folder, report.html)."""
     from trialcut.data.prepare import prepare_cut
     from trialcut.data.readers import read_cut
@@ -100,12 +101,12 @@ def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: P
     with timer.time("read data"):
         raw = read_cut(data_path)
     with timer.time("check and derive data"):
-        cut = prepare_cut(plan, raw, dummy_arms_seed=dummy_arms_seed)
+        cut = prepare_cut(plan, raw, dummy_arms_seed=dummy_arms_seed, cut_off=cut_off)
     run_id = new_run_id()
     run_block = {
         "id": run_id, "study_id": plan.study.id, "cut": cut_label, "started_utc": started,
         "finished_utc": None, "tool_version": __version__, "unlocked": lock["status"] != "locked",
-        "dummy_arms_seed": dummy_arms_seed, "seed": plan.seed,
+        "dummy_arms_seed": dummy_arms_seed, "seed": plan.seed, "cut_off": cut.summary()["cut_off"]["date"],
     }
     executor, close_executor = _executor(workers, scheduler)
     try:
@@ -113,6 +114,7 @@ def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: P
             context = RunContext(root_seed=plan.seed, executor=executor, progress=_progress_printer())
             results = run_plan(
                 plan, cut, context, timer=timer, run_block=run_block,
+        cut_off=args.cut_off,
                 plan_block=_plan_block(loaded, lock),
                 data_block=cut.summary() | {
                     "participant_hashes": participant_hashes(raw.frame, plan.columns.subject),
@@ -125,7 +127,7 @@ def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: P
         "command_line": command_line or [], "started_utc": started, "finished_utc": results["run"]["finished_utc"],
         "run_id": run_id, "environment": capture_environment(), "seeds": {"root": plan.seed,
                                                                            "dummy_arms": dummy_arms_seed},
-        "executor": {"workers": workers, "scheduler": scheduler},
+        "executor": {"workers": workers, "scheduler": scheduler}, "cut_off": cut.summary()["cut_off"],
         "lock": lock, "warnings": results["warnings"], "steps": timer.steps,
         "plan_problems": [], "conformance_problems": [c for c in results["conformance"].get("checks", [])
                                                       if c.get("status") == "failed"],
@@ -299,7 +301,7 @@ def _read_results(run_folder: Path) -> dict[str, Any]:
 
 # --------------------------------------------------------------------------- demo
 def command_demo(args) -> int:
-    from trialcut.data.simulate import demo_cuts, write_csv
+    from trialcut.data.simulate import demo_cut_offs, demo_cuts, write_csv
     from trialcut.plan.load import load_plan
     from trialcut.plan.lock import check_lock, lock_plan
 
@@ -329,7 +331,8 @@ def command_demo(args) -> int:
     for label in ("interim", "final"):
         started = time.perf_counter()
         folders[label], _ = execute_run(plan_path=plan_path, data_path=paths[label], cut_label=label,
-                                        out_root=out, command_line=["trialcut", "demo"])
+                                        out_root=out, command_line=["trialcut", "demo"],
+                                        cut_off=demo_cut_offs()[label])
         console.print(f"  ran the {label} cut in {time.perf_counter() - started:.1f} s")
     comparison = compare_runs(folders["interim"], folders["final"],
                               _fresh_sibling(out / "LVT-201" / "comparisons", "interim-vs-final"))

@@ -24,7 +24,8 @@ Choices (documented because the report states them):
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
+import datetime as dt
 from typing import Any
 
 import numpy as np
@@ -32,6 +33,7 @@ import pandas as pd
 
 from trialcut.data.conformance import (ANALYSIS_VISIT, CHOSEN, ROLE, ROW, ConformanceReport, check_cut,
                                        subject_level_columns)
+from trialcut.data.cutoff import CutOff, due_flags, resolve_cut_off
 from trialcut.data.readers import RawCut
 from trialcut.errors import PlanError, Problem
 
@@ -39,6 +41,8 @@ SOURCE_ROW = "source_row"
 VISIT_COLLECTED = "visit_collected"
 ROLE_COLUMN = "record_role"          # "baseline" or "post" in DataCut.records
 DEFAULT_REASON_COLUMN = "DCSREAS"
+DUE = "due"                          # AnalysisData.frame: the visit was due by the cut-off
+OBSERVED = "outcome_observed"        # AnalysisData.frame: a value was recorded (before any strategy)
 
 
 @dataclass(frozen=True)
@@ -59,10 +63,28 @@ class AnalysisData:
     population: str | None
     estimand: str | None
     endpoint: str = ""
+    due_judged: bool = False
 
     @property
     def n_subjects(self) -> int:
         return int(self.frame[self.subject].nunique())
+
+    def due_only(self) -> "AnalysisData":
+        """The rows whose visit was due by the cut-off: what every analysis method receives.
+
+        A visit not yet due is no missing value: it is left out, never imputed.  A method that
+        rebuilds a participants × visits grid must not fill in the cells left out here.
+        """
+        return replace(self, frame=self.frame[self.frame[DUE]].reset_index(drop=True))
+
+    def participants_due(self, visit: str | None = None) -> int:
+        """Participants whose ``visit`` (default: the primary visit) was due by the cut-off.
+
+        The information reached at an interim is this count over the planned total.
+        """
+        visit = visit or self.primary_visit
+        rows = self.frame[(self.frame[self.visit] == visit) & self.frame[DUE]]
+        return int(rows[self.subject].nunique())
 
 
 @dataclass(frozen=True)
@@ -84,6 +106,7 @@ class DataCut:
     derivations: tuple[dict[str, Any], ...]
     dummy_arms_seed: int | None = None
     reason_column: str | None = None
+    cut_off: CutOff | None = None
 
     # ------------------------------------------------------------------ summaries
     def summary(self) -> dict[str, Any]:
@@ -91,6 +114,7 @@ class DataCut:
         keys = ("file", "format", "size", "sha256", "rows", "columns")
         data = {k: self.manifest.get(k) for k in keys}
         data["participants"] = int(len(self.subjects))
+        data["cut_off"] = (self.cut_off or CutOff(None, "none", None)).to_dict()
         return data
 
     def to_dict(self) -> dict[str, Any]:
@@ -158,7 +182,11 @@ class DataCut:
         if population is not None:
             subjects = subjects[_members(subjects, population)]
         frame = self._grid(endpoint, subjects)
-        frame = _apply_events(plan, estimand, frame, _outcome_column(plan, endpoint), self._visit_days())
+        outcome = _outcome_column(plan, endpoint)
+        frame[OBSERVED] = frame[outcome].notna()
+        frame[DUE] = due_flags(frame, subject=plan.columns.subject, visit=plan.columns.visit,
+                               observed=frame[OBSERVED], schedule=plan.visits.schedule, cut_off=self.cut_off)
+        frame = _apply_events(plan, estimand, frame, outcome, self._visit_days())
         cols = plan.columns
         return AnalysisData(
             frame=frame.reset_index(drop=True), subject=cols.subject, arm=cols.arm, visit=cols.visit,
@@ -166,7 +194,7 @@ class DataCut:
             visits=plan.visit_labels, visit_days=self._visit_days(), arms=plan.arm_codes,
             reference=plan.arms.reference, primary_visit=endpoint.primary_visit,
             population=population.id if population else None, estimand=estimand.id if estimand else None,
-            endpoint=endpoint.id)
+            endpoint=endpoint.id, due_judged=bool(self.cut_off and self.cut_off.judged))
 
     def _visit_days(self) -> dict[str, float | None]:
         return {v.label: v.day for v in self.plan.visits.schedule}
@@ -240,7 +268,8 @@ def _apply_events(plan, estimand, frame: pd.DataFrame, outcome: str,
     hypothetical = frame["strategy"].eq("hypothetical").to_numpy()
     frame["outcome_set_missing"] = hypothetical & frame[outcome].notna().to_numpy()
     frame.loc[hypothetical, outcome] = np.nan
-    composite = frame["strategy"].eq("composite").to_numpy()
+    # A visit not yet due has no value to replace: the composite value waits for it too.
+    composite = frame["strategy"].eq("composite").to_numpy() & frame[DUE].to_numpy(dtype=bool)
     values = frame["intercurrent_event"].map(
         {e: h.composite_value for e, h in strategies.items() if h.strategy == "composite"})
     frame.loc[composite, outcome] = values[composite].astype(float)
@@ -282,8 +311,13 @@ def _visit_study_day(frame: pd.DataFrame, cols, visit_days: dict[str, float | No
 
 
 # --------------------------------------------------------------------------- preparing a cut
-def prepare_cut(plan, raw: RawCut, dummy_arms_seed: int | None = None) -> DataCut:
-    """Check ``raw`` against ``plan`` (DataError on any error-severity failure) and derive."""
+def prepare_cut(plan, raw: RawCut, dummy_arms_seed: int | None = None, cut_off: dt.date | None = None,
+                today: dt.date | None = None) -> DataCut:
+    """Check ``raw`` against ``plan`` (DataError on any error-severity failure) and derive.
+
+    ``cut_off``: the database cut-off (default: the latest date in the data, with a note).
+    """
+    resolved = resolve_cut_off(plan, raw, cut_off, today)
     checked = check_cut(plan, raw)
     log = list(checked.derivations)
     work = _derive_baseline_and_change(plan, checked.records, log)
@@ -294,7 +328,7 @@ def prepare_cut(plan, raw: RawCut, dummy_arms_seed: int | None = None) -> DataCu
         subjects, records = _dummy_arms(plan, subjects, records, dummy_arms_seed, log)
     return DataCut(plan=plan, manifest=dict(raw.manifest), records=records, subjects=subjects,
                    conformance=checked.report, derivations=tuple(log),
-                   dummy_arms_seed=dummy_arms_seed, reason_column=reason)
+                   dummy_arms_seed=dummy_arms_seed, reason_column=reason, cut_off=resolved)
 
 
 def _derive_baseline_and_change(plan, work: pd.DataFrame, log: list[dict[str, Any]]) -> pd.DataFrame:

@@ -4,8 +4,10 @@ Participants are enrolled over time, randomised 1:1:1 in permuted blocks within 
 stratum STRAT1R, and scored on the Fatigue Burden Score (invented, 0–60, higher is worse)
 at baseline and at weeks 2, 4, 8 and 12.  Within-participant errors follow a continuous-time
 first-order autoregressive correlation on the actual study days plus a participant effect.
-Some participants stop treatment (DISCDY); some of those stay in the study and are still
-measured (retrieved data, whose benefit fades), the others leave with a reason (DCSREAS).
+Each participant has a randomisation date (RANDDT; enrolment is staggered over eight months).
+Some participants stop treatment (DISCDY, with a reason in DCTREAS); some of those stay in the
+study and are still measured (retrieved data, whose benefit fades), the others leave with a
+reason (DCSREAS).
 A few start rescue medication (RESCDY).  Visit days are jittered around their targets and a
 few unscheduled visits fall inside the windows so that windowing has to choose.
 
@@ -13,6 +15,8 @@ Everything is drawn from one numpy Generator seeded through SeedSequence: the sa
 gives the same data on any machine with the same numpy.
 """
 from __future__ import annotations
+
+import datetime as dt
 
 import numpy as np
 import pandas as pd
@@ -25,8 +29,13 @@ STRATA = ("Mild", "Severe")
 # label, AVISITN, target day, half-width of the window (the demo plan's schedule)
 SCHEDULE = (("Week 2", 1, 15, 4), ("Week 4", 2, 29, 6), ("Week 8", 3, 57, 10), ("Week 12", 4, 85, 10))
 REASONS = ("Adverse event", "Lack of efficacy", "Withdrawal by subject", "Lost to follow-up")
+# Why treatment stopped (DCTREAS); the study-leaving reason (DCSREAS) follows from it.
+TREATMENT_REASONS = ("Adverse event", "Lack of efficacy", "Other")
 COLUMNS = ["USUBJID", "STUDYID", "PARAMCD", "PARAM", "TRT01P", "STRAT1R", "SEX", "AGE", "FASFL", "PPROTFL",
-           "AVISIT", "AVISITN", "ADY", "ABLFL", "AVAL", "BASE", "CHG", "DISCDY", "RESCDY", "DCSREAS"]
+           "RANDDT", "AVISIT", "AVISITN", "ADY", "ABLFL", "AVAL", "BASE", "CHG", "DISCDY", "RESCDY", "DCTREAS",
+           "DCSREAS"]
+# Calendar day 0 of the invented trial: the first randomisation.
+FIRST_RANDOMISATION = dt.date(2025, 1, 6)
 # Extra mean change by week 12 over placebo, per arm (placebo itself improves a little).
 ARM_EFFECT = {"Placebo": 0.0, "Lorvatide 10 mg": -3.0, "Lorvatide 20 mg": -6.0}
 PLACEBO_CHANGE = -2.5
@@ -58,8 +67,23 @@ def demo_cuts(seed: int = 20240101, n_participants: int = 300) -> dict[str, pd.D
     """``interim`` at about 60 % of the calendar follow-up, and ``final``, from one trial."""
     enrolment_days = 240
     total = enrolment_days + SCHEDULE[-1][2] + SCHEDULE[-1][3]
-    return {"interim": simulate_trial(seed, n_participants, enrolment_days, cut_day=0.6 * total),
+    return {"interim": simulate_trial(seed, n_participants, enrolment_days, cut_day=_interim_day(total)),
             "final": simulate_trial(seed, n_participants, enrolment_days)}
+
+
+def demo_cut_offs(enrolment_days: int = 240) -> dict[str, dt.date]:
+    """The database cut-off of each demo cut: the interim's cut day, and a week after the last visit."""
+    total = enrolment_days + SCHEDULE[-1][2] + SCHEDULE[-1][3]
+    return {"interim": calendar_date(_interim_day(total)), "final": calendar_date(total + 7)}
+
+
+def calendar_date(day: float) -> dt.date:
+    """The date of calendar day ``day`` (day 0 = the first randomisation)."""
+    return FIRST_RANDOMISATION + dt.timedelta(days=int(np.floor(day)))
+
+
+def _interim_day(total: float) -> float:
+    return float(np.floor(0.6 * total))
 
 
 # --------------------------------------------------------------------------- participants
@@ -93,16 +117,18 @@ def _stratified_blocks(rng: np.random.Generator, strata: np.ndarray) -> list[str
 def _course(rng: np.random.Generator, arm: str) -> dict:
     """Treatment stop, leaving the study, rescue and analysis flags of one participant."""
     stop_risk = {"Placebo": 0.16, "Lorvatide 10 mg": 0.14, "Lorvatide 20 mg": 0.20}[arm]
-    course = {"discday": None, "leaves": False, "reason": None, "rescday": None,
+    course = {"discday": None, "leaves": False, "reason": None, "treatment_reason": None, "rescday": None,
               "fas": "Y" if rng.uniform() > 0.01 else "N", "pp": "Y" if rng.uniform() > 0.08 else "N"}
     if rng.uniform() < stop_risk:
         course["discday"] = int(rng.integers(5, 84))
         reason_weights = {"Placebo": [0.15, 0.45, 0.25, 0.15], "Lorvatide 10 mg": [0.35, 0.2, 0.3, 0.15],
                           "Lorvatide 20 mg": [0.55, 0.1, 0.2, 0.15]}[arm]
+        reason = str(rng.choice(REASONS, p=reason_weights))
+        course["treatment_reason"] = reason if reason in TREATMENT_REASONS else "Other"
         # About four in ten who stop treatment stay and are measured (retrieved data).
         if rng.uniform() < 0.6:
             course["leaves"] = True
-            course["reason"] = str(rng.choice(REASONS, p=reason_weights))
+            course["reason"] = reason
         if course["discday"] < 57:
             course["pp"] = "N"
     if rng.uniform() < 0.06:
@@ -147,20 +173,21 @@ def _records_of(rng: np.random.Generator, person: dict) -> list[list]:
     shift = rng.normal(0, PARTICIPANT_SD)
     base_day = float(1 - rng.integers(0, 4))
     shared = _shared_columns(person)
-    rows = [[*shared[:10], "Baseline", 0.0, base_day, "Y", float(person["baseline"]), float(person["baseline"]),
-             np.nan, *shared[10:], person["start"] + base_day - 1]]
+    rows = [[*shared[:11], "Baseline", 0.0, base_day, "Y", float(person["baseline"]), float(person["baseline"]),
+             np.nan, *shared[11:], person["start"] + base_day - 1]]
     for (label, number, day, _), error in zip(visits, errors):
         mean = person["baseline"] + _mean_change(person["arm"], day, person["baseline"], person)
         value = float(np.clip(round(mean + shift + error), 0, 60))
-        rows.append([*shared[:10], label, number, day, None, value, float(person["baseline"]),
-                     value - person["baseline"], *shared[10:], person["start"] + day - 1])
+        rows.append([*shared[:11], label, number, day, None, value, float(person["baseline"]),
+                     value - person["baseline"], *shared[11:], person["start"] + day - 1])
     return rows
 
 
 def _shared_columns(person: dict) -> list:
     return [person["id"], STUDY_ID, PARAMCD, PARAM, person["arm"], person["stratum"], person["sex"],
-            person["age"], person["fas"], person["pp"],
-            _float_or_nan(person["discday"]), _float_or_nan(person["rescday"]), person["reason"]]
+            person["age"], person["fas"], person["pp"], calendar_date(person["start"]).isoformat(),
+            _float_or_nan(person["discday"]), _float_or_nan(person["rescday"]), person["treatment_reason"],
+            person["reason"]]
 
 
 def _float_or_nan(value) -> float:
@@ -175,6 +202,6 @@ def _apply_cut(frame: pd.DataFrame, people: list[dict], cut_day: float) -> pd.Da
     for column in ("DISCDY", "RESCDY"):
         not_yet = frame[column].notna() & (calendar_of + frame[column] > cut_day)
         frame.loc[not_yet, column] = np.nan
-    left = frame["DISCDY"].isna() & frame["DCSREAS"].notna()
-    frame.loc[left, "DCSREAS"] = None
+    for column in ("DCSREAS", "DCTREAS"):
+        frame.loc[frame["DISCDY"].isna() & frame[column].notna(), column] = None
     return frame

@@ -160,6 +160,10 @@ class Arms(Strict):
 
 
 def _arms_issues(arms: Arms) -> Iterator[RuleIssue]:
+    randomisation_date: str | None = Field(default=None, description=(
+        "Column with each participant's randomisation (or first-dose) date, ISO 8601 (ADaM RANDDT or "
+        "TRTSDT). With it a visit is due at the cut-off when date + planned day − 1 + window is on or "
+        "before the cut-off; without it the report says due-ness could not be judged."))
     codes = [a.code for a in arms.list]
     for index, code in enumerate(codes):
         if code in codes[:index]:

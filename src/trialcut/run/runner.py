@@ -19,7 +19,8 @@ import pandas as pd
 from trialcut.errors import FitError, ModelSpecificationError
 from trialcut.run.context import RunContext
 from trialcut.run.methods import METHODS
-from trialcut.run.tables import plain, table
+from trialcut.data import flow
+from trialcut.run.tables import frame_of, plain, table
 
 RESULTS_FORMAT = 1
 
@@ -59,10 +60,12 @@ def run_plan(plan, cut, context: RunContext, *, plan_block: dict[str, Any], data
         "endpoints": [],
         "warnings": [],
     }
+    if cut.cut_off is not None:
+        results["warnings"].extend(cut.cut_off.notes)
     for endpoint in plan.endpoints:
         with timer.time(f"endpoint {endpoint.id}"):
             results["endpoints"].append(_run_endpoint(plan, cut, endpoint, context, timer, results["warnings"]))
-    results["multiplicity"] = _multiplicity(plan, results)
+    results["multiplicity"] = _multiplicity(plan, results, cut)
     return results
 
 
@@ -73,7 +76,7 @@ def _analysis_population(plan, analysis) -> str:
 
 
 def _run_endpoint(plan, cut, endpoint, context, timer, run_warnings) -> dict[str, Any]:
-    from trialcut.stats.descriptive import describe_by_arm_visit, missing_by_visit, missing_patterns
+    from trialcut.stats.descriptive import describe_by_arm_visit
 
     primary = endpoint.analyses.primary
     primary_population = _analysis_population(plan, primary)
@@ -82,16 +85,20 @@ def _run_endpoint(plan, cut, endpoint, context, timer, run_warnings) -> dict[str
     columns = [c for c in (plan.columns.value, plan.columns.change) if c and c in observed.frame.columns]
     roles = dict(subject=primary_data.subject, arm=primary_data.arm, visit=primary_data.visit,
                  visits=list(primary_data.visits), arms=list(primary_data.arms))
+    events = _event_labels(plan)
+    flows = _flows(plan, cut, endpoint, events)
+    primary_flow = frame_of(flows[0]["table"])
     entry: dict[str, Any] = {
         "id": endpoint.id, "label": endpoint.label, "analysed": endpoint.analysed,
         "primary_visit": endpoint.primary_visit, "decimals": endpoint.decimals,
         "population": primary_population,
         "descriptive": table(describe_by_arm_visit(observed.frame, columns=tuple(columns), **roles),
                              "Summary statistics by arm and visit (observed data)"),
-        "missing_by_visit": table(missing_by_visit(primary_data.frame, outcome=primary_data.outcome, **roles),
-                                  "Missing outcomes by arm and visit"),
-        "missing_patterns": table(missing_patterns(primary_data.frame, outcome=primary_data.outcome, **roles),
-                                  "Patterns of observed (X) and missing (.) visits"),
+        "missing_by_visit": table(flow.missing_by_visit(primary_flow, primary_data.arms),
+                                  "Missing outcomes by arm and visit (visits not yet due apart)"),
+        "missing_patterns": table(flow.patterns(primary_data, events, primary_data.arms),
+                                  "Patterns of values used (X), missing or set aside (.) and not yet due (-)"),
+        "flow": flows,
         "trajectories": _trajectory_sample(observed, plan.report.trajectories_sample, context),
         "analyses": [],
     }
@@ -133,10 +140,13 @@ def _run_analysis(plan, cut, endpoint, analysis, role, context, run_warnings) ->
         "status": "ok", "error": None, "tables": {}, "fit": {}, "diagnostics": {}, "warnings": [],
     }
     data = cut.analysis_data(endpoint.id, estimand_id=analysis.estimand, population_id=population)
+    entry["left_out"] = table(flow.left_out_table(data, _event_labels(plan)),
+                              "Participants of the population without any value used, by reason")
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         try:
-            entry.update(METHODS[analysis.method](data, analysis, context))
+            # Visits not yet due are no missing values: no method sees them (none imputes them).
+            entry.update(METHODS[analysis.method](data.due_only(), analysis, context))
         except (FitError, ModelSpecificationError) as error:
             entry["status"] = "failed"
             entry["error"] = error.render()
@@ -149,7 +159,26 @@ def _run_analysis(plan, cut, endpoint, analysis, role, context, run_warnings) ->
     return entry
 
 
-def _multiplicity(plan, results) -> dict[str, Any]:
+def _event_labels(plan) -> dict[str, str]:
+    return {event.id: event.label for event in plan.intercurrent_events}
+
+
+def _flows(plan, cut, endpoint, events: dict[str, str]) -> list[dict[str, Any]]:
+    """One participant flow per (estimand, population) the endpoint's analyses use; the primary's first."""
+    analyses = [endpoint.analyses.primary, *endpoint.analyses.sensitivity]
+    targets = list(dict.fromkeys((a.estimand, _analysis_population(plan, a)) for a in analyses))
+    flows = []
+    for estimand, population in targets:
+        data = cut.analysis_data(endpoint.id, estimand_id=estimand, population_id=population)
+        frame = flow.flow_table(cut.subjects, data, events, data.arms)
+        title = (f"Participant flow: estimand {estimand}, population {population}" if estimand
+                 else f"Participant flow: population {population} (no estimand)")
+        flows.append({"estimand": estimand, "population": population, "table": table(frame, title),
+                      "participants_due_at_primary_visit": data.participants_due()})
+    return flows
+
+
+def _multiplicity(plan, results, cut) -> dict[str, Any]:
     from trialcut.stats.multiplicity import adjust
 
     declared = plan.multiplicity
@@ -158,6 +187,11 @@ def _multiplicity(plan, results) -> dict[str, Any]:
         p_value = _find_p_value(plan, results, h)
         hypotheses.append({"id": h.id, "analysis": h.analysis, "arm": h.arm,
                            "visit": h.visit, "weight": h.weight, "p": p_value})
+    if declared.alpha_spending is not None:
+        # Planned looks: boundaries from the spending function, never a plain adjustment at full alpha.
+        from trialcut.run.interim import interim_multiplicity
+
+        return interim_multiplicity(plan, cut, results, hypotheses)
     outcome = adjust(
         [h["p"] for h in hypotheses], method=declared.method, alpha=declared.alpha,
         weights=[h["weight"] for h in hypotheses],
