@@ -308,3 +308,46 @@ def test_merge_keys_still_work(base_text, write_plan):
     text = replace_once(text, "          options:\n            visits: primary",
                         "          options:\n            <<: {visits: primary}")
     assert load_plan(write_plan(text)).plan == load_plan(BASE_PLAN).plan
+
+
+# --------------------------------------------------------------------------- issue 10: size, depth, tags
+def test_a_long_flat_list_is_called_too_long_not_too_deep(write_plan):
+    problems, text = problems_of(write_plan("study:\n  id: X\nvisits:\n" + "  - 1\n" * 100_001))
+    assert [p.code for p in problems] == ["plan.too_large"]
+    assert "more than 100,000 values" in text and "nested" not in text
+
+
+def test_deep_nesting_is_called_too_deep(write_plan):
+    problems, text = problems_of(write_plan("a: " + "[" * 5000 + "]" * 5000 + "\n"))
+    assert [p.code for p in problems] == ["plan.too_deep"]
+    assert "nested too deeply" in text
+
+
+def test_a_file_far_larger_than_a_plan_is_refused_before_parsing(write_plan):
+    from trialcut.plan.load import MAX_PLAN_BYTES
+
+    path = write_plan("# " + "x" * MAX_PLAN_BYTES + "\n")
+    problems, text = problems_of(path)
+    assert [p.code for p in problems] == ["plan.too_large"]
+    assert "larger than a plan can be" in text and "at most 1024 kB" in text
+
+
+@pytest.mark.parametrize("tagged, kind", [
+    ("study: !custom {id: X}", "mapping"),
+    ("study: !!python/object:os.system {id: X}", "mapping"),
+    ("visits: !!set {a, b}", "mapping"),
+    ("arms: !thing [a, b]", "sequence"),
+    ("study: {id: !!binary aGVsbG8=}", "scalar"),
+    ("!odd study: {id: X}", "scalar"),
+])
+def test_every_non_standard_yaml_tag_is_refused(write_plan, tagged, kind):
+    problems, text = problems_of(write_plan(tagged + "\n"))
+    tag_problems = [p for p in problems if p.code == "plan.yaml_tag"]
+    assert tag_problems and tag_problems[0].line == 1, text
+    assert f"a plain {kind} without a '!' tag" in text
+
+
+def test_standard_explicit_tags_still_load(base_text, write_plan):
+    # '!!str' on a value that would read as a number is the standard way to quote it (YAML 1.1).
+    text = replace_once(base_text, 'version: "1.0"', "version: !!str 1.0")
+    assert load_plan(write_plan(text)).plan == load_plan(BASE_PLAN).plan

@@ -37,6 +37,17 @@ PathKey = tuple[str | int, ...]
 # A composed plan never needs more nodes than this; aliases that expand beyond it are an
 # attack or an accident ("billion laughs"), not an analysis plan.
 MAX_NODES = 100_000
+# A plan is a few kilobytes; a file of more than this is not a plan (and composing a
+# 50 MB YAML file would take minutes before any message).
+MAX_PLAN_BYTES = 1 << 20
+# The YAML tags a plan may carry, explicitly or implicitly (YAML 1.1 core types); any other
+# tag ('!thing', '!!python/object', '!!set', '!!binary') would change what a value means.
+_STANDARD = "tag:yaml.org,2002:"
+ALLOWED_TAGS = {
+    "scalar": {_STANDARD + name for name in ("str", "int", "float", "bool", "null", "timestamp")},
+    "mapping": {_STANDARD + "map"},
+    "sequence": {_STANDARD + "seq"},
+}
 
 
 @dataclass(frozen=True)
@@ -105,6 +116,12 @@ def _sorted(problems: list[Problem]) -> list[Problem]:
 
 def _read_text(path: Path, file: str) -> str:
     try:
+        size = path.stat().st_size
+        if size > MAX_PLAN_BYTES and path.is_file():
+            raise PlanError(f"{file}: this file is too large to be an analysis plan", [Problem(
+                code="plan.too_large", message="the plan file is larger than a plan can be", file=file,
+                expected=f"at most {MAX_PLAN_BYTES // 1024} kB", got=f"{size / 1024:.0f} kB",
+                hint="check that this is the plan file (a plan is a few kilobytes of YAML)")])
         raw = path.read_bytes()
     except OSError as error:
         raise PlanError(f"{file}: cannot read the analysis plan", [Problem(
@@ -145,6 +162,8 @@ class _Builder:
             raise _TooLarge()
         if path not in self.values:
             self.values[path] = _position(node.start_mark)
+        if not self._tag_allowed(node):
+            return None
         if id(node) in active:
             self._problem(node, "plan.recursive_alias", "an alias refers to a mapping or list that contains it",
                           hint="replace the alias (*name) by the values it stands for")
@@ -157,6 +176,16 @@ class _Builder:
         self.scalars[path] = node.value
         return self.loader.construct_object(node, deep=True)
 
+    def _tag_allowed(self, node: Node) -> bool:
+        kind = "mapping" if isinstance(node, MappingNode) else "sequence" if isinstance(node, SequenceNode) \
+            else "scalar"
+        if node.tag in ALLOWED_TAGS[kind]:
+            return True
+        self._problem(node, "plan.yaml_tag", f"the YAML tag {node.tag!r} is not allowed in a plan",
+                      expected=f"a plain {kind} without a '!' tag", got=repr(node.tag),
+                      hint="remove the tag; plans use plain YAML values only")
+        return False
+
     def _mapping(self, node: MappingNode, path: PathKey, active: frozenset[int]) -> dict[str, Any]:
         self.loader.flatten_mapping(node)      # resolves '<<' merge keys
         result: dict[str, Any] = {}
@@ -165,6 +194,8 @@ class _Builder:
             if not isinstance(key_node, ScalarNode):
                 self._problem(key_node, "plan.complex_key", "a key must be a plain word",
                               got="a list or mapping used as a key")
+                continue
+            if not self._tag_allowed(key_node):
                 continue
             key = key_node.value   # the key as written: 'yes' stays 'yes', '1' stays '1'
             where = _position(key_node.start_mark)
@@ -209,10 +240,15 @@ def _parse(text: str, file: str) -> tuple[Any, SourceMap, list[Problem]]:
         return None, empty, [_reader_problem(error, text, file)]
     except yaml.YAMLError as error:
         return None, empty, [Problem(code="plan.yaml", message=f"the file is not valid YAML: {error}", file=file)]
-    except (RecursionError, _TooLarge):
+    except RecursionError:
         return None, empty, [Problem(
-            code="plan.too_large", message="the YAML is nested too deeply or its aliases expand too far",
-            file=file, hint="write the plan out plainly, without deeply nested lists or chains of aliases")]
+            code="plan.too_deep", message="the YAML is nested too deeply to be a plan",
+            file=file, hint="a plan nests a few levels (section, item, options); write it out plainly")]
+    except _TooLarge:
+        return None, empty, [Problem(
+            code="plan.too_large", message=f"the plan holds more than {MAX_NODES:,} values once its aliases "
+            "are expanded", file=file, expected=f"at most {MAX_NODES:,} keys, items and values",
+            hint="a plan declares a few dozen visits and analyses; remove the long lists or the chains of aliases")]
     finally:
         if loader is not None:
             loader.dispose()
