@@ -14,6 +14,7 @@ from __future__ import annotations
 import difflib
 import typing
 from dataclasses import dataclass, fields
+from datetime import date
 from functools import lru_cache
 from typing import Annotated, Any, Iterable, Iterator, Literal, Union
 
@@ -29,6 +30,7 @@ from pydantic import (
 )
 from pydantic_core import PydanticCustomError
 
+from trialcut.stats.group_sequential import SPENDING_FUNCTIONS
 from trialcut.stats.names import (
     COVARIANCE_STRUCTURES,
     DF_METHODS,
@@ -42,6 +44,7 @@ DfMethod = Literal[DF_METHODS]  # type: ignore[valid-type]
 EstimationMethod = Literal[ESTIMATION_METHODS]  # type: ignore[valid-type]
 ImputationAssumption = Literal[IMPUTATION_ASSUMPTIONS]  # type: ignore[valid-type]
 MultiplicityMethod = Literal[MULTIPLICITY_METHODS]  # type: ignore[valid-type]
+SpendingFunction = Literal[tuple(SPENDING_FUNCTIONS)]  # type: ignore[valid-type]
 
 Identifier = Annotated[str, Field(pattern=r"^[A-Za-z][A-Za-z0-9_]*$", max_length=64)]
 
@@ -439,12 +442,84 @@ class Hypothesis(Strict):
     weight: float = Field(default=1.0, ge=0, le=1)
 
 
+class PlannedLook(Strict):
+    cut: str = Field(min_length=1, description="The data cut's label (trialcut run --cut) that is this look.")
+    information: float = Field(gt=0, le=1, description=(
+        "Planned information fraction in (0, 1]; the last look is the final analysis at 1."))
+
+
+class AlphaSpending(Strict):
+    """Interim looks at the data with the type I error spent over them (Lan–DeMets)."""
+
+    spending: SpendingFunction = Field(description="How alpha is spent over the information fraction.")
+    parameter: float | None = Field(default=None, description="γ of the Hwang–Shih–DeCani family (e.g. −4 or 1).")
+    information_by: Literal["participants_due", "calendar"] = Field(default="participants_due", description=(
+        "participants_due: participants whose primary visit is due at the cut-off, over planned_participants; "
+        "calendar: days from calendar_start to the cut-off over the days to calendar_end."))
+    planned_participants: int | None = Field(default=None, ge=1, description="Participants planned at the final analysis.")
+    calendar_start: date | None = None
+    calendar_end: date | None = None
+    looks: tuple[PlannedLook, ...] = Field(default=(), description="Planned looks, in time order; the last is the final.")
+    tested_at_interims: tuple[Identifier, ...] | None = Field(default=None, description=(
+        "Hypotheses tested at interim looks (their ids); the others spend nothing before the final. None = all."))
+
+    @model_validator(mode="after")
+    def _looks_make_sense(self) -> "AlphaSpending":
+        _raise_issues(_spending_issues(self))
+        return self
+
+
+def _spending_issues(spending: AlphaSpending) -> Iterator[RuleIssue]:
+    if not spending.looks:
+        yield RuleIssue(("looks",), "alpha spending is declared without looks",
+                        expected="a list of looks, e.g. [{cut: interim, information: 0.5}, {cut: final, information: 1}]",
+                        got="none", hint="declare the planned looks, or remove alpha_spending",
+                        code="plan.spending_without_looks")
+        return
+    fractions = [look.information for look in spending.looks]
+    for index in range(1, len(fractions)):
+        if fractions[index] <= fractions[index - 1]:
+            yield RuleIssue(("looks", index, "information"), "information fractions must increase from look to look",
+                            expected=f"more than {fractions[index - 1]:g}", got=f"{fractions[index]:g}",
+                            code="plan.look_order")
+    if fractions[-1] != 1:
+        yield RuleIssue(("looks", len(fractions) - 1, "information"), "the last look is the final analysis",
+                        expected="information 1", got=f"{fractions[-1]:g}", code="plan.final_look")
+    cuts = [look.cut for look in spending.looks]
+    for index, cut in enumerate(cuts):
+        if cut in cuts[:index]:
+            yield RuleIssue(("looks", index, "cut"), f"cut {cut!r} is named by two looks",
+                            expected="a different cut label for every look", got=repr(cut), code="plan.duplicate_look")
+    yield from _information_source_issues(spending)
+    if spending.spending == "hwang_shih_decani" and spending.parameter is None:
+        yield RuleIssue(("parameter",), "the Hwang–Shih–DeCani family needs its γ",
+                        expected="parameter: a number (−4 spends like O'Brien–Fleming, 1 like Pocock)",
+                        got="none", code="plan.spending_parameter")
+
+
+def _information_source_issues(spending: AlphaSpending) -> Iterator[RuleIssue]:
+    if spending.information_by == "participants_due" and spending.planned_participants is None:
+        yield RuleIssue(("planned_participants",), "information by participants needs the planned number",
+                        expected="planned_participants: participants planned at the final analysis", got="none",
+                        code="plan.planned_participants")
+    if spending.information_by == "calendar":
+        if spending.calendar_start is None or spending.calendar_end is None:
+            yield RuleIssue(("information_by",), "information by calendar needs calendar_start and calendar_end",
+                            expected="two ISO dates", got="none", code="plan.calendar_dates")
+        elif spending.calendar_end <= spending.calendar_start:
+            yield RuleIssue(("calendar_end",), "calendar_end must come after calendar_start",
+                            expected=f"after {spending.calendar_start}", got=str(spending.calendar_end),
+                            code="plan.calendar_dates")
+
+
 class Multiplicity(Strict):
     method: MultiplicityMethod = "none"
     alpha: float = Field(default=0.05, gt=0, lt=1)
     hypotheses: tuple[Hypothesis, ...] = ()
     transitions: tuple[tuple[float, ...], ...] = Field(
         default=(), description="Graphical approach: row i gives the share of hypothesis i's level passed to each other.")
+    alpha_spending: AlphaSpending | None = Field(default=None, description=(
+        "Planned interim looks and the spending of alpha over them; none = one final analysis."))
 
 
 class Decimals(Strict):
@@ -701,6 +776,21 @@ def _multiplicity_references(plan: PlanSections) -> Iterator[RuleIssue]:
                             hint=suggestion(hypothesis.visit, plan.visit_labels), code="plan.unknown_visit")
     if plan.multiplicity.method == "graphical":
         yield from _transition_issues(plan.multiplicity.transitions, len(hypotheses))
+    yield from _interim_hypothesis_issues(plan.multiplicity)
+
+
+def _interim_hypothesis_issues(multiplicity: Multiplicity) -> Iterator[RuleIssue]:
+    spending = multiplicity.alpha_spending
+    if spending is None:
+        return
+    known = [h.id for h in multiplicity.hypotheses]
+    if not known:
+        yield RuleIssue(("multiplicity", "alpha_spending"), "alpha spending needs hypotheses to test",
+                        expected="multiplicity.hypotheses", got="none", code="plan.spending_without_hypotheses")
+    for position, name in enumerate(spending.tested_at_interims or ()):
+        if name not in known:
+            yield _not_declared(("multiplicity", "alpha_spending", "tested_at_interims", position), "hypothesis",
+                                name, known, "plan.unknown_hypothesis")
 
 
 def _transition_issues(transitions, size: int) -> Iterator[RuleIssue]:

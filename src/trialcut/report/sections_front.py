@@ -204,6 +204,11 @@ def multiplicity(section: Section, results: Mapping[str, Any], number_format: Nu
     record = results.get("multiplicity") or {}
     method = record.get("method") or "none"
     hypotheses = record.get("hypotheses")
+    if record.get("sequential"):   # planned looks with alpha spending: its own wording and tables
+        from trialcut.report.sections_sequential import multiplicity_by_look
+
+        labels = {a.get("id"): a.get("label") for e in results.get("endpoints") or [] for a in e.get("analyses") or []}
+        return multiplicity_by_look(section, results, number_format, labels)
     if method == "none" or not hypotheses:
         section.paragraph("The plan declares no adjustment for multiple comparisons; p-values are unadjusted.")
         return

@@ -29,7 +29,7 @@ def adjust(p_values: Sequence[float | None], *, method: str, alpha: float,
     if method == "none":
         adjusted[known] = p[known]
     elif method == "holm" and weights is not None and known.all() and len(set(weights)) > 1:
-        adjusted = graphical_adjusted_p(p, *_weighted_holm_graph(np.asarray(weights, float)))
+        adjusted = graphical_adjusted_p(p, *weighted_holm_graph(np.asarray(weights, float)))
     elif method in _STATSMODELS_NAME:
         if known.any():
             adjusted[known] = multipletests(p[known], alpha=alpha, method=_STATSMODELS_NAME[method])[1]
@@ -44,7 +44,7 @@ def adjust(p_values: Sequence[float | None], *, method: str, alpha: float,
     return {"adjusted_p": [None if np.isnan(a) else float(a) for a in adjusted], "rejected": rejected}
 
 
-def _weighted_holm_graph(weights: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def weighted_holm_graph(weights: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Weighted Holm as a graph: each hypothesis passes its level to the others in
     proportion to their weights (Bretz et al. 2009, section 3)."""
     w = weights / weights.sum()
@@ -68,11 +68,11 @@ def graphical_adjusted_p(p: np.ndarray, weights: np.ndarray, transitions: np.nda
         running_max = max(running_max, min(1.0, ratios[remaining.index(j)]))
         adjusted[j] = running_max
         remaining.remove(j)
-        w, g = _remove_node(w, g, j, remaining)
+        w, g = remove_node(w, g, j, remaining)
     return adjusted
 
 
-def _remove_node(w: np.ndarray, g: np.ndarray, j: int, remaining: list[int]):
+def remove_node(w: np.ndarray, g: np.ndarray, j: int, remaining: list[int]):
     """Pass j's weight along its edges and reconnect the graph around j (Bretz et al. 2009, Algorithm 1)."""
     new_w, new_g = w.copy(), np.zeros_like(g)
     for l in remaining:

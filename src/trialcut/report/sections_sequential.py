@@ -1,0 +1,92 @@
+"""The multiplicity section of a run whose plan spends alpha over planned looks.
+
+Reads only ``results["multiplicity"]`` (with its ``sequential`` block).  An interim look
+says so in its first sentence and never speaks of rejection; a cut that is not a planned
+look shows nominal p-values and a caution, and no decision column at all.
+"""
+from __future__ import annotations
+
+from typing import Any, Mapping
+
+from trialcut.report.blocks import Section
+from trialcut.report.formatting import NumberFormat
+from trialcut.report.tables import from_results_table
+
+SPENDING_WORDS = {"obrien_fleming_type": "Lan–DeMets O'Brien–Fleming-type",
+                  "pocock_type": "Lan–DeMets Pocock-type", "hwang_shih_decani": "Hwang–Shih–DeCani"}
+METHOD_WORDS = {"holm": "Holm", "hochberg": "Hochberg", "bonferroni": "Bonferroni",
+                "graphical": "graphical", "none": "no multiplicity"}
+
+
+def multiplicity_by_look(section: Section, results: Mapping[str, Any], number_format: NumberFormat,
+                         analysis_labels: Mapping[str, str]) -> None:
+    record = results.get("multiplicity") or {}
+    facts = record.get("sequential") or {}
+    section.paragraph(_look_sentence(record, facts))
+    for caution in facts.get("cautions") or []:
+        section.notice(caution)
+    hypotheses = _with_labels(record.get("hypotheses"), analysis_labels)
+    if hypotheses is None:
+        return
+    final = facts.get("planned_look") and facts.get("look") == facts.get("looks")
+    decision = "Rejected" if final else "Boundary crossed (interim)"
+    section.table(from_results_table(
+        hypotheses, slug="multiplicity", title=hypotheses.get("title") or "Tests of the hypotheses",
+        number_format=number_format, hide=("tested",),
+        labels={"id": "Hypothesis", "analysis": "Analysis", "weight": "Weight", "p": "Nominal p-value",
+                "local_alpha": "Alpha held", "boundary_z": "Boundary |z|", "boundary_p": "Boundary p-value",
+                "crossed_alone": "Crosses at its own initial alpha", "crossed_adjusted": decision},
+        kinds={"p": "p_exact", "local_alpha": "general", "boundary_z": "general", "boundary_p": "p_exact",
+               "crossed_alone": "flag", "crossed_adjusted": "flag", "weight": "general"}))
+    if facts.get("boundaries"):
+        section.table(from_results_table(
+            facts["boundaries"], slug="multiplicity_boundaries", number_format=number_format,
+            labels={"look": "Look", "information_fraction": "Information fraction",
+                    "cumulative_alpha": "Alpha spent so far", "boundary_z": "Boundary |z|",
+                    "boundary_p": "Boundary p-value"},
+            kinds={"look": "count", "information_fraction": "general", "cumulative_alpha": "general",
+                   "boundary_z": "general", "boundary_p": "p_exact"}))
+
+
+def _look_sentence(record: Mapping[str, Any], facts: Mapping[str, Any]) -> str:
+    spending = SPENDING_WORDS.get(facts.get("spending"), str(facts.get("spending")))
+    if facts.get("parameter") is not None:
+        spending += f" (γ = {facts['parameter']:g})"
+    reached = facts.get("information_reached")
+    reached_text = f"{reached:.3f}" if isinstance(reached, (int, float)) else "not measured"
+    basis = f"information fraction reached {reached_text} ({facts.get('information_basis')})"
+    method = METHOD_WORDS.get(record.get("method"), str(record.get("method")))
+    alpha = f"{record.get('alpha', 0.05):g}"
+    if not facts.get("planned_look"):
+        return (f"Cut {facts.get('cut')!r} is not a planned look (the plan plans {facts.get('looks')}); "
+                f"{basis}. Nominal p-values only: no decision is taken on them.")
+    look, looks = facts.get("look"), facts.get("looks")
+    used = facts.get("fractions_used") or []
+    boundary = _boundary_at_look(facts)
+    opening = f"Look {look} of {looks} (final analysis)" if look == looks else f"Interim look {look} of {looks}"
+    return (f"{opening}, {basis}; boundaries recomputed at the information "
+            f"fractions {', '.join(f'{t:.3f}' for t in used)} with {spending} spending of a two-sided "
+            f"{alpha}; boundary at this look at the full alpha: {boundary}. Hypotheses go through the "
+            f"{method} procedure with group-sequential boundaries for the alpha each holds.")
+
+
+def _boundary_at_look(facts: Mapping[str, Any]) -> str:
+    table = facts.get("boundaries") or {}
+    columns = list(table.get("columns") or [])
+    rows = table.get("data") or []
+    if not rows or "boundary_z" not in columns:
+        return "not computed"
+    last = rows[-1]
+    z, p = last[columns.index("boundary_z")], last[columns.index("boundary_p")]
+    return "none (no alpha spent)" if z is None else f"|z| ≥ {z:.3f} (nominal p ≤ {p:.5f})"
+
+
+def _with_labels(hypotheses: Mapping[str, Any] | None, labels: Mapping[str, str]) -> Mapping[str, Any] | None:
+    if not hypotheses or not hypotheses.get("data"):
+        return None
+    columns = list(hypotheses.get("columns") or [])
+    if "analysis" not in columns:
+        return hypotheses
+    position = columns.index("analysis")
+    return {**hypotheses, "data": [[labels.get(v, v) if i == position else v for i, v in enumerate(row)]
+                                   for row in hypotheses.get("data") or []]}
