@@ -137,9 +137,13 @@ class DataCut:
         rows += [self._per_arm(f"In population: {p.label}", subjects[_members(subjects, p)])
                  for p in self.plan.populations]
         endpoint = self.plan.endpoints[0]
+        population = self._primary_population(endpoint)
+        members = subjects[_members(subjects, population)] if population is not None else subjects
         observed = self._observed_at(endpoint, endpoint.primary_visit)
-        rows.append(self._per_arm(f"Observed at {endpoint.primary_visit} ({endpoint.id})",
-                                  subjects[subjects[cols.subject].isin(observed)]))
+        # Counted in the primary analysis' population, as the participant flow counts it.
+        where = f", {population.label}" if population is not None else ""
+        rows.append(self._per_arm(f"Observed at {endpoint.primary_visit} ({endpoint.id}{where})",
+                                  members[members[cols.subject].isin(observed)]))
         for event in self.plan.intercurrent_events:
             if event.day_column in subjects.columns:
                 rows.append(self._per_arm(f"Event: {event.label}", subjects[subjects[event.day_column].notna()]))
@@ -149,6 +153,12 @@ class DataCut:
             for reason in sorted(reasons.dropna().unique()):
                 rows.append(self._per_arm(f"  Reason: {reason}", subjects[reasons == reason]))
         return pd.DataFrame(rows, columns=["measure", *self._arm_order(), "Total"])
+
+    def _primary_population(self, endpoint):
+        primary = endpoint.analyses.primary
+        population_id = primary.population or (self.plan.estimand(primary.estimand).population
+                                               if primary.estimand else None)
+        return _find(self.plan.populations, population_id, "population") if population_id else None
 
     def _arm_order(self) -> list[str]:
         return list(self.plan.arm_codes)

@@ -196,8 +196,9 @@ def _float_or_nan(value) -> float:
 
 def _apply_cut(frame: pd.DataFrame, people: list[dict], cut_day: float) -> pd.DataFrame:
     """Keep what was known on the cut date: records up to it, events that had happened."""
-    frame = frame[frame["__calendar"] <= cut_day].copy()
     start = {p["id"]: p["start"] for p in people}
+    # Participants randomised after the cut-off are not in the cut, even if screened before it.
+    frame = frame[(frame["__calendar"] <= cut_day) & (frame["USUBJID"].map(start) <= cut_day)].copy()
     calendar_of = frame["USUBJID"].map(start) - 1
     for column in ("DISCDY", "RESCDY"):
         not_yet = frame[column].notna() & (calendar_of + frame[column] > cut_day)
