@@ -12,7 +12,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field, replace
 from typing import Any, Mapping, Sequence
 
-from trialcut.report import sections_analysis, sections_front
+from trialcut.report import sections_analysis, sections_flow, sections_front
 from trialcut.report.blocks import Block, Section, walk
 from trialcut.report.figures import FigureImage
 from trialcut.report.formatting import NumberFormat, describe_rules, short_hash
@@ -86,6 +86,7 @@ def build_document(results: Mapping[str, Any], audit: Mapping[str, Any] | None =
 
     if results.get("multiplicity"):
         adjustment = Section("multiplicity", "Multiple comparisons")
+    sections.append(sections_flow.flow_section(results, base_format))
         sections_front.multiplicity(adjustment, results, base_format)
         sections.append(adjustment)
 

@@ -30,6 +30,8 @@ COLUMN_LABELS = {
     "relative_increase": "Relative increase in variance", "proportion_due_to_missing": "Share due to missing data",
     "fraction_missing_information": "Fraction of missing information", "relative_efficiency": "Relative efficiency",
     "complete_df": "Complete-data DF",
+    # Visits due by the cut-off (the participant flow's counts).
+    "in_population": "In population", "not_yet_due": "Not yet due", "due": "Due", "set_aside": "Set aside",
 }
 
 # Column name -> kind.  Names not listed are "text" when their values are text and
@@ -42,6 +44,7 @@ COLUMN_KINDS = {
     "df": "df", "den_df": "df", "num_df": "count",
     "t": "statistic", "F": "statistic", "z": "statistic", "statistic": "statistic",
     "n": "count", "count": "count", "expected": "count", "observed": "count", "missing": "count",
+    "in_population": "count", "not_yet_due": "count", "due": "count", "set_aside": "count",
     "total": "count", "percent_missing": "percent", "share": "share",
     "monotone": "flag", "significant": "flag", "converged": "flag",
     "shift": "shift", "active_shift": "shift", "reference_shift": "shift",

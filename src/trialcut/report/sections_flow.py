@@ -1,0 +1,101 @@
+"""The report's account of participants: the cut-off, which visits were due, and one
+participant-flow table per estimand whose rows add up, with the participants each fit leaves out.
+
+Reads results.json only (``data.cut_off``, ``endpoints[].flow``, ``analyses[].left_out``).
+"""
+from __future__ import annotations
+
+from typing import Any, Mapping
+
+from trialcut.report.blocks import Section
+from trialcut.report.formatting import NumberFormat
+from trialcut.report.tables import from_results_table, rows_as_dicts
+
+# Steps shown indented under "Visit due by the cut-off" and "In the analysis population".
+_DUE_PARTS_PREFIXES = ("observed_", "composite_", "missing_")
+_LEFT_OUT_STEPS = ("no_visit_due", "all_values_set_aside", "all_due_values_missing")
+LONGEST_LISTING = 40
+
+
+def flow_section(results: Mapping[str, Any], number_format: NumberFormat) -> Section:
+    section = Section("flow", "Cut-off, visits due and participant flow")
+    cut_off(section, results)
+    for position, endpoint in enumerate(results.get("endpoints") or []):
+        for index, entry in enumerate(endpoint.get("flow") or []):
+            _flow_table(section, endpoint, entry, f"flow_{position + 1}_{index + 1}", number_format)
+    if not any(e.get("flow") for e in results.get("endpoints") or []):
+        section.notice("The results carry no participant-flow tables (a run made before they existed).")
+    return section
+
+
+def cut_off(section: Section, results: Mapping[str, Any]) -> None:
+    record = (results.get("data") or {}).get("cut_off") or {}
+    date, source = record.get("date"), record.get("source")
+    if date:
+        how = "as given for the run" if source == "given" else "taken as the latest date in the data (none was given)"
+        section.paragraph(f"Data cut-off: {date}, {how}.")
+    else:
+        section.paragraph("No data cut-off date is known for this run.")
+    if record.get("due_judged"):
+        section.paragraph(
+            f"A visit counts as due when the participant's randomisation date ({record.get('date_column')}) "
+            "plus the visit's planned day minus one plus its window falls on or before the cut-off, or when a "
+            "value was recorded. A visit not yet due is neither observed nor missing: no analysis uses, "
+            "imputes or shifts it, and every table shows it apart.")
+    else:
+        section.notice("Whether a visit was due by the cut-off could not be judged (the plan names no "
+                       "randomisation date column, or the cut has none): every scheduled visit counts as due, "
+                       "so a visit that was not yet due is counted as missing.")
+    for note in record.get("notes") or []:
+        if "could not be judged" not in note:
+            section.paragraph(note)
+
+
+def _flow_table(section: Section, endpoint, entry, slug: str, number_format: NumberFormat) -> None:
+    source = entry.get("table") or {}
+    columns = list(source.get("columns") or [])
+    arms = [c for c in columns if c not in ("visit", "step", "label")]
+    rows = [list(row) for row in source.get("data") or []]
+    step_at, label_at = columns.index("step"), columns.index("label")
+    for row in rows:
+        if str(row[step_at]).startswith(_DUE_PARTS_PREFIXES) or row[step_at] in _LEFT_OUT_STEPS:
+            row[label_at] = f"– {row[label_at]}"
+    shown = {"title": source.get("title") or "", "columns": columns, "data": rows}
+    estimand = entry.get("estimand")
+    who = f"estimand {estimand}, population {entry.get('population')}" if estimand else \
+        f"population {entry.get('population')}, no estimand"
+    part = section.child(slug, f"{endpoint.get('label') or endpoint.get('id')}: {who}")
+    part.paragraph("Each visit's rows add up: the randomised participants split into those in and out of the "
+                   "population, the population into visits due and not yet due, and the due visits into the "
+                   "indented rows. The rows marked All visits count participants: those with at least one value "
+                   "used by a fit and those left out, by reason. Every other count in this report derives from "
+                   "this table.")
+    part.table(from_results_table(
+        shown, slug=slug, number_format=number_format, title=f"Participant flow: {who}", hide=("step",),
+        labels={"visit": "Visit", "label": "Step"},
+        kinds={"visit": "text", "label": "text", **{arm: "count" for arm in arms}}))
+    _left_out(part, endpoint, entry, slug, number_format)
+
+
+def _left_out(section: Section, endpoint, entry, slug: str, number_format: NumberFormat) -> None:
+    target = (entry.get("estimand"), entry.get("population"))
+    analyses = [a for a in endpoint.get("analyses") or [] if (a.get("estimand"), a.get("population")) == target]
+    listing = next((a.get("left_out") for a in analyses if a.get("left_out")), None)
+    if not listing or not listing.get("data"):
+        return
+    names = ", ".join(a.get("id") for a in analyses)
+    count = len(listing["data"])
+    table = from_results_table(listing, slug=f"{slug}_left_out", number_format=number_format,
+                               title=f"Participants without any value used ({names})",
+                               labels={"participant": "Participant", "arm": "Arm", "reason": "Reason"},
+                               kinds={"participant": "text", "arm": "text", "reason": "text"})
+    reasons = {}
+    for row in rows_as_dicts(listing):
+        reasons[row.get("reason")] = reasons.get(row.get("reason"), 0) + 1
+    section.paragraph(f"{count} participant(s) of the population have no value these analyses can use ("
+                      + "; ".join(f"{reason}: {n}" for reason, n in reasons.items())
+                      + "). A fit leaves them out; an imputation keeps those with a visit due.")
+    if count <= LONGEST_LISTING:
+        section.table(table)
+    else:
+        section.csv_only([table])

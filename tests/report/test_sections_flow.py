@@ -1,0 +1,51 @@
+"""The report's participant-flow section shows the cut-off, says when due-ness could not be
+judged, and lays out every flow table of the results with its rows in order (common practice:
+a reader must find each count of the flow in the report exactly as computed)."""
+from __future__ import annotations
+
+import datetime as dt
+
+from trialcut.data.prepare import prepare_cut
+from trialcut.data.readers import raw_from_frame
+from trialcut.report.blocks import walk
+from trialcut.report.document import build_document
+from trialcut.run import runner
+from trialcut.run.context import RunContext
+
+from tests.run.test_flow_reconciliation import _random_cut, _random_plan
+
+
+def _results(with_dates: bool) -> dict:
+    plan = _random_plan()
+    frame, cut_off = _random_cut(2)
+    if not with_dates:
+        plan = plan.model_copy(update={"columns": plan.columns.model_copy(update={"randomisation_date": None})})
+    cut = prepare_cut(plan, raw_from_frame(frame), cut_off=cut_off, today=dt.date(2026, 12, 2))
+    return runner.run_plan(plan, cut, RunContext(root_seed=2), plan_block={}, data_block=cut.summary(),
+                           run_block={"id": "r", "cut": "c"})
+
+
+def _flow_section(results):
+    document = build_document(results, draw=False)
+    return next(s for s in document.sections if s.anchor == "flow")
+
+
+def test_every_flow_table_is_shown_with_its_counts():
+    results = _results(with_dates=True)
+    section = _flow_section(results)
+    texts = [b.content for b in section.blocks if b.kind == "paragraph"]
+    assert any(results["data"]["cut_off"]["date"] in t for t in texts)
+    tables = [b.content for s in walk([section]) for b in s.blocks if b.kind == "table"
+              and b.content.title.startswith("Participant flow")]
+    flows = results["endpoints"][0]["flow"]
+    assert len(tables) == len(flows)
+    for shown, entry in zip(tables, flows):
+        assert len(shown.rows) == len(entry["table"]["data"])
+        totals = [row[-1] for row in shown.rows]
+        assert totals == [row[-1] for row in entry["table"]["data"]]
+
+
+def test_without_dates_the_report_says_due_ness_could_not_be_judged():
+    section = _flow_section(_results(with_dates=False))
+    notices = [b.content for b in section.blocks if b.kind == "notice"]
+    assert any("could not be judged" in n for n in notices)
