@@ -73,6 +73,7 @@ def build_document(results: Mapping[str, Any], audit: Mapping[str, Any] | None =
     populations = Section("populations", "Analysis populations and disposition")
     sections_front.populations(populations, results, base_format)
     sections.append(populations)
+    sections.append(sections_flow.flow_section(results, base_format))
 
     conformance = Section("conformance", "Data conformance")
     sections_front.conformance(conformance, results, base_format)
@@ -86,7 +87,6 @@ def build_document(results: Mapping[str, Any], audit: Mapping[str, Any] | None =
 
     if results.get("multiplicity"):
         adjustment = Section("multiplicity", "Multiple comparisons")
-    sections.append(sections_flow.flow_section(results, base_format))
         sections_front.multiplicity(adjustment, results, base_format)
         sections.append(adjustment)
 
