@@ -8,6 +8,7 @@ built on ``matplotlib.figure.Figure`` directly (no pyplot state shared between c
 """
 from __future__ import annotations
 
+import contextvars
 import io
 import math
 from dataclasses import dataclass, field, replace
@@ -82,8 +83,27 @@ def _svg(figure) -> bytes:
 
     buffer = io.BytesIO()
     with matplotlib.rc_context(RC):
-        figure.savefig(buffer, format="svg", metadata={"Date": None})
+        if _RASTER.get():
+            # The editable copy (DOCX) takes pictures; PNG from the Agg renderer carries no
+            # date, so the same drawing gives the same bytes.
+            figure.savefig(buffer, format="png", dpi=RASTER_DPI, metadata={"Software": None})
+        else:
+            figure.savefig(buffer, format="svg", metadata={"Date": None})
     return buffer.getvalue()
+
+
+# Set while a figure is drawn as a picture (see png_of) instead of as SVG.
+_RASTER = contextvars.ContextVar("trialcut_figure_raster", default=False)
+RASTER_DPI = 200
+
+
+def png_of(job: Callable[[], bytes]) -> bytes:
+    """The PNG of a figure's drawing job: the same drawing calls as its SVG, saved as a picture."""
+    token = _RASTER.set(True)
+    try:
+        return job()
+    finally:
+        _RASTER.reset(token)
 
 
 def _draw(draw, *args, width=6.4, height=3.4, layout="constrained", **kwargs) -> bytes:

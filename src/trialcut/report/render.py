@@ -120,7 +120,8 @@ def render_documents(results: Mapping[str, Any], run_folder: Path, *,
                      audit: Mapping[str, Any] | None = None) -> dict[str, Path]:
     """Render ``results`` (and ``audit``) into ``run_folder``; returns {relative path: path}.
 
-    Keys: "report.html", "report.pdf", "tables/<name>.csv", "figures/<name>.svg".
+    Keys: "report.html", "report.pdf", "report.docx" (the editable copy), "tables/<name>.csv",
+    "figures/<name>.svg".
 
     The figures are drawn while the PDF engine works (see drawing.py).  If one cannot be
     drawn, the report is built again the plain way, so its place shows the reason instead.
@@ -152,6 +153,7 @@ def _older_objects_left_alone():
 def _render_documents(results: Mapping[str, Any], run_folder: Path,
                       audit: Mapping[str, Any] | None) -> dict[str, Path]:
     document = build_document(results, audit, draw=False)
+    jobs = {f.slug: f.job for f in document.figures if f.job is not None}    # drawn again as PNG for the DOCX
     drawing = FigureDrawing(document.figures)
     try:
         pdf_html = render_html(map_figures(document, lambda f: replace(f, link=figure_link(f))))
@@ -165,12 +167,24 @@ def _render_documents(results: Mapping[str, Any], run_folder: Path,
     if not complete:
         document = build_document(results, audit)
         html = render_html(document)
-        return write_outputs(document, html, run_folder)
+        return _with_docx(write_outputs(document, html, run_folder), document, results, run_folder, jobs)
     # The reader's HTML is the PDF's with each figure inlined (the template's own data URI).
     html = pdf_html
     for link, figure in links.items():
         html = html.replace(f'src="{link}"', f'src="{data_uri(drawing.svg(figure.slug), "image/svg+xml")}"')
-    return write_outputs(document, html, run_folder, pdf_html=pdf_html)
+    return _with_docx(write_outputs(document, html, run_folder, pdf_html=pdf_html), document, results, run_folder,
+                      jobs)
+
+
+def _with_docx(written: dict[str, Path], document: Document, results: Mapping[str, Any], folder: Path,
+               jobs: Mapping[str, Any]) -> dict[str, Path]:
+    """The editable copy (report.docx) beside the PDF, dated by the run so a re-render gives the same bytes."""
+    from trialcut.report.docx_output import pictures_of, write_docx
+
+    run = results.get("run") or {}
+    written["report.docx"] = write_docx(document, folder / "report.docx", pictures=pictures_of(document.figures, jobs),
+                                        created=run.get("started_utc"), modified=run.get("finished_utc"))
+    return written
 
 
 def render_run(run_folder: Path, out: Path | None = None) -> dict[str, Path]:

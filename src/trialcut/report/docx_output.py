@@ -1,0 +1,515 @@
+"""The editable copy of the report: report.docx, from the same document model as the HTML and PDF.
+
+A medical writer pastes its tables into a clinical study report, so every table is a real
+word-processor table (not a picture) with its numbered title above it, the participants per
+arm in a first header row when the report has them, and its notes and footnotes below; the
+header rows repeat on every page.  Figures are PNG pictures drawn by the same drawing calls
+as the SVGs of the HTML and PDF (see ``figures.png_of``).  Fonts, colours and table rules
+follow the PDF's stylesheet (templates/report.css): DejaVu Sans, deep ink, a teal accent.
+
+Same input, same bytes: python-docx stamps the package's parts with the time of writing, so
+the document's own dates are set from the run (started, finished) and the ZIP entries are
+rewritten with the run's start time.
+"""
+from __future__ import annotations
+
+import io
+import re
+import zipfile
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any, Mapping, Sequence
+
+from trialcut.report.blocks import Block, Section
+from trialcut.report.tables import ReportTable
+
+# Style ids (python-docx derives them from the names given to add_style).
+TABLE_TEXT_ID, TABLE_NOTE_ID, LIST_ID = "Tabletext", "Tablenote", "ListBullet"
+FONT = "DejaVu Sans"          # the stylesheet's first family, the one the PDF uses
+INK, MUTED, ACCENT = "1F2A33", "55636E", "0F6F6B"
+ACCENT_SOFT, RULE, STRIPE, WARN, WARN_SOFT = "E6F0EF", "C7D0D5", "F5F7F8", "9A3412", "FFF4E5"
+BODY_POINTS, TABLE_POINTS, NOTE_POINTS, CAPTION_POINTS = 9.5, 8.5, 8, 9.5
+HEADING_POINTS = {1: 21, 2: 15, 3: 12, 4: 10.5, 5: 10}
+# Page margins of the PDF (report.css, @page), in millimetres: top, right, bottom, left.
+MARGINS_MM = (24, 15, 20, 15)
+PAPER_MM = {"A4": (210, 297), "Letter": (215.9, 279.4)}
+EARLIEST_ZIP_TIME = (1980, 1, 1, 0, 0, 0)
+
+
+def write_docx(document, target: Path, *, pictures: Mapping[str, bytes] | None = None,
+               created: str | None = None, modified: str | None = None, kicker: str | None = None) -> Path:
+    """Write ``document`` (a report.document.Document) as a DOCX file at ``target``.
+
+    ``pictures`` maps a figure's slug to its PNG; a figure without one shows its title and
+    note in words.  ``created``/``modified`` are ISO UTC times (the run's start and end).
+    """
+    from docx import Document as new_docx
+
+    word = new_docx()
+    _styles(word)
+    _page(word.sections[0], document.paper, landscape=False)
+    _running_texts(word.sections[0], document)
+    _title_page(word, document, kicker)
+    _contents(word, document)
+    writer = _Writer(word, document, dict(pictures or {}))
+    for number, section in enumerate(document.sections, start=1):
+        writer.section(section, level=1, number=str(number))
+    _core_properties(word, document, created, modified)
+    buffer = io.BytesIO()
+    word.save(buffer)
+    target = Path(target)
+    target.parent.mkdir(parents=True, exist_ok=True)
+    target.write_bytes(_fixed_zip(buffer.getvalue(), _zip_time(created)))
+    return target
+
+
+# --------------------------------------------------------------------------- styles and page
+def _styles(word) -> None:
+    from docx.enum.style import WD_STYLE_TYPE
+    from docx.shared import Pt, RGBColor
+
+    normal = word.styles["Normal"]
+    _font(normal.font, BODY_POINTS, INK)
+    normal.paragraph_format.space_after = Pt(4)
+    normal.paragraph_format.line_spacing = 1.15
+    for level, points in HEADING_POINTS.items():
+        style = word.styles[f"Heading {level}" if level else "Title"]
+        _font(style.font, points, INK, bold=True)
+        style.font.italic = False
+        style.paragraph_format.keep_with_next = True
+        style.paragraph_format.space_before = Pt(points * 1.1)
+        style.paragraph_format.space_after = Pt(points * 0.4)
+    title = word.styles["Title"]
+    _font(title.font, HEADING_POINTS[1], INK, bold=True)
+    _remove_border(title.element)
+    caption = word.styles["Caption"]
+    _font(caption.font, CAPTION_POINTS, INK, bold=True)
+    caption.font.italic = False
+    caption.paragraph_format.keep_with_next = True
+    caption.paragraph_format.space_before = Pt(8)
+    caption.paragraph_format.space_after = Pt(3)
+    note = word.styles.add_style("Table note", WD_STYLE_TYPE.PARAGRAPH)
+    note.base_style = normal
+    _font(note.font, NOTE_POINTS, MUTED)
+    note.paragraph_format.space_after = Pt(1)
+    cell = word.styles.add_style("Table text", WD_STYLE_TYPE.PARAGRAPH)
+    cell.base_style = normal
+    _font(cell.font, TABLE_POINTS, INK)
+    cell.paragraph_format.space_after = Pt(0)
+    cell.paragraph_format.line_spacing = 1.0
+    for name in ("List Bullet", "Header", "Footer"):
+        _font(word.styles[name].font, BODY_POINTS if name == "List Bullet" else 7.5,
+              INK if name == "List Bullet" else MUTED)
+    word.styles["Normal"].font.color.rgb = RGBColor.from_string(INK)
+
+
+def _font(font, points: float, colour: str, *, bold: bool | None = None) -> None:
+    from docx.oxml.ns import qn
+    from docx.shared import Pt, RGBColor
+
+    font.name = FONT
+    font.size = Pt(points)
+    font.color.rgb = RGBColor.from_string(colour)
+    if bold is not None:
+        font.bold = bold
+    # Theme fonts would win over the named one in a word processor: name it for every script.
+    fonts = font.element.rPr.rFonts if font.element.rPr is not None else None
+    if fonts is not None:
+        for attribute in ("w:asciiTheme", "w:hAnsiTheme", "w:eastAsiaTheme", "w:cstheme"):
+            fonts.attrib.pop(qn(attribute), None)
+        for attribute in ("w:ascii", "w:hAnsi", "w:eastAsia", "w:cs"):
+            fonts.set(qn(attribute), FONT)
+
+
+def _remove_border(style_element) -> None:
+    from docx.oxml.ns import qn
+
+    properties = style_element.find(qn("w:pPr"))
+    if properties is not None:
+        for border in properties.findall(qn("w:pBdr")):
+            properties.remove(border)
+
+
+def _page(section, paper: str, *, landscape: bool) -> None:
+    from docx.enum.section import WD_ORIENT
+    from docx.shared import Mm
+
+    width, height = PAPER_MM.get(paper, PAPER_MM["A4"])
+    if landscape:
+        width, height = height, width
+    section.orientation = WD_ORIENT.LANDSCAPE if landscape else WD_ORIENT.PORTRAIT
+    section.page_width, section.page_height = Mm(width), Mm(height)
+    top, right, bottom, left = MARGINS_MM
+    section.top_margin, section.right_margin = Mm(top), Mm(right)
+    section.bottom_margin, section.left_margin = Mm(bottom), Mm(left)
+    section.header_distance = section.footer_distance = Mm(10)
+
+
+def _text_width(section) -> int:
+    return section.page_width - section.left_margin - section.right_margin
+
+
+def _running_texts(section, document) -> None:
+    header = section.header.paragraphs[0]
+    header.text = document.header_text
+    for banner in document.banners:
+        run = header.add_run(f"  ·  {banner}")
+        run.bold = True
+        _colour(run, WARN)
+    footer = section.footer.paragraphs[0]
+    footer.add_run(f"Run {document.run_id}    Page ")
+    _field(footer, "PAGE")
+    footer.add_run(" of ")
+    _field(footer, "NUMPAGES")
+
+
+def _field(paragraph, instruction: str) -> None:
+    """A page-number field; the word processor fills it in when it lays out the pages."""
+    from docx.oxml import OxmlElement
+    from docx.oxml.ns import qn
+
+    for kind, text in (("begin", None), ("instr", f" {instruction} "), ("separate", None), ("text", "1"),
+                       ("end", None)):
+        run = paragraph.add_run()
+        if kind == "instr":
+            element = OxmlElement("w:instrText")
+            element.set(qn("xml:space"), "preserve")
+            element.text = text
+        elif kind == "text":
+            element = OxmlElement("w:t")
+            element.text = text
+        else:
+            element = OxmlElement("w:fldChar")
+            element.set(qn("w:fldCharType"), kind)
+        run._r.append(element)
+
+
+def _colour(run, colour: str) -> None:
+    from docx.shared import RGBColor
+
+    run.font.color.rgb = RGBColor.from_string(colour)
+
+
+def _shade(element_properties, fill: str) -> None:
+    from docx.oxml import OxmlElement
+    from docx.oxml.ns import qn
+
+    shading = OxmlElement("w:shd")
+    shading.set(qn("w:val"), "clear")
+    shading.set(qn("w:color"), "auto")
+    shading.set(qn("w:fill"), fill)
+    element_properties.append(shading)
+
+
+def _border(parent, sides: Mapping[str, tuple[str, int]], tag: str) -> None:
+    """Borders (side -> (colour, eighths of a point)) on a cell or paragraph property element."""
+    from docx.oxml import OxmlElement
+    from docx.oxml.ns import qn
+
+    borders = OxmlElement(tag)
+    for side, (colour, size) in sides.items():
+        line = OxmlElement(f"w:{side}")
+        line.set(qn("w:val"), "single")
+        line.set(qn("w:sz"), str(size))
+        line.set(qn("w:space"), "0" if tag == "w:tcBorders" else "4")
+        line.set(qn("w:color"), colour)
+        borders.append(line)
+    parent.append(borders)
+
+
+# --------------------------------------------------------------------------- front matter
+def _title_page(word, document, kicker: str | None) -> None:
+    from docx.enum.text import WD_BREAK
+    from docx.shared import Pt
+
+    for banner in document.banners:
+        paragraph = word.add_paragraph()
+        run = paragraph.add_run(banner)
+        run.bold = True
+        _colour(run, WARN)
+        _shade(paragraph._p.get_or_add_pPr(), WARN_SOFT)
+    kicker = kicker or getattr(document, "kicker", "") or "Efficacy analyses"
+    run = word.add_paragraph().add_run(kicker.upper())
+    run.font.size = Pt(8.5)
+    _colour(run, MUTED)
+    word.add_paragraph(document.title, style="Title")
+    if document.facts:
+        table = word.add_table(rows=0, cols=2)
+        for label, value in document.facts:
+            cells = table.add_row().cells
+            _cell_text(cells[0], str(label), bold=True, colour=MUTED)
+            _cell_text(cells[1], str(value))
+        _widths(table, [0.3, 0.7], _text_width(word.sections[-1]))
+    if document.cautions:
+        word.add_heading("Before you read", level=2)
+        for caution in document.cautions:
+            _paragraph(word, caution, LIST_ID)
+    word.add_paragraph("Editable copy of the report rendered by trialcut from the run's results.json; the PDF "
+                       "is the reference layout and every table is also saved as a CSV file beside it.")
+    word.add_paragraph().add_run().add_break(WD_BREAK.PAGE)
+
+
+def _contents(word, document) -> None:
+    from docx.enum.text import WD_BREAK
+
+    word.add_heading("Contents", level=2)
+    for number, section in enumerate(document.sections, start=1):
+        _contents_entries(word, section, str(number), depth=0)
+    if document.tables:
+        word.add_heading("Tables", level=3)
+        for table in document.tables:
+            _paragraph(word, f"{table.number}  {table.title}", TABLE_NOTE_ID)
+    if document.figures:
+        word.add_heading("Figures", level=3)
+        for figure in document.figures:
+            _paragraph(word, f"{figure.number}  {figure.title}", TABLE_NOTE_ID)
+    word.add_paragraph().add_run().add_break(WD_BREAK.PAGE)
+
+
+def _contents_entries(word, section: Section, number: str, depth: int) -> None:
+    from docx.shared import Mm
+
+    paragraph = word.add_paragraph(f"{number}  {section.title}")
+    paragraph.paragraph_format.left_indent = Mm(6 * depth)
+    paragraph.paragraph_format.space_after = 0
+    for position, child in enumerate(section.subsections, start=1):
+        _contents_entries(word, child, f"{number}.{position}", depth + 1)
+
+
+# --------------------------------------------------------------------------- body
+class _Writer:
+    def __init__(self, word, document, pictures: dict[str, bytes]):
+        self.word, self.document, self.pictures = word, document, pictures
+
+    def section(self, section: Section, *, level: int, number: str) -> None:
+        from docx.enum.text import WD_BREAK
+
+        if level == 1 and number != "1" and not getattr(self.document, "compact", False):
+            self.word.add_paragraph().add_run().add_break(WD_BREAK.PAGE)
+        heading = self.word.add_heading(level=min(level + 1, 5))
+        run = heading.add_run(f"{number}  ")
+        _colour(run, ACCENT)
+        heading.add_run(section.title)
+        for block in section.blocks:
+            self.block(block)
+        for position, child in enumerate(section.subsections, start=1):
+            self.section(child, level=level + 1, number=f"{number}.{position}")
+
+    def block(self, block: Block) -> None:
+        if block.kind == "paragraph":
+            self.word.add_paragraph(str(block.content))
+        elif block.kind == "list":
+            for item in block.content:
+                _paragraph(self.word, str(item), LIST_ID)
+        elif block.kind == "notice":
+            paragraph = self.word.add_paragraph(str(block.content))
+            properties = paragraph._p.get_or_add_pPr()
+            _border(properties, {"left": (WARN, 24)}, "w:pBdr")
+            _shade(properties, WARN_SOFT)
+        elif block.kind == "table":
+            self.table(block.content)
+        elif block.kind == "figure":
+            self.figure(block.content)
+        elif block.kind == "csv_tables":
+            self.word.add_paragraph("Available as CSV beside this report, not shown here:")
+            for table in block.content:
+                _paragraph(self.word, f"{table.title}: tables/{table.slug}.csv", LIST_ID)
+
+    # ------------------------------------------------------------------ tables
+    def table(self, table: ReportTable) -> None:
+        landscape = bool(table.wide)
+        if landscape:
+            self._new_page_section(landscape=True)
+        caption = self.word.add_paragraph(style="Caption")
+        if table.number:
+            number = caption.add_run(f"{table.number}  ")
+            _colour(number, ACCENT)
+        caption.add_run(table.title)
+        body = table.body()
+        columns = table.header()
+        counts = getattr(table, "counts", "")
+        grid = self.word.add_table(rows=0, cols=len(columns))
+        grid.autofit = False
+        if counts:
+            row = grid.add_row()
+            merged = row.cells[0].merge(row.cells[-1]) if len(columns) > 1 else row.cells[0]
+            _cell_text(merged, counts, bold=True)
+            self._header_row(row)
+        row = grid.add_row()
+        for cell, column in zip(row.cells, columns):
+            _cell_text(cell, column.label, bold=True, right=column.numeric)
+        self._header_row(row, last=True)
+        for position, values in enumerate(body):
+            row = grid.add_row()
+            _keep_row_whole(row)
+            for cell, (text, column) in zip(row.cells, values):
+                _cell_text(cell, text, right=column.numeric)
+                _cell_rules(cell, stripe=position % 2 == 1)
+        shares = [float(width.rstrip("%")) / 100 for width in table.column_widths(body)]
+        _widths(grid, shares, _text_width(self.word.sections[-1]))
+        for line in [table.note, *getattr(table, "footnotes", ())]:
+            if line:
+                _paragraph(self.word, str(line), TABLE_NOTE_ID)
+        if landscape:
+            self._new_page_section(landscape=False)
+
+    def _header_row(self, row, last: bool = False) -> None:
+        from docx.oxml import OxmlElement
+
+        properties = row._tr.get_or_add_trPr()
+        properties.append(OxmlElement("w:tblHeader"))     # repeated at the top of every page
+        _keep_row_whole(row)
+        for cell in row.cells:
+            cell_properties = cell._tc.get_or_add_tcPr()
+            _shade(cell_properties, ACCENT_SOFT)
+            if last:
+                _border(cell_properties, {"bottom": (ACCENT, 12)}, "w:tcBorders")
+
+    def _new_page_section(self, *, landscape: bool) -> None:
+        from docx.enum.section import WD_SECTION
+
+        section = self.word.add_section(WD_SECTION.NEW_PAGE)
+        _page(section, self.document.paper, landscape=landscape)
+
+    # ------------------------------------------------------------------ figures
+    def figure(self, figure) -> None:
+        from docx.shared import Mm
+
+        picture = self.pictures.get(figure.slug)
+        if picture is None:
+            self.word.add_paragraph(f"{figure.title}: {figure.note or 'not drawn.'}")
+            return
+        width = min(_text_width(self.word.sections[-1]), Mm(170))
+        paragraph = self.word.add_paragraph()
+        paragraph.paragraph_format.keep_with_next = True
+        paragraph.add_run().add_picture(io.BytesIO(picture), width=width)
+        caption = self.word.add_paragraph(style="Caption")
+        number = caption.add_run(f"{figure.number}  ")
+        _colour(number, ACCENT)
+        caption.add_run(figure.title)
+        if figure.note:
+            _paragraph(self.word, figure.note, TABLE_NOTE_ID)
+
+
+def _paragraph(word, text: str, style_id: str):
+    paragraph = word.add_paragraph(text)
+    paragraph._p.style = style_id
+    return paragraph
+
+
+def _cell_text(cell, text: str, *, bold: bool = False, right: bool = False, colour: str | None = None) -> None:
+    from docx.enum.text import WD_ALIGN_PARAGRAPH
+
+    paragraph = cell.paragraphs[0]
+    paragraph._p.style = TABLE_TEXT_ID       # by id: python-docx's lookup by name is slow per cell
+    run = paragraph.add_run(text)
+    run.bold = bold or None
+    if colour:
+        _colour(run, colour)
+    if right:
+        paragraph.alignment = WD_ALIGN_PARAGRAPH.RIGHT
+
+
+def _cell_rules(cell, *, stripe: bool) -> None:
+    properties = cell._tc.get_or_add_tcPr()
+    _border(properties, {"bottom": (RULE, 6)}, "w:tcBorders")
+    if stripe:
+        _shade(properties, STRIPE)
+
+
+def _keep_row_whole(row) -> None:
+    from docx.oxml import OxmlElement
+
+    row._tr.get_or_add_trPr().append(OxmlElement("w:cantSplit"))
+
+
+def _widths(table, shares: Sequence[float], room: int) -> None:
+    """Column widths as the PDF's shares of the text width (the word processor keeps them)."""
+    from docx.shared import Emu
+
+    total = sum(shares) or 1.0
+    for position, column in enumerate(table.columns):
+        width = Emu(int(room * shares[position] / total))
+        column.width = width
+        for cell in column.cells:
+            cell.width = width
+
+
+# --------------------------------------------------------------------------- same bytes every time
+def _core_properties(word, document, created: str | None, modified: str | None) -> None:
+    properties = word.core_properties
+    properties.title = document.title
+    properties.subject = f"{document.study_id}, data cut {document.cut}"
+    properties.author = properties.last_modified_by = "trialcut"
+    properties.identifier = document.run_id
+    properties.revision = 1
+    properties.comments = "Editable copy of the rendered report; review by a qualified statistician is required."
+    start = _parse_utc(created) or datetime(2000, 1, 1, tzinfo=timezone.utc)
+    properties.created = start
+    properties.modified = _parse_utc(modified) or start
+    properties.last_printed = start
+
+
+def _parse_utc(text: str | None) -> datetime | None:
+    if not text:
+        return None
+    try:
+        parsed = datetime.fromisoformat(str(text).replace("Z", "+00:00"))
+    except ValueError:
+        return None
+    return parsed if parsed.tzinfo else parsed.replace(tzinfo=timezone.utc)
+
+
+def _zip_time(created: str | None) -> tuple[int, int, int, int, int, int]:
+    moment = _parse_utc(created)
+    if moment is None or moment.year < 1980:
+        return EARLIEST_ZIP_TIME
+    return moment.timetuple()[:6]
+
+
+def _fixed_zip(data: bytes, when: tuple[int, int, int, int, int, int]) -> bytes:
+    """The same archive with every entry stamped ``when`` (python-docx stamps the time of writing)."""
+    out = io.BytesIO()
+    with zipfile.ZipFile(io.BytesIO(data)) as source, zipfile.ZipFile(out, "w") as target:
+        for entry in source.infolist():
+            stamped = zipfile.ZipInfo(entry.filename, date_time=when)
+            stamped.compress_type = zipfile.ZIP_DEFLATED
+            stamped.external_attr = 0o644 << 16
+            target.writestr(stamped, source.read(entry.filename))
+    return out.getvalue()
+
+
+def table_titles(path: Path) -> list[str]:
+    """The numbered titles of a written DOCX's tables, in order: each is the caption paragraph
+    just before a table (python-docx reads the file back; the title page's facts have none)."""
+    from docx import Document as open_docx
+    from docx.oxml.ns import qn
+
+    word = open_docx(str(path))
+    captions = {id(p._p): p for p in word.paragraphs if p.style.name == "Caption"}
+    titles, previous = [], None
+    for element in word.element.body.iterchildren():
+        if element.tag == qn("w:tbl") and previous is not None and id(previous) in captions:
+            titles.append(captions[id(previous)].text)
+        previous = element
+    return titles
+
+
+def pictures_of(figures, jobs: Mapping[str, Any]) -> dict[str, bytes]:
+    """PNG of every drawn figure, from its drawing job (slug -> job); one that fails is left out
+    (the copy then shows the figure's title and note in words, as the HTML does)."""
+    from trialcut.report.figures import png_of
+
+    pictures = {}
+    for figure in figures:
+        job = jobs.get(figure.slug)
+        if job is None or figure.svg is None:
+            continue
+        try:
+            pictures[figure.slug] = png_of(job)
+        except Exception:  # noqa: BLE001 - the SVG of this figure was drawn; its picture is a copy
+            continue
+    return pictures
+
+
+__all__ = ["pictures_of", "table_titles", "write_docx"]
