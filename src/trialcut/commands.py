@@ -73,6 +73,7 @@ def command_run(args) -> int:
         plan_path=args.plan, data_path=args.data, cut_label=args.cut, out_root=args.out,
         unlocked=args.unlocked, dummy_arms_seed=args.dummy_arms, workers=args.workers,
         scheduler=args.scheduler, command_line=["trialcut", *sys.argv[1:]], started=started,
+        cut_off=args.cut_off,
     )
     console.print(f"run folder: {run_folder}")
     console.print(f"report:     {report}")
@@ -114,7 +115,6 @@ def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: P
             context = RunContext(root_seed=plan.seed, executor=executor, progress=_progress_printer())
             results = run_plan(
                 plan, cut, context, timer=timer, run_block=run_block,
-        cut_off=args.cut_off,
                 plan_block=_plan_block(loaded, lock),
                 data_block=cut.summary() | {
                     "participant_hashes": participant_hashes(raw.frame, plan.columns.subject),

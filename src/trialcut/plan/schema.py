@@ -138,6 +138,10 @@ class Columns(Strict):
     change: str | None = "CHG"
     baseline_flag: str | None = "ABLFL"
     parameter: str | None = "PARAMCD"
+    randomisation_date: str | None = Field(default=None, description=(
+        "Column with each participant's randomisation (or first-dose) date, ISO 8601 (ADaM RANDDT or "
+        "TRTSDT). With it a visit is due at the cut-off when date + planned day − 1 + window is on or "
+        "before the cut-off; without it the report says due-ness could not be judged."))
 
 
 # --------------------------------------------------------------------------- arms, visits
@@ -163,10 +167,6 @@ class Arms(Strict):
 
 
 def _arms_issues(arms: Arms) -> Iterator[RuleIssue]:
-    randomisation_date: str | None = Field(default=None, description=(
-        "Column with each participant's randomisation (or first-dose) date, ISO 8601 (ADaM RANDDT or "
-        "TRTSDT). With it a visit is due at the cut-off when date + planned day − 1 + window is on or "
-        "before the cut-off; without it the report says due-ness could not be judged."))
     codes = [a.code for a in arms.list]
     for index, code in enumerate(codes):
         if code in codes[:index]:

@@ -26,9 +26,12 @@ and the joint covariance keeps the own arm's block before d and the reference ar
 conditional of later visits given earlier ones:
     Σ*₁₁ = Σₐ₁₁,  Σ*₂₁ = Σᵣ₂₁Σᵣ₁₁⁻¹Σₐ₁₁,
     Σ*₂₂ = Σᵣ₂₂ − Σᵣ₂₁Σᵣ₁₁⁻¹(Σᵣ₁₁ − Σₐ₁₁)Σᵣ₁₁⁻¹Σᵣ₁₂.
-Values missing before d stay MAR: they are drawn first from the own arm's model given the
-values observed before d; the values from d on are then drawn from the conditional normal
-of N(m*, Σ*) given everything else.
+One rule for every pattern: all of an affected participant's missing values, before d as
+well as from d on, are drawn together from the conditional normal of N(m*, Σ*) given every
+observed value (before and after d).  Before d the marginal of N(m*, Σ*) is the own arm's
+model, so a gap before the event is missing at random, and it also draws on values observed
+after the event, whether or not a later value is missing.  The assumption can differ between
+participants (e.g. by the reason for the event): ``assumption`` is then one name per participant.
 
 Parallel work and reproducibility: the m imputations are split into ``chains``
 independent chains (each with its own burn-in), a split that depends only on m and
@@ -471,34 +474,52 @@ class _CommonSlopeSampler(_Sampler):
 # --------------------------------------------------------------------------- one imputation
 @dataclass(frozen=True)
 class _Step:
-    """Draws for one group of participants: ``before`` (MAR in the own arm, may be None) and
-    ``after``, which is MAR too when ``deviation`` is None, else under the assumption."""
+    """One draw for a group of participants imputed alike: every missing value at once from
+    the conditional normal given every observed value, under ``rule`` from visit ``deviation``
+    on (None: the participant's own-arm model, which is also what MAR means after an event)."""
 
-    before: _Block | None
-    after: _Block
+    block: _Block
     deviation: int | None
+    rule: Assumption
 
 
-def imputation_steps(data: ImputationData, assumption: str | Assumption) -> list[_Step]:
-    """Groups of participants imputed alike, fixed for the data and the assumption."""
-    rule = _rule(assumption)
+def participant_rules(data: ImputationData, assumption: str | Assumption | Sequence[str]) -> tuple[Assumption, ...]:
+    """One assumption per participant: the same for all, or one name per participant (in
+    ``data.subjects`` order), e.g. chosen by the reason for an intercurrent event."""
+    if isinstance(assumption, (str, MissingAtRandom, JumpToReference, CopyReference, CopyIncrementsInReference)):
+        return (_rule(assumption),) * len(data.subjects)
+    names = tuple(assumption)
+    if len(names) != len(data.subjects):
+        raise ModelSpecificationError("one imputation assumption per participant is needed", [Problem(
+            code="stats.assumption_count", message="the per-participant assumptions do not match the participants",
+            expected=f"{len(data.subjects)} assumptions", got=str(len(names)))])
+    return tuple(_rule(name) for name in names)
+
+
+def imputation_steps(data: ImputationData, assumption: str | Assumption | Sequence[str]) -> list[_Step]:
+    """Groups of participants imputed alike, fixed for the data and the assumption(s).
+
+    One rule for every pattern (Carpenter, Roger & Kenward 2013, section 3): a participant of an
+    active arm with an intercurrent event at visit d, under a reference-based assumption, has the
+    joint distribution N(m*, Σ*) over all visits, and every missing value — before d as well as
+    from d on — is drawn from its conditional given everything observed, before and after d.
+    A gap before the event is therefore imputed the same way whether or not a value after the
+    event is also missing."""
+    rules = participant_rules(data, assumption)
+    reference_based = np.array([r.reference_based for r in rules], dtype=bool)
+    rule_index = np.array([IMPUTATION_ASSUMPTIONS.index(r.name) for r in rules], dtype=int)
     mask = data.missing
     t = len(data.visits)
-    affected = (data.deviation < t) & (data.arm_index > 0) & rule.reference_based
-    affected &= (mask & (np.arange(t)[None, :] >= data.deviation[:, None])).any(axis=1)
+    affected = (data.deviation < t) & (data.arm_index > 0) & reference_based
     deviation = np.where(affected, data.deviation, t)
     rows = mask.any(axis=1)
-    keys = np.column_stack([data.arm_index, deviation, mask])[rows]
+    keys = np.column_stack([data.arm_index, np.where(affected, rule_index, -1), deviation, mask])[rows]
     steps = []
     for p in _patterns(keys, mask[rows], data.arm_index[rows]):
         members = np.flatnonzero(rows)[p.rows]
         d = int(deviation[members[0]])
-        if d >= t:
-            steps.append(_Step(None, _Block(members, p.missing, p.observed, p.arm), None))
-            continue
-        before, after = p.missing[p.missing < d], p.missing[p.missing >= d]
-        first = _Block(members, before, p.observed[p.observed < d], p.arm) if before.size else None
-        steps.append(_Step(first, _Block(members, after, np.setdiff1d(np.arange(t), after), p.arm), d))
+        block = _Block(members, p.missing, p.observed, p.arm)
+        steps.append(_Step(block, None, ASSUMPTIONS["mar"]) if d >= t else _Step(block, d, rules[members[0]]))
     return steps
 
 
@@ -506,26 +527,24 @@ def _rule(assumption: str | Assumption) -> Assumption:
     return ASSUMPTIONS[assumption] if isinstance(assumption, str) else assumption
 
 
-def draw_completed(data: ImputationData, parameters: ModelParameters, assumption: str | Assumption,
+def draw_completed(data: ImputationData, parameters: ModelParameters, assumption: str | Assumption | Sequence[str],
                    rng: np.random.Generator, steps: list[_Step] | None = None) -> np.ndarray:
-    """One completed (n, T) outcome matrix under the assumption, given (B, Σ)."""
-    rule = _rule(assumption)
-    steps = imputation_steps(data, rule) if steps is None else steps
+    """One completed (n, T) outcome matrix under the assumption(s), given (B, Σ)."""
+    steps = imputation_steps(data, assumption) if steps is None else steps
     y = data.outcome.copy()
     own = parameters.means(data)
-    reference = parameters.means(data, np.zeros_like(data.arm_index)) if rule.reference_based else own
+    needs_reference = any(step.deviation is not None for step in steps)
+    reference = parameters.means(data, np.zeros_like(data.arm_index)) if needs_reference else own
     for step in steps:
-        sigma_own = parameters.covariances[step.after.arm]
-        if step.before is not None:
-            _draw_conditional(y, step.before, own, sigma_own, rng)
+        sigma_own = parameters.covariances[step.block.arm]
         if step.deviation is None:
-            _draw_conditional(y, step.after, own, sigma_own, rng)
+            _draw_conditional(y, step.block, own, sigma_own, rng)
             continue
         joint_mean = np.zeros_like(own)
-        rows = step.after.rows
-        joint_mean[rows] = rule.joint_mean(own[rows], reference[rows], step.deviation)
+        rows = step.block.rows
+        joint_mean[rows] = step.rule.joint_mean(own[rows], reference[rows], step.deviation)
         joint_sigma = reference_based_covariance(sigma_own, parameters.covariances[0], step.deviation)
-        _draw_conditional(y, step.after, joint_mean, joint_sigma, rng)
+        _draw_conditional(y, step.block, joint_mean, joint_sigma, rng)
     return y
 
 
@@ -542,7 +561,7 @@ def shift_matrix(data: ImputationData, delta_by_arm: np.ndarray, cumulative: boo
 @dataclass(frozen=True)
 class ChainTask:
     data: ImputationData
-    assumption: str
+    assumption: str | tuple[str, ...]     # one for all, or one per participant
     covariance_by_arm: bool
     burn_in: int
     thinning: int
@@ -695,7 +714,7 @@ class ImputationDraws:
     diagnostics: dict[str, Any]
 
 
-def run_imputations(data: ImputationData, *, assumption: str, n_imputations: int, burn_in: int,
+def run_imputations(data: ImputationData, *, assumption: str | tuple[str, ...], n_imputations: int, burn_in: int,
                     thinning: int, covariance_by_arm: bool, seed_sequence: np.random.SeedSequence,
                     scenarios: np.ndarray | None = None, cumulative: bool = False, chains: int = 4,
                     executor: Any = None, progress: Callable[[int, int], None] | None = None,
@@ -774,9 +793,10 @@ def lag1_autocorrelation(chains: Sequence[np.ndarray]) -> float | None:
 
 def _check_settings(data, assumption, n_imputations, burn_in, thinning, chains, by_arm) -> None:
     problems = []
-    if assumption not in ASSUMPTIONS:
+    names = {assumption} if isinstance(assumption, str) else set(assumption)
+    for name in sorted(names - set(ASSUMPTIONS), key=str):
         problems.append(Problem(code="stats.assumption", message="unknown imputation assumption",
-                                expected=", ".join(IMPUTATION_ASSUMPTIONS), got=str(assumption)))
+                                expected=", ".join(IMPUTATION_ASSUMPTIONS), got=str(name)))
     for name, value, least in (("n_imputations", n_imputations, 2), ("burn_in", burn_in, 0),
                                ("thinning", thinning, 1), ("chains", chains, 1)):
         if int(value) != value or value < least:
@@ -880,6 +900,13 @@ def _analysis_model(name: str, options: Mapping[str, str] | None,
                 got=f"{name!r} with options {dict(options or {})}")])
 
 
+def _participants_by_assumption(data: ImputationData, assumption) -> dict[str, int]:
+    """Participants with an intercurrent event, by the assumption their values follow after it."""
+    event = data.deviation < len(data.visits)
+    names = [rule.name for rule, hit in zip(participant_rules(data, assumption), event) if hit]
+    return {name: names.count(name) for name in IMPUTATION_ASSUMPTIONS if name in names}
+
+
 def impute(frame: pd.DataFrame, *, subject: str, arm: str, visit: str, outcome: str,
            visits: Sequence[str], reference: str, covariates: Sequence[str] = (),
            assumption: str = "mar", event: str | Mapping[Any, Any] | None = None,
@@ -889,6 +916,7 @@ def impute(frame: pd.DataFrame, *, subject: str, arm: str, visit: str, outcome: 
            chains: int = 4, executor: Any = None, conf_level: float = 0.95,
            arms: Sequence[str] | None = None, analysis_model: str = "ancova",
            mmrm_options: Mapping[str, str] | None = None, covariate_effects: str = "by_visit",
+           assumption_by_subject: Mapping[Any, str] | None = None,
            progress: Callable[[int, int], None] | None = None) -> MultipleImputationResult:
     """Multiple imputation, ANCOVA at every visit on each completed data set, Rubin's rules.
 
@@ -897,14 +925,18 @@ def impute(frame: pd.DataFrame, *, subject: str, arm: str, visit: str, outcome: 
     value per visit) is added to imputed values of the ``delta_arms``.  The result depends
     on the seed, m and ``chains`` only, never on the executor.  ``analysis_model`` "mmrm"
     analyses each completed data set with ``fit_mmrm`` (``mmrm_options``: covariance, df,
-    method) instead of ANCOVA at each visit.
+    method) instead of ANCOVA at each visit.  ``assumption_by_subject`` (participant ->
+    assumption name) overrides ``assumption`` for the participants it names, e.g. jump to
+    reference after discontinuation for lack of efficacy and MAR for other reasons.
     """
     analysis = _analysis_model(analysis_model, mmrm_options, covariate_effects)
     data = prepare_data(frame, subject=subject, arm=arm, visit=visit, outcome=outcome, visits=visits,
                         reference=reference, covariates=covariates, event=event, arms=arms)
     seeds = seed_sequence if isinstance(seed_sequence, np.random.SeedSequence) else np.random.SeedSequence(seed_sequence)
     scenario = delta_by_arm(data.arms, data.visits, delta, delta_arms)[None]
-    draws = run_imputations(data, assumption=assumption, n_imputations=n_imputations, burn_in=burn_in,
+    rules = assumption if not assumption_by_subject else tuple(
+        str(assumption_by_subject.get(s, assumption)) for s in data.subjects)
+    draws = run_imputations(data, assumption=rules, n_imputations=n_imputations, burn_in=burn_in,
                             thinning=thinning, covariance_by_arm=covariance_by_arm, seed_sequence=seeds,
                             scenarios=scenario, cumulative=delta_cumulative, chains=chains,
                             executor=executor, progress=progress, analysis=analysis,
@@ -918,6 +950,7 @@ def impute(frame: pd.DataFrame, *, subject: str, arm: str, visit: str, outcome: 
                 "covariance_by_arm": covariance_by_arm, "covariates": list(data.covariate_names),
                 "covariate_effects": covariate_effects, "delta": None if delta is None else np.broadcast_to(np.asarray(delta, float), (len(data.visits),)).tolist(),
                 "delta_arms": list(delta_arms), "delta_cumulative": delta_cumulative,
+                "participants_by_assumption": _participants_by_assumption(data, rules),
                 "analysis": "ancova at each visit" if analysis is None else f"mmrm ({analysis.covariance}, "
                 f"{analysis.method}, df {analysis.df})", "conf_level": conf_level}
     return MultipleImputationResult(assumption, reference, data.arms, data.visits, pooled, settings,
