@@ -6,16 +6,22 @@ locked it and why, the trialcut version, and ``previous``, the hash of the recor
 it; its own ``record_sha256`` is taken over all of that.  Editing any earlier record, or
 dropping one, breaks the chain and is reported.  Keeping the canonical content lets a
 changed plan be explained field by field instead of with a bare "hash mismatch".
+
+A record may carry ``signature``: an Ed25519 signature over its ``record_sha256`` (made by
+the record layer's signing module and handed in as ``sign``; this layer only stores it).
+The signature is outside the hashed fields, so signing an existing record later leaves the
+chain intact, and removing a signature is not tampering but makes the record unsigned,
+which ``trialcut verify`` names and a plan's ``sign_off.signed_locks`` refuses.
 """
 from __future__ import annotations
 
 import json
 import os
 import tempfile
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, replace
 from datetime import datetime, timezone
 from pathlib import Path
-from typing import Any, Iterator
+from typing import Any, Callable, Iterator
 
 import trialcut
 from trialcut.errors import LockError, Problem
@@ -25,11 +31,15 @@ from trialcut.plan.load import LoadedPlan, item_name
 LOCK_FORMAT = 1
 LOCK_SUFFIX = ".lock.json"
 MAX_CHANGES_SHOWN = 20
+SIGNATURE_PURPOSE = "plan lock"
+# Fields a record's own hash leaves out: the hash itself and the signature over it.
+_UNHASHED = ("record_sha256", "signature")
 
 _RECORD_TYPES: dict[str, tuple[type, ...]] = {
     "plan_file": (str,), "plan_version": (str,), "plan_sha256": (str,), "locked_utc": (str,), "by": (str,), "reason": (str,),
     "tool_version": (str,), "previous": (str, type(None)), "plan": (dict,), "record_sha256": (str,),
 }
+_OPTIONAL_FIELDS: dict[str, tuple[type, ...]] = {"signature": (dict,)}
 
 
 @dataclass(frozen=True)
@@ -44,6 +54,7 @@ class LockRecord:
     previous: str | None    # record_sha256 of the record before this one (amendments)
     plan: dict[str, Any]    # the canonical content itself, to explain later changes
     record_sha256: str      # hash of every field above
+    signature: dict[str, Any] | None = None   # over record_sha256; see the module note
 
     def to_dict(self, include_plan: bool = False) -> dict[str, Any]:
         """Plain data; the stored plan is left out unless asked for, because a run's
@@ -52,6 +63,8 @@ class LockRecord:
         data = asdict(self)
         if not include_plan:
             del data["plan"]
+        if data["signature"] is None:
+            del data["signature"]
         return data
 
 
@@ -78,8 +91,16 @@ class LockStatus:
             "tool_version": latest.tool_version,
             "amendments": [{"version": r.plan_version, "sha256": r.plan_sha256, "locked_utc": r.locked_utc,
                             "by": r.by, "reason": r.reason, "record_sha256": r.record_sha256,
-                            "previous": r.previous} for r in self.chain],
+                            "previous": r.previous, "signed_by": _signed_by(r)} for r in self.chain],
         }
+
+
+def _signed_by(record: LockRecord) -> dict[str, Any] | None:
+    """Who claims to have signed (checked against the keyring only by verify)."""
+    block = record.signature
+    if not isinstance(block, dict):
+        return None
+    return {key: block.get(key) for key in ("key", "fingerprint", "signed_utc")}
 
 
 def lock_file_for(plan_path: str | Path) -> Path:
@@ -88,16 +109,29 @@ def lock_file_for(plan_path: str | Path) -> Path:
 
 
 def record_hash(fields: dict[str, Any]) -> str:
-    content = {key: value for key, value in fields.items() if key != "record_sha256"}
+    content = {key: value for key, value in fields.items() if key not in _UNHASHED}
     return sha256_text(canonical_json(content))
 
 
 # --------------------------------------------------------------------------- locking
-def lock_plan(loaded: LoadedPlan, by: str, reason: str, now: datetime | None = None) -> LockRecord:
-    """Append a lock record for the plan as it is now; the first lock or an amendment."""
+Sign = Callable[[str, str], dict]   # (purpose, record_sha256) -> signature block
+
+
+def lock_plan(loaded: LoadedPlan, by: str, reason: str, now: datetime | None = None,
+              sign: Sign | None = None) -> LockRecord:
+    """Append a lock record for the plan as it is now; the first lock or an amendment.
+
+    With ``sign``, the new record is signed; if the plan is already locked unchanged and its
+    latest record is unsigned, that record is signed instead (nothing else changes).
+    """
     _require_words(loaded, by=by, reason=reason)
     lock_file = lock_file_for(loaded.path)
     chain = read_chain(lock_file) if lock_file.exists() else ()
+    if chain and chain[-1].plan_sha256 == loaded.canonical_hash and sign is not None \
+            and chain[-1].signature is None:
+        signed = replace(chain[-1], signature=sign(SIGNATURE_PURPOSE, chain[-1].record_sha256))
+        _write_chain(lock_file, (*chain[:-1], signed))
+        return signed
     if chain and chain[-1].plan_sha256 == loaded.canonical_hash:
         latest = chain[-1]
         raise LockError(
@@ -117,6 +151,8 @@ def lock_plan(loaded: LoadedPlan, by: str, reason: str, now: datetime | None = N
         "plan": plan_content(loaded.plan),
     }
     record = LockRecord(**fields, record_sha256=record_hash(fields))
+    if sign is not None:
+        record = replace(record, signature=sign(SIGNATURE_PURPOSE, record.record_sha256))
     _write_chain(lock_file, (*chain, record))
     return record
 
@@ -290,7 +326,9 @@ def _record_shape(data: Any, index: int, lock_file: Path) -> Iterator[Problem]:
                       field=where, got=type(data).__name__)
         return
     for key in sorted(set(_RECORD_TYPES) | set(data)):
-        allowed = _RECORD_TYPES.get(key)
+        allowed = _RECORD_TYPES.get(key) or _OPTIONAL_FIELDS.get(key)
+        if key in _OPTIONAL_FIELDS and key not in data:
+            continue
         if allowed is None:
             yield Problem(code="lock.invalid", message=f"unknown field {key!r}", file=str(lock_file),
                           field=f"{where}.{key}", expected="only the fields trialcut writes")
