@@ -7,7 +7,10 @@ Exit statuses: 0 ok; 1 a verification found a difference; 2 bad input or usage;
 from __future__ import annotations
 
 import argparse
+import contextlib
+import signal
 import sys
+import threading
 import tempfile
 import time
 import traceback
@@ -64,24 +67,37 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("--scheduler", metavar="ADDRESS",
                      help="Dask scheduler address, or 'local' for a local cluster")
 
-    history = commands.add_parser("history", help="list recorded runs")
+    history = commands.add_parser("history", help="list recorded runs, comparisons and renderings")
     history.add_argument("--out", type=Path, default=Path("outputs"))
     history.add_argument("--study")
     history.add_argument("--cut")
 
-    verify = commands.add_parser("verify", help="re-hash a run folder (or all runs) and walk the registry chain")
-    verify.add_argument("run_folder", nargs="?", type=Path)
+    verify = commands.add_parser("verify", help="re-hash sealed folders, compare them with their registry rows "
+                                                "and walk the registry chain")
+    verify.add_argument("run_folder", nargs="?", type=Path,
+                        help="one run (or comparison, rendering) folder; default: everything under --out")
     verify.add_argument("--out", type=Path, default=Path("outputs"))
-    verify.add_argument("--registry", type=Path, help="registry file (default: OUT/registry.sqlite)")
+    verify.add_argument("--registry", type=Path,
+                        help="registry file (default: registry.sqlite of the folder's output root, or OUT's)")
+    verify.add_argument("--head", metavar="HASH",
+                        help="a chain head printed by an earlier record: check it is still in the chain")
+    verify.add_argument("--without-registry", action="store_true",
+                        help="check one folder against its own manifest only (a weaker check, said loudly)")
+    verify.add_argument("--keyring", type=Path, metavar="FILE",
+                        help="keyring to check signatures against (default: $TRIALCUT_KEYRING or ./keyring.txt)")
 
-    render = commands.add_parser("render", help="rebuild the documents of a past run from its results")
+    render = commands.add_parser("render", help="rebuild the documents of a verified past run from its results")
     render.add_argument("run_folder", type=Path)
-    render.add_argument("--to", type=Path, help="output folder (default: a new folder beside the run)")
+    render.add_argument("--to", type=Path, help="a new or empty folder outside the output folder (not recorded); "
+                                                "default: a new recorded folder OUT/STUDY/renderings/ID")
+    render.add_argument("--registry", type=Path, help="registry file (default: the run's output root's)")
 
-    compare = commands.add_parser("compare", help="compare two runs (plan, data and estimates)")
+    compare = commands.add_parser("compare", help="compare two verified runs (plan, data and estimates)")
     compare.add_argument("run_a", type=Path)
     compare.add_argument("run_b", type=Path)
-    compare.add_argument("--to", type=Path, help="output folder (default: OUT/comparisons/A-vs-B)")
+    compare.add_argument("--to", type=Path, help="a new or empty folder outside the output folder (not recorded); "
+                                                 "default: a new recorded folder OUT/STUDY/comparisons/ID")
+    compare.add_argument("--registry", type=Path, help="registry file (default: the runs' output root's)")
 
     demo = commands.add_parser("demo", help="invent a trial, lock the demo plan and run two data cuts")
     demo.add_argument("--out", type=Path, default=Path("outputs"))
@@ -99,14 +115,15 @@ def main(argv: Sequence[str] | None = None) -> int:
             return 2
         from trialcut import commands
 
-        return getattr(commands, f"command_{args.command}")(args)
+        with _terminate_as_interrupt():
+            return getattr(commands, f"command_{args.command}")(args)
     except TrialcutError as error:
         if debug:
             traceback.print_exc()
         print(f"error: {error.render()}", file=sys.stderr)
         return error.exit_status
-    except KeyboardInterrupt:
-        print("interrupted: nothing was recorded", file=sys.stderr)
+    except KeyboardInterrupt as interrupt:
+        print(f"interrupted: {interrupt or 'nothing was recorded'}", file=sys.stderr)
         return 130
     except SystemExit as exit_:  # --help and --version
         return int(exit_.code or 0)
@@ -119,6 +136,23 @@ def main(argv: Sequence[str] | None = None) -> int:
         print(f"internal error: this is a fault in trialcut, not in your input; details in {log}",
               file=sys.stderr)
         return 3
+
+
+@contextlib.contextmanager
+def _terminate_as_interrupt():
+    """SIGTERM (a scheduler or `kill` stopping us) ends a command the way Ctrl-C does: cleanly."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+
+    def interrupt(number, frame):
+        raise KeyboardInterrupt("stopped by SIGTERM; nothing was recorded")
+
+    previous = signal.signal(signal.SIGTERM, interrupt)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGTERM, previous)
 
 
 def entry_point() -> None:

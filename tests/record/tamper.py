@@ -39,7 +39,7 @@ def apply_tamper(run_folder: Path, registry_path: Path, setup: dict) -> None:
     else:
         if argument is not True:
             raise ValueError(f"delete_registry_row takes true; got {argument!r}")
-        _change_registry(registry_path, "DELETE FROM runs WHERE run_id = ?", [run_folder.name])
+        _change_registry(registry_path, "DELETE FROM records WHERE record_id = ?", [run_folder.name])
 
 
 def _inside(run_folder: Path, relative: object) -> Path:
@@ -77,15 +77,15 @@ def _add_file(path: Path) -> None:
 
 def _edit_row(registry_path: Path, run_id: str, column: object) -> None:
     with sqlite3.connect(registry_path) as connection:
-        columns = [row[1] for row in connection.execute("PRAGMA table_info(runs)")]
-        found = connection.execute("SELECT * FROM runs WHERE run_id = ?", [run_id]).fetchone()
+        columns = [row[1] for row in connection.execute("PRAGMA table_info(records)")]
+        found = connection.execute("SELECT * FROM records WHERE record_id = ?", [run_id]).fetchone()
     connection.close()
     if column not in columns:
-        raise ValueError(f"the runs table has no column {column!r}; it has {columns}")
+        raise ValueError(f"the records table has no column {column!r}; it has {columns}")
     if found is None:
         raise ValueError(f"the registry has no row for run {run_id}")
     changed = _changed_value(found[columns.index(column)])
-    _change_registry(registry_path, f"UPDATE runs SET {column} = ? WHERE run_id = ?",
+    _change_registry(registry_path, f"UPDATE records SET {column} = ? WHERE record_id = ?",
                      [changed, run_id])
 
 

@@ -14,21 +14,12 @@ import pytest
 import yaml
 
 from trialcut.cli import main
-from trialcut.record.registry import record_run
+from tests.record.sealing import record_small_run
 from tests.record.tamper import TAMPER_ACTIONS, apply_tamper
 from tests.test_bad_input_cases import _expand
 
 CASES = Path(__file__).resolve().parents[1] / "cases"
 VERIFY_CASES = sorted(CASES.glob("verify_*/case.yaml"))
-ENTRY = {"plan_sha256": "c" * 64, "lock_status": "unlocked", "dummy_arms": False,
-         "data_sha256": "d" * 64}
-
-
-def fill(folder: Path) -> None:
-    (folder / "results.json").write_text('{"format": 1}\n', encoding="utf-8")
-    (folder / "audit.json").write_text('{"command_line": []}\n', encoding="utf-8")
-    (folder / "tables").mkdir()
-    (folder / "tables" / "differences.csv").write_text("arm,estimate\nActive,-1.0\n")
 
 
 def test_there_are_at_least_four_verification_cases():
@@ -45,8 +36,7 @@ def test_verification_case(case_file: Path, tmp_path: Path, capsys):
     tokens = {"case": work, "base": CASES / "_base", "out": out}
     if "setup" in spec:
         assert set(spec["setup"]) <= set(TAMPER_ACTIONS)
-        tokens["run"] = record_run(out, out / "registry.sqlite", "S", "c1", "r1", fill,
-                                   ENTRY).folder
+        tokens["run"] = record_small_run(out, "r1").folder
         # The untampered run verifies, so the failure below is the tamper's doing.
         assert main(_expand(spec["argv"], tokens)) == 0
         apply_tamper(tokens["run"], out / "registry.sqlite", spec["setup"])
@@ -59,8 +49,7 @@ def test_verification_case(case_file: Path, tmp_path: Path, capsys):
 
 
 def test_unknown_or_inapplicable_tamper_is_refused(tmp_path):
-    folder = record_run(tmp_path, tmp_path / "registry.sqlite", "S", "c1", "r1", fill,
-                        ENTRY).folder
+    folder = record_small_run(tmp_path, "r1").folder
     registry = tmp_path / "registry.sqlite"
     for setup in ({"rename_file": "results.json"}, {"edit_file": "absent.json"},
                   {"add_file": "results.json"}, {"delete_file": "../registry.sqlite"},

@@ -11,7 +11,8 @@ import pytest
 
 from trialcut.errors import InputError, TrialcutError
 from trialcut.record.manifest import MANIFEST_NAME
-from trialcut.record.registry import append_run, find_run, list_runs, record_run, verify_chain
+from trialcut.record.registry import append_run, find_run, list_runs, verify_chain
+from trialcut.record.seal import record_run
 
 ZEROS = "0" * 64
 
@@ -39,7 +40,7 @@ def raw_rows(registry: Path) -> list[dict]:
     # Read with sqlite3 directly, not through the module under test.
     with sqlite3.connect(registry) as connection:
         connection.row_factory = sqlite3.Row
-        return [dict(row) for row in connection.execute("SELECT * FROM runs ORDER BY seq")]
+        return [dict(row) for row in connection.execute("SELECT * FROM records ORDER BY seq")]
 
 
 def execute(registry: Path, statement: str, *arguments) -> None:
@@ -76,7 +77,7 @@ def test_list_runs_returns_rows_in_order_and_filters(registry):
     assert [row.seq for row in list_runs(registry, study="STUDY-1", cut="interim")] == [1, 2, 3, 4]
     row = list_runs(registry)[0]
     assert row.to_dict() == raw_rows(registry)[0]
-    assert find_run(registry, row.run_id) == row
+    assert find_run(registry, row.record_id) == row
     assert find_run(registry, "no-such-run") is None
 
 
@@ -85,21 +86,21 @@ def codes(problems) -> list[str]:
 
 
 def test_an_edited_row_is_named(registry):
-    execute(registry, "UPDATE runs SET data_sha256 = ? WHERE seq = 2", "f" * 64)
+    execute(registry, "UPDATE records SET data_sha256 = ? WHERE seq = 2", "f" * 64)
     problems = verify_chain(registry)
     assert codes(problems) == ["registry.row_changed"]
     assert "seq 2" in problems[0].field and entry(2)["run_id"] in problems[0].field
 
 
 def test_an_edited_row_hash_breaks_the_next_link_too(registry):
-    execute(registry, "UPDATE runs SET row_hash = ? WHERE seq = 2", "e" * 64)
+    execute(registry, "UPDATE records SET row_hash = ? WHERE seq = 2", "e" * 64)
     found = {(problem.code, problem.field.split(".")[0]) for problem in verify_chain(registry)}
-    assert ("registry.row_changed", f"runs[seq 2, run {entry(2)['run_id']}]") in found
-    assert ("registry.chain_broken", f"runs[seq 3, run {entry(3)['run_id']}]") in found
+    assert ("registry.row_changed", f"records[seq 2, run {entry(2)['run_id']}]") in found
+    assert ("registry.chain_broken", f"records[seq 3, run {entry(3)['run_id']}]") in found
 
 
 def test_a_deleted_middle_row_is_named(registry):
-    execute(registry, "DELETE FROM runs WHERE seq = 2")
+    execute(registry, "DELETE FROM records WHERE seq = 2")
     problems = verify_chain(registry)
     assert sorted(codes(problems)) == ["registry.chain_broken", "registry.rows_missing"]
     assert all("seq 3" in problem.field for problem in problems)
@@ -107,7 +108,7 @@ def test_a_deleted_middle_row_is_named(registry):
 
 def test_a_deleted_last_row_is_detected(registry):
     # SQLite keeps the highest AUTOINCREMENT value in sqlite_sequence (sqlite.org/autoinc.html).
-    execute(registry, "DELETE FROM runs WHERE seq = 4")
+    execute(registry, "DELETE FROM records WHERE seq = 4")
     problems = verify_chain(registry)
     assert codes(problems) == ["registry.rows_removed_at_end"]
     # A later append keeps the gap, so the removal cannot be papered over.
@@ -119,21 +120,21 @@ def test_a_deleted_last_row_is_detected(registry):
 def test_swapped_rows_are_detected(registry):
     # Swap the contents of rows 2 and 3 while keeping their seq numbers.
     rows = raw_rows(registry)
-    columns = [column for column in rows[0] if column not in ("seq", "run_id")]
+    columns = [column for column in rows[0] if column not in ("seq", "record_id")]
     assignments = ", ".join(f"{column} = ?" for column in columns)
-    execute(registry, "UPDATE runs SET run_id = 'moving-' || seq WHERE seq IN (2, 3)")
-    execute(registry, f"UPDATE runs SET run_id = ?, {assignments} WHERE seq = 2",
-            rows[2]["run_id"], *[rows[2][column] for column in columns])
-    execute(registry, f"UPDATE runs SET run_id = ?, {assignments} WHERE seq = 3",
-            rows[1]["run_id"], *[rows[1][column] for column in columns])
+    execute(registry, "UPDATE records SET record_id = 'moving-' || seq WHERE seq IN (2, 3)")
+    execute(registry, f"UPDATE records SET record_id = ?, {assignments} WHERE seq = 2",
+            rows[2]["record_id"], *[rows[2][column] for column in columns])
+    execute(registry, f"UPDATE records SET record_id = ?, {assignments} WHERE seq = 3",
+            rows[1]["record_id"], *[rows[1][column] for column in columns])
     found = codes(verify_chain(registry))
     assert "registry.chain_broken" in found and "registry.row_changed" in found
 
 
 def test_renumbered_rows_are_detected(registry):
-    execute(registry, "UPDATE runs SET seq = 10 WHERE seq = 2")
-    execute(registry, "UPDATE runs SET seq = 2 WHERE seq = 3")
-    execute(registry, "UPDATE runs SET seq = 3 WHERE seq = 10")
+    execute(registry, "UPDATE records SET seq = 10 WHERE seq = 2")
+    execute(registry, "UPDATE records SET seq = 2 WHERE seq = 3")
+    execute(registry, "UPDATE records SET seq = 3 WHERE seq = 10")
     assert "registry.row_changed" in codes(verify_chain(registry))
 
 
@@ -153,7 +154,7 @@ def test_invalid_entries_are_refused_and_nothing_is_written(tmp_path, change, fi
 def test_duplicate_run_id_is_refused_and_the_chain_stays_whole(registry):
     with pytest.raises(TrialcutError) as caught:
         append_run(registry, entry(1))
-    assert caught.value.problems[0].code == "registry.duplicate_run"
+    assert caught.value.problems[0].code == "registry.duplicate_record"
     assert len(raw_rows(registry)) == 4 and verify_chain(registry) == []
 
 
@@ -192,7 +193,7 @@ def test_two_processes_appending_at_once_keep_one_chain(tmp_path):
     assert verify_chain(registry) == []
 
 
-def fill(folder: Path) -> None:
+def fill(folder: Path, position) -> None:
     (folder / "results.json").write_text("{}\n")
 
 
@@ -222,16 +223,17 @@ def test_failed_append_removes_the_new_folder(tmp_path):
 
 
 def test_interrupted_append_removes_the_new_folder(tmp_path, monkeypatch):
-    import trialcut.record.registry as registry
+    from trialcut.record.registry import RegistryWriter
 
-    def interrupted(path, values):
+    def interrupted(writer, values):
         raise KeyboardInterrupt
 
-    monkeypatch.setattr(registry, "append_run", interrupted)
+    monkeypatch.setattr(RegistryWriter, "append", interrupted)
     with pytest.raises(KeyboardInterrupt):
         record_run(tmp_path, tmp_path / "registry.sqlite", "S", "c1", "r1", fill, RUN_ENTRY)
     assert list((tmp_path / "S" / "c1").iterdir()) == []
-    assert not (tmp_path / "registry.sqlite").exists()
+    monkeypatch.undo()
+    assert list_runs(tmp_path / "registry.sqlite") == []
 
 
 def test_record_run_refuses_an_entry_that_contradicts_it(tmp_path):
@@ -239,4 +241,4 @@ def test_record_run_refuses_an_entry_that_contradicts_it(tmp_path):
         record_run(tmp_path, tmp_path / "registry.sqlite", "S", "c1", "r1", fill,
                    {**RUN_ENTRY, "cut": "c2"})
     assert caught.value.problems[0].field == "cut"
-    assert list((tmp_path / "S" / "c1").iterdir()) == []
+    assert not list(tmp_path.rglob("*"))

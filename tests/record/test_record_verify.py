@@ -9,26 +9,16 @@ import pytest
 
 from trialcut.errors import InputError, VerificationFailed
 from trialcut.record.manifest import MANIFEST_NAME
-from trialcut.record.registry import record_run
 from trialcut.record.verify import verify_all, verify_run
+from tests.record.sealing import record_small_run
 from tests.record.tamper import apply_tamper
-
-ENTRY = {"plan_sha256": "a" * 64, "lock_status": "locked", "dummy_arms": False,
-         "data_sha256": "b" * 64}
-
-
-def fill(folder: Path) -> None:
-    (folder / "results.json").write_text('{"format": 1, "estimate": -1.25}\n', encoding="utf-8")
-    (folder / "tables").mkdir()
-    (folder / "tables" / "differences.csv").write_text("arm,estimate\nActive,-1.25\n")
-    (folder / "report.html").write_text("<html></html>\n")
 
 
 @pytest.fixture
 def outputs(tmp_path) -> Path:
     out = tmp_path / "outputs"
     for run_id in ("r1", "r2", "r3"):
-        record_run(out, out / "registry.sqlite", "S", "c1", run_id, fill, ENTRY)
+        record_small_run(out, run_id)
     return out
 
 
@@ -45,11 +35,11 @@ def findings(call) -> list[tuple[str, str | None]]:
 
 def test_untouched_runs_verify(outputs):
     report = verify_run(run(outputs), outputs / "registry.sqlite")
-    assert report.ok and report.files_checked == 3 and report.registry_rows_checked == 3
+    assert report.ok and report.files_checked == 4 and report.registry_rows_checked == 3
     alone = verify_run(run(outputs))   # the folder alone, without a registry
-    assert alone.ok and "no registry" in alone.summary
+    assert alone.ok and "no registry" in alone.summary.lower()
     everything = verify_all(outputs, outputs / "registry.sqlite")
-    assert everything.ok and everything.files_checked == 9
+    assert everything.ok and everything.files_checked == 12
     assert everything.to_dict()["problems"] == []
 
 
@@ -76,7 +66,8 @@ def test_an_edited_manifest_no_longer_matches_the_registry(outputs):
     # Someone edits a file and rewrites its manifest line to match: only the registry's
     # record of the manifest hash can catch that.
     folder = run(outputs)
-    (folder / "results.json").write_text('{"format": 1, "estimate": -9.99}\n')
+    (folder / "results.json").write_text(
+        (folder / "results.json").read_text().replace('"estimate": -1.25', '"estimate": -9.99'))
     import hashlib   # the forger's tool: Python's hashlib
     lines = (folder / MANIFEST_NAME).read_text().splitlines()
     digest = hashlib.sha256((folder / "results.json").read_bytes()).hexdigest()
@@ -102,7 +93,7 @@ def test_registry_tampering_is_found_from_any_run(outputs):
     apply_tamper(run(outputs, "r1"), registry, {"edit_registry_row": "data_sha256"})
     # Checking r3 still walks the whole chain and names r1's row.
     found = findings(lambda: verify_run(run(outputs, "r3"), registry))
-    assert found == [("registry.row_changed", "runs[seq 1, run r1]")]
+    assert found == [("registry.row_changed", "records[seq 1, run r1]")]
 
 
 def test_a_deleted_row_leaves_its_folder_unregistered(outputs):
@@ -120,7 +111,7 @@ def test_a_deleted_row_leaves_its_folder_unregistered(outputs):
 def test_verify_all_names_a_missing_folder(outputs):
     shutil.rmtree(run(outputs, "r1"))
     found = findings(lambda: verify_all(outputs, outputs / "registry.sqlite"))
-    assert found == [("verify.folder_missing", "runs[seq 1, run r1]")]
+    assert found == [("verify.folder_missing", "records[seq 1, run r1]")]
 
 
 def test_a_deleted_manifest_of_a_registered_run_is_a_finding(outputs):

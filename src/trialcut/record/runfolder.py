@@ -1,12 +1,17 @@
 """Run folders: ``<out root>/<study>/<cut>/<run id>/``, written whole or not at all.
 
 A run folder is filled inside a temporary sibling (same parent, so the same file system)
-whose name starts with ``.tmp-``; its files are hashed into MANIFEST.sha256, flushed to
-disk, and the folder is renamed into place in one step.  A reader therefore sees either
-no run folder or a complete one.  Anything that goes wrong on the way (an exception,
-Ctrl-C) removes the temporary folder.  A process killed outright leaves a ``.tmp-``
-folder behind: listings skip it and the next write under the same cut removes it once it
-is an hour old (younger ones may belong to a run still being written).
+whose name is ``.tmp-<id>-<process id>-<random>``; its files are hashed into
+MANIFEST.sha256, flushed to disk, and the folder is renamed into place in one step.  A
+reader therefore sees either no run folder or a complete one.  Anything that goes wrong on
+the way (an exception, Ctrl-C) removes the temporary folder.  A process killed outright
+leaves a ``.tmp-`` folder behind: listings skip it, ``verify`` and ``history`` name it
+(the process id in its name tells a run still being written from a killed one), and
+the next write removes it (see :mod:`trialcut.record.seal`).
+
+The same folders hold every sealed record, not only runs: each lives three levels below
+the output root, ``<out root>/<study>/<group>/<id>/``, where the group is the data cut of a
+run, or ``comparisons``, ``renderings``, ``approvals``… for the other kinds.
 """
 from __future__ import annotations
 
@@ -89,16 +94,14 @@ def write_run_folder(out_root: Path, study_id: str, cut: str, run_id: str,
     """
     parent = Path(out_root) / safe_folder_name(study_id, "study id") / safe_folder_name(cut, "cut")
     final = parent / safe_folder_name(run_id, "run id")
-    _make_parent(parent)
+    make_parent(parent)
     remove_stale_temporaries(parent)
-    _refuse_existing(final)
-    temporary = parent / f"{TEMP_PREFIX}{run_id}-{secrets.token_hex(4)}"
-    temporary.mkdir()
+    refuse_existing(final)
+    temporary = make_temporary(parent, run_id)
     try:
         write(temporary)
-        write_manifest(temporary)
-        _sync_directories(temporary)
-        _refuse_existing(final)
+        seal_temporary(temporary)
+        refuse_existing(final)
         os.rename(temporary, final)
     except BaseException:
         # BaseException on purpose: Ctrl-C must not leave a half-written folder either.
@@ -112,7 +115,50 @@ def write_run_folder(out_root: Path, study_id: str, cut: str, run_id: str,
     return final
 
 
-def _make_parent(parent: Path) -> None:
+_TEMPORARY_NAME = re.compile(r"\.tmp-(?P<record>.+)-(?P<pid>\d+)-(?P<token>[0-9a-f]{8})")
+
+
+def make_temporary(parent: Path, record_id: str) -> Path:
+    """A new empty hidden folder in ``parent`` whose name tells the record and the process."""
+    temporary = parent / f"{TEMP_PREFIX}{record_id}-{os.getpid()}-{secrets.token_hex(4)}"
+    temporary.mkdir()
+    return temporary
+
+
+def parse_temporary_name(name: str) -> tuple[str | None, int | None]:
+    """(record id, process id) from a temporary folder's name; (None, None) if not ours."""
+    match = _TEMPORARY_NAME.fullmatch(name)
+    return (match["record"], int(match["pid"])) if match else (None, None)
+
+
+def seal_temporary(temporary: Path) -> None:
+    """Write the manifest of a filled temporary folder and flush everything to disk."""
+    write_manifest(temporary)
+    _sync_directories(temporary)
+
+
+def process_alive(pid: int | None) -> bool:
+    if pid is None or pid <= 0:
+        return False
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:   # alive, but another user's
+        return True
+    return True
+
+
+def find_temporaries(out_root: Path) -> list[Path]:
+    """Every hidden temporary folder where sealed folders go (``<root>/<study>/<group>/``)."""
+    found = []
+    for study_folder in _visible_folders(Path(out_root)):
+        for group_folder in _visible_folders(study_folder):
+            found += _temporary_folders(group_folder)
+    return found
+
+
+def make_parent(parent: Path) -> None:
     try:
         parent.mkdir(parents=True, exist_ok=True)
     except OSError as error:
@@ -125,7 +171,7 @@ def _make_parent(parent: Path) -> None:
         ) from error
 
 
-def _refuse_existing(final: Path) -> None:
+def refuse_existing(final: Path) -> None:
     # A rename onto an existing non-empty folder fails on POSIX anyway; checking first
     # gives a readable error and also protects an existing *empty* folder.
     if os.path.lexists(final):

@@ -12,6 +12,7 @@ import contextlib
 import gc
 import json
 import os
+import shutil
 import tempfile
 from dataclasses import replace
 from importlib import resources
@@ -190,8 +191,11 @@ def _with_docx(written: dict[str, Path], document: Document, results: Mapping[st
 def render_run(run_folder: Path, out: Path | None = None) -> dict[str, Path]:
     """Re-render a past run from its results.json (and audit.json) alone, into ``out``.
 
-    The run folder is sealed by its checksum manifest, so nothing is written into it: ``out``
-    defaults to a new temporary folder (its path is under the "folder" key of the answer).
+    ``out`` must be a new or an empty folder outside the run folder (a sealed folder is never
+    written into, a non-empty folder never mixed with); ``None`` means a new temporary folder
+    (its path is under the "folder" key of the answer).  Byte copies of results.json and
+    audit.json go beside the documents, so the rendering shows what it was made from, and
+    rendering the same run twice gives the same results.json, tables and HTML.
     """
     run_folder = Path(run_folder)
     results = read_json(run_folder / "results.json", required=True)
@@ -199,13 +203,28 @@ def render_run(run_folder: Path, out: Path | None = None) -> dict[str, Path]:
     if out is None:
         out = Path(tempfile.mkdtemp(prefix=f"trialcut-render-{run_folder.name}-"))
     out = Path(out)
+    _refuse_target(out, run_folder)
+    written = render_documents(results, out, audit=audit)
+    for name in ("results.json", "audit.json"):
+        if (run_folder / name).is_file():
+            shutil.copyfile(run_folder / name, out / name)
+            written[name] = out / name
+    written["folder"] = out
+    return written
+
+
+def _refuse_target(out: Path, run_folder: Path) -> None:
     if out.resolve() == run_folder.resolve() or run_folder.resolve() in out.resolve().parents:
         raise InputError("refusing to write into a sealed run folder", [Problem(
             code="report.sealed_run_folder", message="the output folder is inside the run folder",
             field="out", got=str(out), hint="choose a folder outside the run folder")])
-    written = render_documents(results, out, audit=audit)
-    written["folder"] = out
-    return written
+    if out.exists() and (not out.is_dir() or any(out.iterdir())):
+        raise InputError(f"refusing to write into {out}: it is not a new, empty folder", [Problem(
+            code="report.target_not_empty", file=str(out), field="out",
+            message="a rendering never mixes its files with others or replaces them",
+            expected="a folder that does not exist yet, or an empty one",
+            got="a file" if not out.is_dir() else "a folder with files in it",
+            hint="choose a new folder")])
 
 
 def read_json(path: Path, *, required: bool) -> dict[str, Any] | None:

@@ -57,6 +57,9 @@ def run_facts(section: Section, results: Mapping[str, Any], audit: Mapping[str, 
         ("Run ended (UTC)", run.get("finished_utc") or audit.get("finished_utc")),
         ("Where the imputations were computed", _executor_text(audit.get("executor"))),
         ("Problems found in the plan", _problems_text(audit.get("plan_problems"))),
+        # The registry's chain head before this run's row: an anchor kept outside the registry.
+        ("Registry row of this run, and the chain head it follows",
+         f"row {audit['registry_seq']}, after {audit['registry_follows']}" if audit.get("registry_follows") else None),
     ]
     rows = [{"item": label, "value": str(value)} for label, value in pairs if value not in (None, "")]
     section.table(from_records(rows, ("item", "value"), slug="audit_run", title="How the run was made",
