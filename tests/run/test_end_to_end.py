@@ -50,6 +50,15 @@ def test_run_folder_holds_the_review_package(two_runs):
         assert (folder / name).is_file(), name
     assert list((folder / "tables").glob("*.csv"))
     assert (folder / "plan" / "plan.yaml").is_file()
+    # The derived analysis data (issue 8 item 6), hashed in the manifest like every file.
+    manifest = (folder / "MANIFEST.sha256").read_text(encoding="utf-8")
+    for name in ("fbs_change.parquet", "fbs_change.json", "derivations.txt"):
+        assert (folder / "analysis_data" / name).is_file() and f"analysis_data/{name}" in manifest, name
+    audit = json.loads((folder / "audit.json").read_text())
+    results = json.loads((folder / "results.json").read_text())
+    # No --cut-off given: the latest date in the data, said in the warnings and the audit.
+    assert audit["cut_off"]["source"] == results["data"]["cut_off"]["source"]
+    assert results["endpoints"][0]["flow"][0]["table"]["columns"][:3] == ["visit", "step", "label"]
 
 
 def test_unlocked_run_is_marked_everywhere(two_runs):

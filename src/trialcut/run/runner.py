@@ -226,3 +226,18 @@ def participant_hashes(frame: pd.DataFrame, subject: str) -> dict[str, str]:
         body = rows.sort_values(list(rows.columns)).to_csv(index=False, lineterminator="\n")
         hashes[str(subject_id)] = hashlib.sha256(body.encode("utf-8")).hexdigest()
     return hashes
+
+
+IMPUTING_METHODS = ("multiple_imputation", "tipping_point")
+
+
+def analysis_datasets(plan, cut) -> list:
+    """The derived analysis dataset of every endpoint, for the record layer to write beside the results."""
+    from trialcut.data.analysis_dataset import build_analysis_dataset
+
+    datasets = []
+    for endpoint in plan.endpoints:
+        analyses = [endpoint.analyses.primary, *endpoint.analyses.sensitivity]
+        imputed = frozenset(a.estimand for a in analyses if a.method in IMPUTING_METHODS and a.estimand)
+        datasets.append(build_analysis_dataset(cut, endpoint.id, imputed))
+    return datasets
