@@ -99,6 +99,7 @@ def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: P
         loaded = load_plan(plan_path)
         lock = _lock_state(loaded, unlocked)
     plan = loaded.plan
+    check_registry(out_root)   # a locked or unwritable registry is said now, not after the analysis
     with timer.time("read data"):
         raw = read_cut(data_path)
     with timer.time("check and derive data"):
@@ -163,14 +164,17 @@ def _plan_block(loaded, lock: dict[str, Any]) -> dict[str, Any]:
 
 
 def _record(out_root: Path, plan, cut_label, run_id, results, audit, loaded, raw, cut) -> Path:
-    from trialcut.record.registry import record_run
+    from trialcut.record.seal import record_run
     from trialcut.record.analysis_data import write_analysis_data
     from trialcut.report import render_documents
     from trialcut.run.runner import analysis_datasets
 
     datasets = analysis_datasets(plan, cut)
 
-    def write(folder: Path) -> None:
+    def write(folder: Path, position) -> None:
+        # The report prints the registry row it will take and the chain head it follows:
+        # an anchor outside the registry file (README: what verify can and cannot detect).
+        audit["registry_seq"], audit["registry_follows"] = position.seq, position.previous_hash
         _write_json(folder / "results.json", results)
         (folder / "plan").mkdir()
         (folder / "plan" / Path(loaded.path).name).write_text(loaded.text, encoding="utf-8")
@@ -191,8 +195,36 @@ def _record(out_root: Path, plan, cut_label, run_id, results, audit, loaded, raw
         "dummy_arms": results["run"]["dummy_arms_seed"] is not None, "data_sha256": raw.manifest["sha256"],
         "created_utc": results["run"]["started_utc"],
     }
-    recorded = record_run(out_root, out_root / "registry.sqlite", plan.study.id, cut_label, run_id, write, entry)
+    recorded = record_run(out_root, out_root / "registry.sqlite", plan.study.id, cut_label, run_id, write, entry,
+                          on_wait=_registry_wait_printer(out_root / "registry.sqlite"))
+    _print_chain_head(recorded.row)
     return Path(recorded.folder)
+
+
+def check_registry(out_root: Path) -> None:
+    """Before any analysis: refuse (exit 2) a registry this run could not be recorded in."""
+    from trialcut.record.registry import check_writable
+
+    registry = Path(out_root) / "registry.sqlite"
+    check_writable(registry, on_wait=_registry_wait_printer(registry))
+
+
+def _registry_wait_printer(registry: Path):
+    """Say, at once and then every 15 s, that the registry is held by another writer."""
+    said = {"last": None}
+
+    def waiting(seconds: float) -> None:
+        if said["last"] is None or seconds - said["last"] >= 15:
+            said["last"] = seconds
+            print(f"waiting for the registry {registry}: another trialcut (or program) is writing "
+                  f"to it ({seconds:.0f} s so far; Ctrl-C stops)", file=sys.stderr, flush=True)
+    return waiting
+
+
+def _print_chain_head(row) -> None:
+    console.print(f"registry:   row {row.seq} ({row.kind} {row.record_id}); chain head now {row.row_hash}")
+    console.print("            keep this chain head elsewhere: 'trialcut verify --head HASH' "
+                  "later shows that no row up to it was removed or rewritten")
 
 
 def _executor(workers: int, scheduler: str | None):
@@ -235,57 +267,198 @@ def _progress_printer():
 
 # --------------------------------------------------------------------------- registry commands
 def command_history(args) -> int:
-    from rich.table import Table
-
-    from trialcut.record.registry import list_runs
+    from trialcut.record.registry import list_records
+    from trialcut.record.seal import find_leftovers
 
     registry = args.out / "registry.sqlite"
     if not registry.exists():
         raise InputError(f"no registry at {registry}", [Problem(
             code="record.no_registry", message="no runs have been recorded under this output root",
             file=str(registry), hint="run 'trialcut run' first, or pass --out with the right folder")])
-    rows = list_runs(registry, study=args.study, cut=args.cut)
-    table = Table(title=f"Runs recorded in {registry}")
-    for name in ("#", "run", "study", "cut", "created (UTC)", "plan", "lock", "dummy arms", "data"):
-        table.add_column(name)
+    every_row = list_records(registry)
+    rows = list_records(registry, study=args.study, cut=args.cut)
+    console.print(f"Records in {registry}: {len(rows)} of {len(every_row)} shown")
     for row in rows:
-        table.add_row(str(row.seq), row.run_id, row.study_id, row.cut, row.created_utc, _short(row.plan_sha256),
-                      row.lock_status, "yes" if row.dummy_arms else "no", _short(row.data_sha256))
-    console.print(table)
+        for line in _history_lines(row):
+            console.print(line, markup=False)
+    if every_row:
+        console.print(f"chain head (row {every_row[-1].seq}):\n  {every_row[-1].row_hash}", markup=False)
+    _print_leftovers(find_leftovers(args.out, every_row))
     return 0
+
+
+def _history_lines(row) -> list[str]:
+    """One record in three short lines, so that an 80-column terminal shows every id whole."""
+    first = f"#{row.seq:<4d}{row.kind:<11s}{row.record_id}"
+    second = f"      {row.study_id}, {'cut ' if row.kind == 'run' else ''}{row.cut}, {row.created_utc}"
+    if row.kind == "run":
+        codes = "dummy treatment codes" if row.dummy_arms else "real treatment codes"
+        third = f"      {row.lock_status} plan {_short(row.plan_sha256)}, data {_short(row.data_sha256)}, {codes}"
+    else:
+        sources = [source.get("record_id", "?") for source in row.details_dict().get("sources") or []]
+        third = f"      made from {', '.join(sources)}" if sources else ""
+    return [line for line in (first, second, third) if line]
+
+
+def _print_leftovers(leftovers) -> None:
+    if not leftovers:
+        return
+    console.print(f"[yellow]{len(leftovers)} unfinished record(s) left by interrupted or running writers:[/yellow]")
+    for leftover in leftovers:
+        console.print(f"  - {leftover.describe()}", markup=False)
 
 
 def command_verify(args) -> int:
-    from trialcut.record.verify import verify_all, verify_run
+    from trialcut.record.verify import registry_beside, verify_all, verify_folder
 
-    registry = args.registry or args.out / "registry.sqlite"
-    if args.run_folder is not None:
-        # An explicit --registry must exist; the default one may be absent (chain not checked).
-        use = registry if args.registry is not None or registry.exists() else None
-        report = verify_run(args.run_folder, registry_path=use)
+    if args.run_folder is None:
+        report = verify_all(args.out, args.registry or args.out / "registry.sqlite", head=args.head)
     else:
-        report = verify_all(args.out, registry)
+        registry = args.registry or registry_beside(args.run_folder)
+        if args.registry is None and not registry.is_file():
+            return _verify_without_registry(args, registry)
+        report = verify_folder(args.run_folder, registry, head=args.head)
     console.print(f"[green]verified[/green] {report.summary}")
+    console.print(f"chain head (row {report.registry_rows_checked}): {report.head}", markup=False)
+    if args.head is not None:
+        after = report.rows_after_known_head
+        console.print(f"the chain head you gave is in the chain; {len(after)} row(s) recorded after it"
+                      + (":" if after else ""))
+        for line in after:
+            console.print(f"  {line}", markup=False)
+    _print_leftovers(report.leftovers)
     return 0
 
 
+def _verify_without_registry(args, registry: Path) -> int:
+    from trialcut.record.verify import verify_folder
+
+    report = verify_folder(args.run_folder, None)   # a changed folder is still said first (exit 1)
+    warning = (f"NOT VERIFIED AGAINST A REGISTRY: no registry at {registry}. The folder matches its own "
+               "manifest, but anyone who edits a file can write a new manifest; only the registry row "
+               "(and a chain head kept elsewhere) shows that it is the folder that was recorded.")
+    if not args.without_registry:
+        raise InputError("the folder was not checked against a registry", [Problem(
+            code="verify.no_registry_checked", file=str(registry), message=warning,
+            hint="pass the registry of the output folder it was written to with --registry, or "
+                 "--without-registry to check the folder against its manifest alone")])
+    console.print(f"[bold red]{warning}[/bold red]")
+    console.print(f"checked {report.summary}")
+    return 0
+
+
+def verified_input(folder: Path, registry: Path | None, purpose: str) -> Path:
+    """Verify a sealed folder before using it; returns its registry. Refuses (exit 1 or 2) if not."""
+    from trialcut.errors import VerificationFailed
+    from trialcut.record.verify import registry_beside, verify_folder
+
+    registry = registry or registry_beside(folder)
+    if not registry.is_file():
+        raise InputError(f"refusing to {purpose} {folder}: it cannot be verified", [Problem(
+            code="record.input_unverifiable", file=str(registry),
+            message="no registry where the folder's output root should keep it",
+            hint="pass the registry of the output folder the run was written to with --registry")])
+    try:
+        verify_folder(folder, registry)
+    except VerificationFailed as failure:
+        raise VerificationFailed(f"refusing to {purpose} {folder}: it does not match its records "
+                                 "(see 'trialcut verify')", failure.problems) from failure
+    return registry
+
+
 def command_render(args) -> int:
+    from trialcut.record.runfolder import new_run_id
+    from trialcut.record.seal import record_folder
     from trialcut.report import render_run
 
-    target = args.to or _fresh_sibling(args.run_folder, "rendered")
-    files = render_run(args.run_folder, out=target)
-    console.print(f"rendered {args.run_folder} into {target}")
-    for name, path in sorted(files.items()):
-        console.print(f"  {name}: {path}")
+    registry = verified_input(args.run_folder, args.registry, "render")
+    if args.to is not None:
+        write_separately(args.to, lambda folder: render_run(args.run_folder, out=folder))
+        console.print(f"rendered {args.run_folder} into {args.to} (a plain copy, not recorded)")
+        return 0
+    run = _read_results(args.run_folder)["run"]
+    recorded = record_folder(
+        registry.parent, kind="rendering", study_id=run["study_id"], group="renderings", record_id=new_run_id(),
+        write=lambda folder, position: render_run(args.run_folder, out=folder), registry_path=registry,
+        entry={"cut": run["cut"], "details": {"sources": [_source(args.run_folder, registry)]}})
+    console.print(f"rendered {args.run_folder} into {recorded.folder}")
+    _print_chain_head(recorded.row)
     return 0
 
 
 def command_compare(args) -> int:
-    out = args.to or _fresh_sibling(args.run_b.parent.parent.parent / "comparisons",
-                                    f"{args.run_a.name}-vs-{args.run_b.name}")
-    files = compare_runs(args.run_a, args.run_b, out)
-    console.print(f"comparison: {files.get('comparison.html', out)}")
+    registry_a = verified_input(args.run_a, args.registry, "compare")
+    registry_b = verified_input(args.run_b, args.registry, "compare")
+    if args.to is not None:
+        write_separately(args.to, lambda folder: compare_runs(args.run_a, args.run_b, folder))
+        console.print(f"comparison: {args.to / 'comparison.html'} (a plain copy, not recorded)")
+        return 0
+    if registry_a.resolve() != registry_b.resolve():
+        raise InputError("the two runs are in different output folders", [Problem(
+            code="record.runs_in_two_registries", message="a comparison is recorded in one registry",
+            got=f"{registry_a} and {registry_b}", hint="pass --to to write an unrecorded comparison")])
+    recorded = record_comparison(args.run_a, args.run_b, registry_a)
+    console.print(f"comparison: {recorded.folder / 'comparison.html'}")
+    _print_chain_head(recorded.row)
     return 0
+
+
+def record_comparison(run_a: Path, run_b: Path, registry: Path):
+    """Seal and register a comparison in ``<root>/<study>/comparisons/<new id>/`` (never reused)."""
+    from trialcut.record.runfolder import new_run_id
+    from trialcut.record.seal import record_folder
+
+    a, b = _read_results(run_a)["run"], _read_results(run_b)["run"]
+    sources = [_source(run_a, registry), _source(run_b, registry)]
+    return record_folder(
+        registry.parent, kind="comparison", study_id=b["study_id"], group="comparisons", record_id=new_run_id(),
+        write=lambda folder, position: compare_runs(run_a, run_b, folder), registry_path=registry,
+        entry={"cut": f"{a['cut']}-vs-{b['cut']}", "details": {"sources": sources}})
+
+
+def _source(folder: Path, registry: Path) -> dict[str, str]:
+    from trialcut.record.manifest import MANIFEST_NAME, sha256_file
+
+    return {"record_id": Path(folder).name, "manifest_sha256": sha256_file(Path(folder) / MANIFEST_NAME)}
+
+
+def write_separately(target: Path, write) -> dict[str, Path]:
+    """Fill a new (or empty) folder outside every output folder with ``write(folder)``, whole or not at all."""
+    import os
+    import secrets
+
+    _refuse_target(Path(target))
+    target.parent.mkdir(parents=True, exist_ok=True)
+    temporary = target.parent / f".tmp-{target.name}-{os.getpid()}-{secrets.token_hex(4)}"
+    temporary.mkdir()
+    try:
+        files = write(temporary)
+        os.rename(temporary, target)   # replaces an empty folder; never a non-empty one
+    except BaseException:
+        shutil.rmtree(temporary, ignore_errors=True)
+        raise
+    return files
+
+
+def _refuse_target(target: Path) -> None:
+    """A --to folder: new or empty, not inside a sealed folder, not inside an output folder."""
+    resolved = target.resolve()
+    reason = None
+    if target.exists() and (not target.is_dir() or any(target.iterdir())):
+        reason = "it exists and is not an empty folder"
+    for folder in [resolved, *resolved.parents]:
+        if reason:
+            break
+        if (folder / "MANIFEST.sha256").is_file():
+            reason = f"it lies inside the sealed folder {folder}"
+        elif (folder / "registry.sqlite").is_file():
+            reason = f"it lies inside the output folder {folder}, where only recorded folders belong"
+    if reason:
+        raise InputError(f"refusing to write into {target}: {reason}", [Problem(
+            code="record.bad_target", file=str(target), field="--to", message=reason,
+            expected="a new or empty folder outside every run folder and output folder",
+            hint="leave out --to to have it sealed and recorded in the run's output folder, "
+                 "or pass a new folder elsewhere")])
 
 
 def compare_runs(run_a: Path, run_b: Path, out: Path) -> dict[str, Path]:
@@ -339,8 +512,9 @@ def command_demo(args) -> int:
                                         out_root=out, command_line=["trialcut", "demo"],
                                         cut_off=demo_cut_offs()[label])
         console.print(f"  ran the {label} cut in {time.perf_counter() - started:.1f} s")
-    comparison = compare_runs(folders["interim"], folders["final"],
-                              _fresh_sibling(out / "LVT-201" / "comparisons", "interim-vs-final"))
+    compared = record_comparison(folders["interim"], folders["final"], out / "registry.sqlite")
+    _print_chain_head(compared.row)
+    comparison = {name: compared.folder / name for name in ("comparison.html", "comparison.pdf")}
     console.print("\n[bold]Reports[/bold]")
     for label, folder in folders.items():
         console.print(f"  {label:8s} report:  {folder / 'report.html'}")
@@ -361,16 +535,6 @@ def _repo_file(relative: str) -> Path:
     raise InputError(f"cannot find {relative}", [Problem(code="install.missing_file",
                                                          message=f"{relative} is not installed",
                                                          hint="run trialcut from a checkout of the project")])
-
-
-def _fresh_sibling(parent: Path, name: str) -> Path:
-    """A folder name that does not exist yet (never overwrite earlier output)."""
-    candidate = parent / name
-    n = 2
-    while candidate.exists():
-        candidate = parent / f"{name}-{n}"
-        n += 1
-    return candidate
 
 
 def _write_json(path: Path, data: Any) -> None:
