@@ -99,7 +99,7 @@ def test_closed_form_on_random_groups(seed):
 def test_btheb_against_formula_ols():
     rows = _btheb_4m()
     fit = ancova_by_visit(rows, outcome="AVAL", subject="USUBJID", arm="TRT01P", visit="AVISIT",
-                          reference="TAU", covariates=("BASE",), conf_level=0.9)
+                          reference="TAU", covariates=("BASE",), confidence_level=0.9)
     reference = smf.ols("AVAL ~ C(TRT01P, Treatment('TAU')) + BASE", data=rows).fit()
     term = "C(TRT01P, Treatment('TAU'))[T.BtheB]"
     row = fit.differences().iloc[0]

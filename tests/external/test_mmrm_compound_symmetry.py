@@ -128,5 +128,5 @@ def test_covariate_coefficients(fit, reference):
     _, _, result = reference
     table = fit.fixed_effects
     assert len(table) == len(result.fe_params)
-    baseline = table[table.term == "BASE"].iloc[0]
+    baseline = table[[key == {"effect": "BASE", "covariate": "BASE"} for key in fit.term_keys]].iloc[0]
     np.testing.assert_allclose(baseline.estimate, result.fe_params[8], **TWO_OPTIMISERS)

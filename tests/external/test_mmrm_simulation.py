@@ -64,7 +64,7 @@ def last_visit_difference(data: pd.DataFrame) -> pd.Series:
     fit = tc.fit_mmrm(data, outcome="CHG", subject="USUBJID", visit="AVISIT", arm="TRT01P",
                       reference="Placebo", visits=VISITS, covariates=("BASE",),
                       covariance="unstructured", method="reml", df="kenward_roger")
-    differences = fit.differences(conf_level=0.95)
+    differences = fit.differences(confidence_level=0.95)
     return differences[differences.visit == VISITS[-1]].iloc[0]
 
 

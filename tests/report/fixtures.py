@@ -237,7 +237,7 @@ def build_results(*, unlocked: bool = False, dummy_arms: bool = False, seed: int
                                         residuals)},
         options={"covariance": ["unstructured", "heterogeneous_toeplitz"], "covariates": ["BASE"],
                  "covariates_by_visit": ["BASE"], "method": "reml", "df": "kenward_roger",
-                 "robust": False, "conf_level": 0.95},
+                 "robust": False, "confidence_level": 0.95},
     )
     ancova = _analysis(
         "observed_ancova", "Covariance analysis at each visit, observed data", "sensitivity", "ancova",

@@ -129,7 +129,7 @@ def test_to_dict_is_json_and_lossless(result):
 
 def test_result_is_frozen(result):
     with pytest.raises(AttributeError):
-        result.conf_level = 0.9
+        result.confidence_level = 0.9
 
 
 def test_observed_data_only_and_input_not_mutated(long_frame):

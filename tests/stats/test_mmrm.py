@@ -50,9 +50,20 @@ def test_table_columns_follow_the_design(fit):
 
 
 def test_term_names_are_readable(fit):
+    # Plain words, no formula syntax (shared/DESIGN.md); the keys carry the same facts as data.
     terms = list(fit.fixed_effects.term)
-    assert terms[:5] == ["intercept", "arm[BtheB]", "visit[4m]", "visit[6m]", "visit[8m]"]
-    assert "arm[BtheB]:visit[8m]" in terms and "drug[Yes]" in terms and "BASE:visit[4m]" in terms
+    assert terms[:5] == ["Intercept (TAU at 2m)", "BtheB vs TAU at 2m", "4m vs 2m in TAU", "6m vs 2m in TAU",
+                         "8m vs 2m in TAU"]
+    assert "BtheB vs TAU: change in the difference from 2m to 8m" in terms
+    assert "drug: Yes vs No" in terms and "BASE (per unit) at 2m" in terms
+    assert "BASE (per unit): change in the effect from 2m to 4m" in terms
+    assert not any("[" in term or "]" in term for term in terms)
+    assert len(set(terms)) == len(terms)
+    keys = list(fit.term_keys)
+    assert keys[terms.index("BtheB vs TAU: change in the difference from 2m to 8m")] == {
+        "effect": "arm_by_visit", "arm": "BtheB", "visit": "8m"}
+    assert keys[terms.index("drug: Yes vs No")] == {"effect": "drug", "covariate": "drug", "level": "Yes"}
+    assert {key["effect"] for key in keys} - {"intercept"} == set(fit.joint_tests().term)
     assert list(fit.joint_tests().term) == ["arm", "visit", "arm_by_visit", "BASE", "drug", "BASE_by_visit"]
     assert list(fit.joint_tests().num_df) == [1, 3, 3, 1, 1, 3]
 
@@ -73,7 +84,7 @@ def test_differences_are_arm_minus_reference_of_marginal_means(fit):
 
 
 def test_t_p_and_interval_agree(fit):
-    table = fit.differences(conf_level=0.9)
+    table = fit.differences(confidence_level=0.9)
     np.testing.assert_allclose(table.t, table.estimate / table.se, **SAME_ARITHMETIC)
     np.testing.assert_allclose(table.p, 2 * stats.t.sf(np.abs(table.t), table.df), **SAME_ARITHMETIC)
     half = stats.t.ppf(0.95, table.df) * table.se
@@ -91,7 +102,8 @@ def test_marginal_means_use_participant_level_covariates(fit, long_frame):
     rows_mean = long_frame.dropna(subset=["AVAL"]).BASE.mean()
     assert abs(rows_mean - mean_base) > 1e-3          # the data tell the two conventions apart
     coefficients = fit.fixed_effects.set_index("term").estimate
-    expected = coefficients["intercept"] + coefficients["BASE"] * mean_base + coefficients["drug[Yes]"] * share_yes
+    expected = (coefficients["Intercept (TAU at 2m)"] + coefficients["BASE (per unit) at 2m"] * mean_base
+                + coefficients["drug: Yes vs No"] * share_yes)
     first = fit.marginal_means().iloc[0]
     assert (first.arm, first.visit) == ("TAU", "2m")
     assert first.estimate == pytest.approx(expected, abs=1e-9)
@@ -154,11 +166,11 @@ def test_simple_degrees_of_freedom(long_frame):
     residual = tc.fit_mmrm(long_frame, df="residual", **ROLES)
     p = len(residual.term_names)
     assert set(residual.fixed_effects.df) == {residual.n_obs - p}
-    split = tc.fit_mmrm(long_frame, df="between_within", **ROLES)
+    split = tc.fit_mmrm(long_frame, df="participant_split", **ROLES)
     # between: participants - (intercept, arm); within: observations - participants - 6 visit columns
     between, within = split.n_subjects - 2, split.n_obs - split.n_subjects - 6
-    assert dict(zip(split.fixed_effects.term, split.fixed_effects.df))["arm[BtheB]"] == between
-    assert dict(zip(split.fixed_effects.term, split.fixed_effects.df))["visit[4m]"] == within
+    assert dict(zip(split.fixed_effects.term, split.fixed_effects.df))["BtheB vs TAU at 2m"] == between
+    assert dict(zip(split.fixed_effects.term, split.fixed_effects.df))["4m vs 2m in TAU"] == within
     assert split.joint_tests().set_index("term").den_df["arm_by_visit"] == within
 
 
@@ -230,7 +242,9 @@ def _edit(frame, **changes):
     (lambda d: d.assign(TRT01P=np.where(d.AVISIT == "8m", "TAU", d.TRT01P)), {},
      ["changes within participant"]),
     (lambda d: d, {"method": "ml", "df": "kenward_roger"}, ["'kenward_roger' needs method 'reml'"]),
-    (lambda d: d, {"method": "ml", "df": "kenward_roger_linear"}, ["needs method 'reml'"]),
+    (lambda d: d, {"method": "ml", "df": "kenward_roger", "second_derivatives": False}, ["needs method 'reml'"]),
+    (lambda d: d, {"df": "between_within"}, ["unknown degrees-of-freedom method", "participant_split"]),
+    (lambda d: d, {"second_derivatives": "no"}, ["second_derivatives must be True or False"]),
     (lambda d: d, {"covariance": "unstructred"}, ["unknown structure 'unstructred'", "unstructured"]),
     (lambda d: d, {"df": "containment"}, ["unknown degrees-of-freedom method"]),
     (lambda d: d, {"covariance": "spatial_exponential", "visit_times": {"2m": 2}}, ["no time for visit(s) 4m"]),

@@ -98,12 +98,12 @@ def test_linear_structure_in_its_variances_and_covariances(long_frame):
     second = np.zeros((len(rows), len(rows), k, k))
     phi, phi_a, w, p_i = _kenward_roger(*_dense(long_frame, (sigma, first, second)))
     np.testing.assert_allclose(fit.coefficient_covariance, phi_a, **SAME_ALGEBRA)
-    names = list(fit.term_names)
+    keys = list(fit.term_keys)
     for row in fit.differences().itertuples():      # BtheB minus TAU at each visit
         contrast = np.zeros(len(phi))
-        contrast[names.index("arm[BtheB]")] = 1.0
+        contrast[keys.index({"effect": "arm", "arm": "BtheB"})] = 1.0
         if row.visit != VISITS[0]:
-            contrast[names.index(f"arm[BtheB]:visit[{row.visit}]")] = 1.0
+            contrast[keys.index({"effect": "arm_by_visit", "arm": "BtheB", "visit": row.visit})] = 1.0
         assert row.estimate == pytest.approx(contrast @ np.array(fit.coefficients), abs=1e-10)
         assert row.se == pytest.approx(np.sqrt(contrast @ phi_a @ contrast), rel=1e-7)
         assert row.df == pytest.approx(_one_df(contrast, phi, phi_a, w, p_i), rel=1e-7)
@@ -145,8 +145,9 @@ def test_scaled_f_of_the_interaction(long_frame):
     structure = make_structure("ar1", len(VISITS))
     phi, phi_a, w, p_i = _kenward_roger(*_dense(long_frame, structure.derivatives(
         np.array(fit.covariance_parameters), order=2)))
-    names = list(fit.term_names)
-    contrast = np.eye(len(names))[[names.index(f"arm[BtheB]:visit[{v}]") for v in VISITS[1:]]]
+    keys = list(fit.term_keys)
+    contrast = np.eye(len(keys))[[keys.index({"effect": "arm_by_visit", "arm": "BtheB", "visit": v})
+                                  for v in VISITS[1:]]]
     f_value, den_df = _scaled_f(contrast, np.array(fit.coefficients), phi, phi_a, w, p_i)
     row = fit.joint_tests().set_index("term").loc["arm_by_visit"]
     assert row.num_df == 3

@@ -48,12 +48,37 @@ SpendingFunction = Literal[tuple(SPENDING_FUNCTIONS)]  # type: ignore[valid-type
 
 Identifier = Annotated[str, Field(pattern=r"^[A-Za-z][A-Za-z0-9_]*$", max_length=64)]
 
-PLAN_FORMAT_VERSION = 1
+PLAN_FORMAT_VERSION = 2
+
+# What format 2 renamed, so that a plan written for format 1 is told exactly what to change.
+RENAMED_KEYS = {"conf_level": "confidence_level"}
+RENAMED_DF_METHODS = {
+    "kenward_roger_linear": "write df: kenward_roger with second_derivatives: false",
+    "between_within": "write df: participant_split",
+}
+FORMAT_CHANGES = {
+    1: "format 2 renamed conf_level to confidence_level (every analysis), df: between_within to "
+       "df: participant_split, and df: kenward_roger_linear to df: kenward_roger with second_derivatives: false",
+}
 
 
 class Strict(BaseModel):
     # NaN and infinity never mean anything in a plan and would break the canonical JSON.
     model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
+
+    @model_validator(mode="before")
+    @classmethod
+    def _renamed_keys(cls, data: Any) -> Any:
+        # A key that format 2 renamed gets its new name as the fix, not a generic "unknown key".
+        if isinstance(data, dict):
+            issues = [RuleIssue(
+                (old,), f"key {old!r} was renamed in plan format {PLAN_FORMAT_VERSION}", expected=repr(new),
+                got=repr(old), hint=f"rename it to {new}", code="plan.renamed_key")
+                for old, new in RENAMED_KEYS.items() if old in data and new in cls.model_fields]
+            if issues and "df" in cls.model_fields:    # raising here skips the field's own check
+                issues += _renamed_df_issues(data.get("df"), ("df",))
+            _raise_issues(issues)
+        return data
 
     @model_validator(mode="before")
     @classmethod
@@ -301,17 +326,26 @@ class MMRMOptions(Strict):
     covariates_by_visit: tuple[str, ...] = ()
     method: EstimationMethod = "reml"
     df: DfMethod = "kenward_roger"
+    second_derivatives: bool = Field(default=True, description=(
+        "Kenward-Roger only: false leaves out the second-derivative term (which is zero for structures "
+        "linear in their variances and covariances, and depends on the parametrisation for the others)."))
     robust: bool = False
-    conf_level: float = Field(default=0.95, gt=0, lt=1)
+    confidence_level: float = Field(default=0.95, gt=0, lt=1)
 
     @field_validator("covariance", mode="before")
     @classmethod
     def _one_name_is_a_list(cls, value: Any) -> Any:
         return (value,) if isinstance(value, str) else value
 
+    @field_validator("df", mode="before")
+    @classmethod
+    def _renamed_df(cls, value: Any) -> Any:
+        _raise_issues(_renamed_df_issues(value, ()))
+        return value
+
     @model_validator(mode="after")
     def _kenward_roger_needs_reml(self) -> "MMRMOptions":
-        if self.df.startswith("kenward_roger") and self.method != "reml":
+        if self.df == "kenward_roger" and self.method != "reml":
             # Kenward-Roger adjusts the REML covariance of the fixed effects; under ML it is undefined.
             _raise_issues([RuleIssue(
                 ("df",), f"df {self.df!r} needs method 'reml'", expected="method reml with this df",
@@ -320,12 +354,20 @@ class MMRMOptions(Strict):
         return self
 
 
+def _renamed_df_issues(value: Any, path: tuple) -> list[RuleIssue]:
+    if not (isinstance(value, str) and value in RENAMED_DF_METHODS):
+        return []
+    return [RuleIssue(path, f"df {value!r} was renamed in plan format {PLAN_FORMAT_VERSION}",
+                      expected=_one_of(DF_METHODS), got=repr(value), hint=RENAMED_DF_METHODS[value],
+                      code="plan.renamed_value")]
+
+
 class AncovaOptions(Strict):
     """Analysis of covariance of the endpoint at each visit on observed data (or one visit)."""
 
     covariates: tuple[str, ...] = ()
     visits: tuple[str, ...] | Literal["all", "primary"] = "all"
-    conf_level: float = Field(default=0.95, gt=0, lt=1)
+    confidence_level: float = Field(default=0.95, gt=0, lt=1)
 
 
 class _ImputationSettings(Strict):
@@ -349,7 +391,7 @@ class ImputationOptions(_ImputationSettings):
     delta: tuple[float, ...] | None = Field(default=None, description="Shift added to imputed values, per visit.")
     delta_arms: tuple[str, ...] = Field(default=(), description="Arms whose imputed values are shifted.")
     delta_cumulative: bool = False
-    conf_level: float = Field(default=0.95, gt=0, lt=1)
+    confidence_level: float = Field(default=0.95, gt=0, lt=1)
 
 
 class TippingPointOptions(_ImputationSettings):
@@ -539,7 +581,7 @@ class Report(Strict):
 
 # --------------------------------------------------------------------------- the plan
 class AnalysisPlan(Strict):
-    format: Literal[1] = Field(default=PLAN_FORMAT_VERSION, description="Plan file format version.")
+    format: Literal[2] = Field(default=PLAN_FORMAT_VERSION, description="Plan file format version.")
     version: str = Field(default="1.0", description="The plan's own version, e.g. '1.0' or '2.1 amendment'.")
     study: Study
     columns: Columns = Columns()
@@ -552,6 +594,18 @@ class AnalysisPlan(Strict):
     multiplicity: Multiplicity = Multiplicity()
     report: Report = Report()
     seed: int = Field(default=20240101, ge=0, lt=2**63, description="Root seed for every random step of a run.")
+
+    @field_validator("format", mode="before")
+    @classmethod
+    def _older_format(cls, value: Any) -> Any:
+        # An older plan is told what changed and what to rename, not just "expected 2".
+        if isinstance(value, int) and not isinstance(value, bool) and value in FORMAT_CHANGES:
+            _raise_issues([RuleIssue(
+                (), f"the plan is written in plan format {value}; this version of trialcut reads format "
+                f"{PLAN_FORMAT_VERSION}", expected=f"format: {PLAN_FORMAT_VERSION}", got=f"format: {value}",
+                hint=f"{FORMAT_CHANGES[value]}; make those changes, then write format: {PLAN_FORMAT_VERSION}",
+                code="plan.old_format")])
+        return value
 
     @model_validator(mode="after")
     def _cross_references(self) -> "AnalysisPlan":

@@ -28,8 +28,9 @@ STRUCTURE_WORDS = {
     "spatial_exponential": "spatial exponential (planned visit times)",
 }
 DF_WORDS = {
-    "kenward_roger": "Kenward–Roger", "kenward_roger_linear": "Kenward–Roger (linear covariance)",
-    "satterthwaite": "Satterthwaite", "between_within": "between–within", "residual": "residual",
+    "kenward_roger": "Kenward–Roger", "satterthwaite": "Satterthwaite",
+    "participant_split": "residual degrees of freedom split into between- and within-participant parts",
+    "residual": "residual (observations minus fixed effects)",
 }
 METHOD_SHORT = {"mmrm": "MMRM", "ancova": "ANCOVA", "multiple_imputation": "Multiple imputation",
                 "tipping_point": "Tipping point"}
@@ -266,6 +267,13 @@ def _model_description(context: EndpointContext, analysis) -> str:
     structure = fit.get("structure") or (options.get("covariance") or ["not recorded"])[0]
     method = str(fit.get("method") or options.get("method") or "reml").upper()
     df = fit.get("df_method") or options.get("df") or "not recorded"
+    df_words = DF_WORDS.get(df, df)
+    if df == "kenward_roger" and fit.get("second_derivatives") is False:
+        df_words += " without its second-derivative term"
+    parametrisation = " ".join(
+        f"Kenward–Roger adjustment of the {STRUCTURE_WORDS.get(record['structure'], record['structure'])} matrix"
+        + (f" ({record['group']})" if record.get("group") is not None else "") + f": {record['description']}."
+        for record in fit.get("kenward_roger_parametrisation") or ())
     covariates = list(options.get("covariates") or fit.get("covariates") or [])
     by_visit = list(options.get("covariates_by_visit") or fit.get("covariates_by_visit") or [])
     covariate_text = ", ".join(covariates) if covariates else "no covariates"
@@ -276,9 +284,9 @@ def _model_description(context: EndpointContext, analysis) -> str:
         f"{context.label} was analysed with a mixed model for repeated measures: arm, visit and the "
         f"arm-by-visit interaction as fixed effects, {covariate_text}, and a "
         f"{STRUCTURE_WORDS.get(structure, structure)} covariance matrix between visits within a participant, "
-        f"estimated by {method}. Degrees of freedom for tests and intervals: {DF_WORDS.get(df, df)}. "
+        f"estimated by {method}. Degrees of freedom for tests and intervals: {df_words}. "
         f"Differences are each arm minus {context.reference}; the primary comparison is at "
-        f"{context.primary_visit}.{robust}"
+        f"{context.primary_visit}.{robust}" + (f" {parametrisation}" if parametrisation else "")
     )
 
 
@@ -621,7 +629,7 @@ def _failed(section: Section, analysis) -> bool:
 
 
 def _level_text(options: Mapping[str, Any]) -> str:
-    level = options.get("conf_level") or 0.95
+    level = options.get("confidence_level") or 0.95
     return f"{100 * float(level):g}%"
 
 

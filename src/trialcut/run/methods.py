@@ -31,13 +31,14 @@ def run_mmrm(data, analysis, context: RunContext) -> dict[str, Any]:
         covariates_by_visit=tuple(options.covariates_by_visit),
         covariance=list(options.covariance),
         covariance_by=options.covariance_by,
-        method=options.method, df=options.df, robust=options.robust,
+        method=options.method, df=options.df, second_derivatives=options.second_derivatives,
+        robust=options.robust,
         visit_times=dict(data.visit_days),
     )
-    level = options.conf_level
+    level = options.confidence_level
     tables = {
-        "differences": table(fit.differences(conf_level=level), "Differences from the reference arm"),
-        "marginal_means": table(fit.marginal_means(conf_level=level), "Model-estimated means by arm and visit"),
+        "differences": table(fit.differences(confidence_level=level), "Differences from the reference arm"),
+        "marginal_means": table(fit.marginal_means(confidence_level=level), "Model-estimated means by arm and visit"),
         "joint_tests": table(fit.joint_tests(), "Joint tests of model terms"),
         "fixed_effects": table(fit.fixed_effects, "Fixed-effect estimates"),
     }
@@ -82,7 +83,7 @@ def run_ancova(data, analysis, context: RunContext) -> dict[str, Any]:
     result = ancova_by_visit(
         data.frame, outcome=data.outcome, subject=data.subject, arm=data.arm, visit=data.visit,
         reference=data.reference, visits=visits, covariates=tuple(options.covariates),
-        conf_level=options.conf_level,
+        confidence_level=options.confidence_level,
     )
     return {
         "tables": {
@@ -91,7 +92,7 @@ def run_ancova(data, analysis, context: RunContext) -> dict[str, Any]:
         },
         # What a reader needs to know about the fit, in words (the tables carry the numbers).
         "fit": {"visits": ", ".join(visits), "covariates": ", ".join(options.covariates) or "none",
-                "outcome": data.outcome, "reference": data.reference, "conf_level": options.conf_level},
+                "outcome": data.outcome, "reference": data.reference, "confidence_level": options.confidence_level},
         "diagnostics": {"per_visit": plain(result.to_dict())},
     }
 

@@ -50,7 +50,7 @@ def run_multiple_imputation(data, analysis, context: RunContext) -> dict[str, An
         burn_in=options.burn_in, thinning=options.thinning, covariance_by_arm=options.covariance_by_arm,
         chains=options.chains, delta=options.delta, delta_arms=tuple(options.delta_arms), delta_cumulative=options.delta_cumulative,
         seed_sequence=context.seed_sequence(analysis.id), executor=context.executor,
-        conf_level=options.conf_level, progress=_progress(context, analysis.id),
+        confidence_level=options.confidence_level, progress=_progress(context, analysis.id),
         analysis_model=options.analysis_model,
     )
     tables = {

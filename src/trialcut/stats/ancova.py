@@ -120,7 +120,7 @@ class AncovaResult:
     arms: tuple
     visits: tuple
     covariates: tuple[str, ...]
-    conf_level: float
+    confidence_level: float
     difference_rows: tuple[tuple, ...]
     mean_rows: tuple[tuple, ...]
     fit_rows: tuple[tuple, ...]
@@ -151,7 +151,7 @@ class AncovaResult:
             "arms": [_plain(a) for a in self.arms],
             "visits": [_plain(v) for v in self.visits],
             "covariates": list(self.covariates),
-            "conf_level": self.conf_level,
+            "confidence_level": self.confidence_level,
             "differences": _table(DIFFERENCE_COLUMNS, self.difference_rows),
             "adjusted_means": _table(MEAN_COLUMNS, self.mean_rows),
             "fits": _table(FIT_COLUMNS, self.fit_rows),
@@ -168,24 +168,24 @@ def ancova_by_visit(
     reference: Any,
     visits: Sequence | None = None,
     covariates: Sequence[str] = (),
-    conf_level: float = 0.95,
+    confidence_level: float = 0.95,
 ) -> AncovaResult:
     """Fit the analysis of covariance separately at each visit on the observed outcomes.
 
     A row enters a visit's fit when its outcome and every covariate are present.
     """
     covariates = tuple(covariates)
-    _check_arguments(frame, outcome, subject, arm, visit, reference, covariates, conf_level)
+    _check_arguments(frame, outcome, subject, arm, visit, reference, covariates, confidence_level)
     visits = tuple(pd.unique(frame[visit].dropna())) if visits is None else tuple(visits)
     arms = (reference, *[a for a in pd.unique(frame[arm].dropna()) if a != reference])
     differences, means, fits = [], [], []
     for visit_level in visits:
         rows = frame[(frame[visit] == visit_level)].dropna(subset=[outcome, arm, *covariates])
         visit_fit = _fit_visit(rows, outcome, arm, arms, covariates, visit_level)
-        differences += _difference_rows(visit_fit, arms, visit_level, conf_level)
-        means += _mean_rows(visit_fit, arms, visit_level, conf_level)
+        differences += _difference_rows(visit_fit, arms, visit_level, confidence_level)
+        means += _mean_rows(visit_fit, arms, visit_level, confidence_level)
         fits.append((visit_level, int(visit_fit.nobs), int(visit_fit.df_resid), float(visit_fit.scale)))
-    return AncovaResult(outcome, reference, arms, visits, covariates, float(conf_level),
+    return AncovaResult(outcome, reference, arms, visits, covariates, float(confidence_level),
                         tuple(differences), tuple(means), tuple(fits))
 
 
@@ -233,9 +233,9 @@ def _covariate_block(rows: pd.DataFrame, covariates: tuple[str, ...]) -> np.ndar
     return np.column_stack(blocks)
 
 
-def _difference_rows(visit_fit: _VisitFit, arms, visit_level, conf_level) -> list[tuple]:
+def _difference_rows(visit_fit: _VisitFit, arms, visit_level, confidence_level) -> list[tuple]:
     result, df = visit_fit.result, float(visit_fit.df_resid)
-    critical = scipy_stats.t.ppf(0.5 + conf_level / 2, df)
+    critical = scipy_stats.t.ppf(0.5 + confidence_level / 2, df)
     rows = []
     for position, arm_level in enumerate(arms[1:], start=1):
         estimate, std_error = float(result.params[position]), float(result.bse[position])
@@ -246,9 +246,9 @@ def _difference_rows(visit_fit: _VisitFit, arms, visit_level, conf_level) -> lis
     return rows
 
 
-def _mean_rows(visit_fit: _VisitFit, arms, visit_level, conf_level) -> list[tuple]:
+def _mean_rows(visit_fit: _VisitFit, arms, visit_level, confidence_level) -> list[tuple]:
     result, df = visit_fit.result, float(visit_fit.df_resid)
-    critical = scipy_stats.t.ppf(0.5 + conf_level / 2, df)
+    critical = scipy_stats.t.ppf(0.5 + confidence_level / 2, df)
     covariance = np.asarray(result.cov_params())
     rows = []
     for position, arm_level in enumerate(arms):
@@ -263,7 +263,7 @@ def _mean_rows(visit_fit: _VisitFit, arms, visit_level, conf_level) -> list[tupl
     return rows
 
 
-def _check_arguments(frame, outcome, subject, arm, visit, reference, covariates, conf_level):
+def _check_arguments(frame, outcome, subject, arm, visit, reference, covariates, confidence_level):
     problems = [
         Problem(code="stats.missing_column", message=f"no column {name!r}", field=name,
                 expected="a column of the data")
@@ -282,10 +282,10 @@ def _check_arguments(frame, outcome, subject, arm, visit, reference, covariates,
         problems.append(Problem(code="stats.duplicate_visit", message="one row per participant and "
                                 "visit expected", field=f"{subject} x {visit}",
                                 rows=tuple(twice.itertuples(index=False, name=None))))
-    if not 0 < conf_level < 1:
-        problems.append(Problem(code="stats.conf_level", message="confidence level out of range",
-                                field="conf_level", expected="a number between 0 and 1",
-                                got=repr(conf_level)))
+    if not 0 < confidence_level < 1:
+        problems.append(Problem(code="stats.confidence_level", message="confidence level out of range",
+                                field="confidence_level", expected="a number between 0 and 1",
+                                got=repr(confidence_level)))
     if problems:
         raise ModelSpecificationError("the analysis of covariance cannot be specified", problems)
 

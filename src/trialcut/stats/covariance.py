@@ -33,9 +33,11 @@ likelihoods and the Satterthwaite degrees of freedom do not.  So that Kenward-Ro
 on our optimisation choices where it need not, ``unstructured``, ``compound_symmetry`` and
 ``toeplitz`` also expose ``linear_entries``: the positions (j, k) of Sigma whose values psi are a
 linear parametrisation (Sigma = sum_a psi_a G_a).  The engine computes Kenward-Roger in psi, where
-d2Sigma = 0 and both Kenward-Roger variants coincide (the usual results: with complete balanced
-data they reproduce the exact tests).  For the other structures Sigma is not linear in any of the
-usual parametrisations and Kenward-Roger is computed in the theta documented here, R_ij included.
+d2Sigma = 0 and the second-derivative term vanishes (the usual results: with complete balanced
+data the adjustment reproduces the exact tests).  For the other structures Sigma is not linear in
+any of the usual parametrisations and Kenward-Roger is computed in the theta documented here, its
+second-derivative term included unless the caller leaves it out (``second_derivatives=False``).
+Each structure states its choice in words (``inference_parameters``) for the report.
 
 Adding a structure: write a class with the :class:`CovarianceStructure` members below and add it
 to :data:`STRUCTURES` (whose keys must equal ``trialcut.stats.names.COVARIANCE_STRUCTURES``).
@@ -70,6 +72,10 @@ class CovarianceStructure(Protocol):
     linear_entries: list[tuple[int, int]] | None
     """Entries (j, k) of Sigma that parametrise it linearly (one per parameter), or None."""
 
+    inference_parameters: str
+    """In words, the parameters the Kenward-Roger adjustment is computed in: ``linear_entries``
+    when there are any, else theta."""
+
     def identifiability_problem(self, pair_counts: np.ndarray) -> str | None:
         """Why theta cannot be estimated from this missingness (None when it can).
 
@@ -89,6 +95,7 @@ class Unstructured:
         self._rows, self._cols = np.tril_indices(n_visits)
         self._diagonal = self._rows == self._cols
         self.linear_entries = list(zip(self._rows, self._cols))     # every variance and covariance
+        self.inference_parameters = "the variance at each visit and the covariance of each pair of visits"
 
     def parameter_names(self, visit_labels):
         return [f"log_cholesky_diagonal[{visit_labels[j]}]" if j == k
@@ -160,6 +167,7 @@ class _AutoregressiveCorrelation:
     """R_jk = rho^|j-k|, rho = tanh(gamma)."""
 
     n_parameters = 1
+    words = "the inverse hyperbolic tangent of the correlation between neighbouring visits"
 
     def __init__(self, n_visits):
         self.lag = _lags(n_visits).astype(float)
@@ -190,6 +198,7 @@ class _EquicorrelationCorrelation:
     """R_jk = rho (j != k), rho = a + (1 - a) logistic(gamma), a = -1/(k-1)."""
 
     n_parameters = 1
+    words = "the logit of the correlation's position between its lower bound -1/(k-1) and 1"
 
     def __init__(self, n_visits):
         self.lower = -1.0 / (n_visits - 1) if n_visits > 1 else -1.0
@@ -242,6 +251,8 @@ class _Jet:
 
 class _ToeplitzCorrelation:
     """R_jk = rho_|j-k| from partial autocorrelations phi_d = tanh(gamma_d) (Durbin-Levinson)."""
+
+    words = "the inverse hyperbolic tangents of the partial autocorrelations"
 
     def __init__(self, n_visits):
         self.n_visits = n_visits
@@ -319,6 +330,7 @@ class _ExponentialCorrelation:
     """R_jk = exp(-|t_j - t_k| / phi), phi = exp(gamma)."""
 
     n_parameters = 1
+    words = "the log of the range (the time over which the correlation falls to 1/e)"
 
     def __init__(self, visit_times):
         times = np.asarray(visit_times, float)
@@ -360,6 +372,13 @@ class ScaledCorrelation:
         # Homogeneous equicorrelation and Toeplitz are linear in (variance, lag covariances).
         linear = not heterogeneous and isinstance(correlation, (_EquicorrelationCorrelation, _ToeplitzCorrelation))
         self.linear_entries = [(0, d) for d in range(self.n_parameters)] if linear else None
+        if linear:
+            self.inference_parameters = ("the variance and the covariance of two visits"
+                                         if isinstance(correlation, _EquicorrelationCorrelation)
+                                         else "the variance and the covariance at each lag")
+        else:
+            scale = "one log standard deviation per visit" if heterogeneous else "the log standard deviation"
+            self.inference_parameters = f"{scale} and {correlation.words}"
 
     def parameter_names(self, visit_labels):
         scale = ([f"log_sd[{label}]" for label in visit_labels] if self.heterogeneous else ["log_sd"])

@@ -913,7 +913,7 @@ def impute(frame: pd.DataFrame, *, subject: str, arm: str, visit: str, outcome: 
            n_imputations: int = 100, burn_in: int = 200, thinning: int = 10,
            covariance_by_arm: bool = False, delta=None, delta_arms: Sequence[str] = (),
            delta_cumulative: bool = False, seed_sequence: np.random.SeedSequence | int = 0,
-           chains: int = 4, executor: Any = None, conf_level: float = 0.95,
+           chains: int = 4, executor: Any = None, confidence_level: float = 0.95,
            arms: Sequence[str] | None = None, analysis_model: str = "ancova",
            mmrm_options: Mapping[str, str] | None = None, covariate_effects: str = "by_visit",
            assumption_by_subject: Mapping[Any, str] | None = None,
@@ -944,7 +944,7 @@ def impute(frame: pd.DataFrame, *, subject: str, arm: str, visit: str, outcome: 
     pooled = tuple(
         PooledDifference(data.arms[k + 1], data.visits[j],
                          rubin_pool(draws.estimates[0, :, k, j], draws.variances[0, :, k, j],
-                                    complete_df=float(draws.complete_df[0, k, j]), conf_level=conf_level))
+                                    complete_df=float(draws.complete_df[0, k, j]), confidence_level=confidence_level))
         for k in range(len(data.arms) - 1) for j in range(len(data.visits)))
     settings = {"n_imputations": n_imputations, "burn_in": burn_in, "thinning": thinning, "chains": chains,
                 "covariance_by_arm": covariance_by_arm, "covariates": list(data.covariate_names),
@@ -952,6 +952,6 @@ def impute(frame: pd.DataFrame, *, subject: str, arm: str, visit: str, outcome: 
                 "delta_arms": list(delta_arms), "delta_cumulative": delta_cumulative,
                 "participants_by_assumption": _participants_by_assumption(data, rules),
                 "analysis": "ancova at each visit" if analysis is None else f"mmrm ({analysis.covariance}, "
-                f"{analysis.method}, df {analysis.df})", "conf_level": conf_level}
+                f"{analysis.method}, df {analysis.df})", "confidence_level": confidence_level}
     return MultipleImputationResult(assumption, reference, data.arms, data.visits, pooled, settings,
                                     draws.diagnostics, float(draws.complete_df.min()))

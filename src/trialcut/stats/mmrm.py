@@ -51,6 +51,11 @@ FIXED_EFFECT_COLUMNS = ("term", "estimate", "se", "df", "t", "p")
 MEAN_COLUMNS = ("arm", "visit", "estimate", "se", "df", "lower", "upper")
 DIFFERENCE_COLUMNS = ("arm", "reference", "visit", "estimate", "se", "df", "t", "p", "lower", "upper")
 JOINT_COLUMNS = ("term", "num_df", "den_df", "F", "p")
+# Earlier names of the degrees-of-freedom methods, so that an old call is told what to write now.
+RENAMED_DF_METHODS = {
+    "kenward_roger_linear": "write df='kenward_roger', second_derivatives=False",
+    "between_within": "write df='participant_split'",
+}
 RESIDUAL_COLUMNS = ("subject", "visit", "fitted", "residual", "scaled_residual")
 
 
@@ -68,6 +73,8 @@ class MMRMFit:
     structure: str                  # the covariance structure used
     method: str
     df_method: str
+    second_derivatives: bool        # Kenward-Roger: whether the second-derivative term was asked for
+    kenward_roger_parametrisation: tuple   # per covariance group: how the adjustment was computed
     robust: bool
     converged: bool
     iterations: int
@@ -87,7 +94,8 @@ class MMRMFit:
     covariate_summary: dict
     attempts: tuple                 # one dict per structure tried
     warnings: tuple
-    term_names: tuple
+    term_names: tuple               # each fixed effect in plain words
+    term_keys: tuple                # each fixed effect as data: effect (joint-test term), arm, visit, covariate, level
     coefficients: np.ndarray
     coefficient_covariance: np.ndarray   # the variance used for inference (Phi_A, Phi or sandwich)
     model_based_covariance: np.ndarray   # Phi = (X'V^-1X)^-1
@@ -109,13 +117,13 @@ class MMRMFit:
             rows.append((term, estimate, se, df, *_t_test(estimate, se, df)))
         return pd.DataFrame(rows, columns=list(FIXED_EFFECT_COLUMNS))
 
-    def marginal_means(self, conf_level: float = 0.95) -> pd.DataFrame:
-        rows = [(arm, visit, est, se, df, *_interval(est, se, df, conf_level))
+    def marginal_means(self, confidence_level: float = 0.95) -> pd.DataFrame:
+        rows = [(arm, visit, est, se, df, *_interval(est, se, df, confidence_level))
                 for arm, visit, est, se, df in self.mean_rows]
         return pd.DataFrame(rows, columns=list(MEAN_COLUMNS))
 
-    def differences(self, conf_level: float = 0.95) -> pd.DataFrame:
-        rows = [(arm, ref, visit, est, se, df, *_t_test(est, se, df), *_interval(est, se, df, conf_level))
+    def differences(self, confidence_level: float = 0.95) -> pd.DataFrame:
+        rows = [(arm, ref, visit, est, se, df, *_t_test(est, se, df), *_interval(est, se, df, confidence_level))
                 for arm, ref, visit, est, se, df in self.difference_rows]
         return pd.DataFrame(rows, columns=list(DIFFERENCE_COLUMNS))
 
@@ -142,15 +150,15 @@ class MMRMFit:
         return frames[None] if self.groups == (None,) else frames
 
     # ----------------------------------------------------------------- serialisation
-    def to_dict(self, conf_level: float = 0.95) -> dict[str, Any]:
+    def to_dict(self, confidence_level: float = 0.95) -> dict[str, Any]:
         """Every field (lossless: ``MMRMFit.from_dict`` rebuilds the fit) plus, under ``tables``,
-        the tables at ``conf_level`` for readers.  NaN and infinite numbers become None (an
+        the tables at ``confidence_level`` for readers.  NaN and infinite numbers become None (an
         infinite df means the normal distribution)."""
         data = {f.name: _plain(getattr(self, f.name)) for f in fields(self)}
         data["tables"] = {
             "fixed_effects": _table(self.fixed_effects),
-            "marginal_means": _table(self.marginal_means(conf_level)),
-            "differences": _table(self.differences(conf_level)),
+            "marginal_means": _table(self.marginal_means(confidence_level)),
+            "differences": _table(self.differences(confidence_level)),
             "joint_tests": _table(self.joint_tests()),
         }
         for name, frames in (("covariance_matrix", self.covariance_matrix()),
@@ -160,7 +168,7 @@ class MMRMFit:
                     data["tables"][f"{name}[{group}]"] = _table(frame.reset_index())
             else:
                 data["tables"][name] = _table(frames.reset_index())
-        data["conf_level"] = conf_level
+        data["confidence_level"] = confidence_level
         return data
 
     @classmethod
@@ -194,12 +202,15 @@ def _t_test(estimate, se, df):
     return t, float(2 * stats.t.sf(abs(t), df))
 
 
-def _interval(estimate, se, df, conf_level):
-    if not 0 < conf_level < 1:
-        raise ModelSpecificationError(f"conf_level: expected a number between 0 and 1; got {conf_level!r}")
+def _interval(estimate, se, df, confidence_level):
+    if not 0 < confidence_level < 1:
+        raise ModelSpecificationError(
+            f"confidence_level: expected a number between 0 and 1; got {confidence_level!r}",
+            [Problem("mmrm.confidence_level", "confidence_level must lie between 0 and 1",
+                     field="confidence_level", expected="a number between 0 and 1", got=repr(confidence_level))])
     if not df == df:
         return math.nan, math.nan
-    half = float(stats.t.ppf(0.5 + conf_level / 2, df)) * se
+    half = float(stats.t.ppf(0.5 + confidence_level / 2, df)) * se
     return estimate - half, estimate + half
 
 
@@ -236,7 +247,8 @@ def fit_mmrm(data: pd.DataFrame, *, outcome: str = "CHG", subject: str = "USUBJI
              arm: str = "TRT01P", reference: Any, visits: Sequence | None = None,
              covariates: Sequence[str] = (), covariates_by_visit: Sequence[str] = (),
              covariance: str | Sequence[str] = "unstructured", covariance_by: str | None = None,
-             method: str = "reml", df: str = "kenward_roger", robust: bool = False,
+             method: str = "reml", df: str = "kenward_roger", second_derivatives: bool = True,
+             robust: bool = False,
              visit_times: Mapping[Any, float] | None = None, max_iterations: int = 100,
              tolerance: float = 1e-8) -> MMRMFit:
     """Fit the repeated-measures model (see the module docstring and shared/DESIGN.md).
@@ -246,11 +258,12 @@ def fit_mmrm(data: pd.DataFrame, *, outcome: str = "CHG", subject: str = "USUBJI
     could still bring.  Raises ModelSpecificationError for arguments or data that cannot describe
     a model, ConvergenceError (one structure) or FitError (a list) when no structure converges.
     """
-    names = _check_arguments(covariance, method, df, robust, max_iterations, tolerance)
+    names = _check_arguments(covariance, method, df, second_derivatives, robust, max_iterations, tolerance)
     settings = {"outcome": outcome, "subject": subject, "visit": visit, "arm": arm, "reference": reference,
                 "visits": None if visits is None else list(visits), "covariates": list(covariates),
                 "covariates_by_visit": list(covariates_by_visit), "covariance": list(names),
-                "covariance_by": covariance_by, "method": method, "df": df, "robust": robust,
+                "covariance_by": covariance_by, "method": method, "df": df,
+                "second_derivatives": second_derivatives, "robust": robust,
                 "visit_times": None if visit_times is None else dict(visit_times),
                 "max_iterations": max_iterations, "tolerance": tolerance}
     with warnings.catch_warnings(record=True) as caught, _one_blas_thread():
@@ -259,7 +272,7 @@ def fit_mmrm(data: pd.DataFrame, *, outcome: str = "CHG", subject: str = "USUBJI
                               visits=visits, covariates=covariates, covariates_by_visit=covariates_by_visit,
                               covariance_by=covariance_by, visit_times=visit_times)
         name, likelihood, maximum, attempts = _fit_first_converging(design, names, method, max_iterations, tolerance)
-        inference = Inference(likelihood, maximum.evaluation, design, df, robust)
+        inference = Inference(likelihood, maximum.evaluation, design, df, robust, second_derivatives)
         fit = _assemble(design, settings, name, likelihood, maximum, inference, attempts, caught)
     return fit
 
@@ -270,7 +283,8 @@ def _one_blas_thread():
     return threadpool_limits(limits=1, user_api="blas") if threadpool_limits else contextlib.nullcontext()
 
 
-def _check_arguments(covariance, method, df, robust, max_iterations, tolerance) -> tuple[str, ...]:
+def _check_arguments(covariance, method, df, second_derivatives, robust, max_iterations,
+                     tolerance) -> tuple[str, ...]:
     names = (covariance,) if isinstance(covariance, str) else tuple(covariance)
     problems = []
     if not names:
@@ -284,11 +298,15 @@ def _check_arguments(covariance, method, df, robust, max_iterations, tolerance) 
                                 field="method", expected=" or ".join(ESTIMATION_METHODS), got=repr(method)))
     if df not in DF_METHODS:
         problems.append(Problem("mmrm.unknown_df", f"df: unknown degrees-of-freedom method {df!r}",
-                                field="df", expected="one of " + ", ".join(DF_METHODS), got=repr(df)))
-    elif df.startswith("kenward_roger") and method != "reml":
+                                field="df", expected="one of " + ", ".join(DF_METHODS), got=repr(df),
+                                hint=RENAMED_DF_METHODS.get(df)))
+    elif df == "kenward_roger" and method != "reml":
         problems.append(Problem("mmrm.kenward_roger_needs_reml", f"df {df!r} needs method 'reml'",
                                 field="df", got=f"method {method!r}",
                                 hint="use method='reml' or df='satterthwaite'"))
+    if not isinstance(second_derivatives, (bool, np.bool_)):
+        problems.append(Problem("mmrm.second_derivatives_not_bool", "second_derivatives must be True or False",
+                                field="second_derivatives", got=repr(second_derivatives)))
     if not isinstance(robust, (bool, np.bool_)):
         problems.append(Problem("mmrm.robust_not_bool", "robust must be True or False", field="robust",
                                 got=repr(robust)))
@@ -403,6 +421,7 @@ def _assemble(design: Design, settings, name, likelihood: Likelihood, maximum: M
     notes += _non_finite_notes("marginal means", [f"{a} at {v}" for a, v in labels], np.column_stack(means))
     notes += _non_finite_notes("differences", [f"{a} at {v}" for a, _, v in difference_labels],
                                np.column_stack(differences))
+    notes += _lowered_standard_errors(inference, difference_matrix, [f"{a} at {v}" for a, _, v in difference_labels])
     notes += _non_finite_notes("joint tests", [row[0] for row in joint_rows],
                                np.array([row[1:] for row in joint_rows], float).reshape(-1, 4))
     if design.excluded_subjects:
@@ -412,19 +431,66 @@ def _assemble(design: Design, settings, name, likelihood: Likelihood, maximum: M
                         for g, s in zip(design.groups, structures) for n in s.parameter_names([str(v) for v in design.visits]))
     fields_ = dict(
         settings=settings, structure=name, method="reml" if likelihood.reml else "ml", df_method=inference.df_method,
+        second_derivatives=bool(settings["second_derivatives"]),
+        kenward_roger_parametrisation=_kenward_roger_parametrisation(design, structures, inference),
         robust=bool(inference.robust), converged=maximum.converged, iterations=maximum.iterations,
         gradient_norm=maximum.gradient_norm, scaled_gradient=maximum.decrement, tolerance=settings["tolerance"],
         loglik=loglik, aic=-2 * loglik + 2 * counted, bic=-2 * loglik + counted * math.log(design.n_subjects),
         n_subjects=design.n_subjects, n_subjects_excluded=len(design.excluded_subjects),
         excluded_subjects=design.excluded_subjects, n_obs=design.n_obs, visits=design.visits, arms=design.arms,
         groups=design.groups, covariate_summary=design.covariate_summary, attempts=tuple(attempts),
-        warnings=tuple(notes), term_names=design.term_names, coefficients=evaluation.beta,
+        warnings=tuple(notes), term_names=design.term_names, term_keys=design.term_keys,
+        coefficients=evaluation.beta,
         coefficient_covariance=inference.covariance, model_based_covariance=evaluation.xvx_inverse,
         covariance_parameter_names=theta_names, covariance_parameters=evaluation.theta,
         covariance_parameter_covariance=inference.weights, covariance_matrices=np.array(evaluation.sigmas),
         fixed_effect_rows=np.column_stack(fixed), mean_rows=mean_rows, difference_rows=difference_rows,
         joint_rows=joint_rows, residual_columns=_residual_columns(design, evaluation))
     return MMRMFit(**{key: _readonly(value) if key in ARRAY_FIELDS else value for key, value in fields_.items()})
+
+
+def _kenward_roger_parametrisation(design: Design, structures, inference: Inference) -> tuple:
+    """Per covariance group, which parameters the Kenward-Roger adjustment was computed in and what
+    happened to its second-derivative term, in words a report can print (empty for other df methods)."""
+    if inference.df_method != "kenward_roger":
+        return ()
+    records = []
+    for group, structure in zip(design.groups, structures):
+        linear = structure.linear_entries is not None
+        if linear:
+            term = "zero"
+            sentence = (f"computed in {structure.inference_parameters}, in which the structure "
+                        "is linear, so the second-derivative term is zero and the result does not depend on "
+                        "the parametrisation")
+        elif inference.second_derivatives:
+            term = "included"
+            sentence = (f"the second-derivative term is taken in {structure.inference_parameters}; "
+                        "it depends on this choice of parametrisation, and with log standard deviations it can "
+                        "make an adjusted standard error smaller than the unadjusted one")
+        else:
+            term = "left out"
+            sentence = ("the second-derivative term is left out, so the adjustment uses first "
+                        "derivatives only and does not depend on the parametrisation")
+        records.append({"group": group, "structure": structure.name, "linear": linear,
+                        "parameters": structure.inference_parameters, "second_derivative_term": term,
+                        "description": sentence})
+    return tuple(records)
+
+
+def _lowered_standard_errors(inference: Inference, contrasts: np.ndarray, labels) -> list[str]:
+    """Name the contrasts whose Kenward-Roger standard error is below the unadjusted one: a reader
+    expects the adjustment to widen intervals, and it narrows them only through the second-derivative
+    term of a non-linear structure."""
+    if inference.df_method != "kenward_roger" or inference.robust:
+        return []
+    adjusted = np.einsum("mp,pq,mq->m", contrasts, inference.model_based, contrasts)
+    unadjusted = np.einsum("mp,pq,mq->m", contrasts, inference.phi, contrasts)
+    lowered = [str(label) for label, a, u in zip(labels, adjusted, unadjusted) if a < u * (1 - 1e-9)]
+    if not lowered:
+        return []
+    return [f"Kenward-Roger: the adjusted standard error is smaller than the unadjusted one for "
+            f"{len(lowered)} difference(s) ({', '.join(lowered[:5])}); this comes from the second-derivative "
+            "term of a structure that is not linear in its parameters"]
 
 
 def _non_finite_notes(table: str, labels, values: np.ndarray) -> list[str]:

@@ -51,7 +51,8 @@ class Design:
     arms: tuple                     # reference first
     groups: tuple                   # covariance groups; (None,) without covariance_by
     visit_times: np.ndarray
-    term_names: tuple[str, ...]
+    term_names: tuple[str, ...]     # each column of X in plain words
+    term_keys: tuple[dict, ...]     # each column as data: effect (joint-test term), arm, visit, covariate, level
     term_blocks: dict[str, list[int]]   # "arm", "visit", "arm_by_visit", covariate, "<c>_by_visit"
     covariate_columns: dict[str, list[int]]   # covariate -> its main-effect columns
     between_columns: np.ndarray     # bool per column: constant within every participant
@@ -210,7 +211,7 @@ def build_design(data: pd.DataFrame, *, outcome: str, subject: str, visit: str, 
     coder = _CovariateCoder(observed, main_effects, covariates_by_visit)
     covariate_block = coder.encode(observed)
     x = _design_rows(arm_index, visit_index, covariate_block, coder.by_visit_mask, len(arms), len(visits))
-    names, blocks, covariate_columns = _term_names(arms, visits, coder)
+    names, keys, blocks, covariate_columns = _term_names(arms, visits, coder)
     _check_cells(arm_index, visit_index, arms, visits, arm)
 
     patterns = _patterns(subject_codes, visit_index, group_index, x, observed[outcome].to_numpy(float), len(visits))
@@ -229,7 +230,7 @@ def build_design(data: pd.DataFrame, *, outcome: str, subject: str, visit: str, 
                      np.repeat(summary_values[None], len(visits), 0), coder.by_visit_mask, len(arms), len(visits))
         for a in range(len(arms))])
     return Design(visits=visits, arms=arms, groups=groups, visit_times=times, term_names=names,
-                  term_blocks=blocks, covariate_columns=covariate_columns, between_columns=between,
+                  term_keys=keys, term_blocks=blocks, covariate_columns=covariate_columns, between_columns=between,
                   patterns=patterns, subject_labels=np.asarray(subject_labels), n_obs=len(observed),
                   n_subjects=len(subject_labels), excluded_subjects=excluded, cell_means=cell_means,
                   covariate_summary=summary, pair_counts=pair_counts)
@@ -299,24 +300,42 @@ def _design_rows(arm_index, visit_index, covariate_block, by_visit_mask, n_arms,
 
 
 def _term_names(arms, visits, coder: _CovariateCoder):
-    names = ["intercept"]
+    """Each column of X in plain words, with a machine-readable key beside it.
+
+    The columns are treatment-coded against the reference arm and the first visit, so each label
+    says what its coefficient compares: an arm column is the difference at the first visit, an
+    arm-by-visit column how that difference changes from the first visit to a later one."""
+    reference, first = arms[0], visits[0]
+    names: list[str] = [f"Intercept ({reference} at {first})"]
+    keys: list[dict[str, Any]] = [{"effect": "intercept"}]
     blocks: dict[str, list[int]] = {}
 
-    def add(term, labels):
-        blocks.setdefault(term, []).extend(range(len(names), len(names) + len(labels)))
-        names.extend(labels)
+    def add(term, entries):
+        blocks.setdefault(term, []).extend(range(len(names), len(names) + len(entries)))
+        for label, key in entries:
+            names.append(label)
+            keys.append({"effect": term, **key})
 
-    add("arm", [f"arm[{a}]" for a in arms[1:]])
-    add("visit", [f"visit[{v}]" for v in visits[1:]])
-    add("arm_by_visit", [f"arm[{a}]:visit[{v}]" for a in arms[1:] for v in visits[1:]])
-    column_label = [name if level is None else f"{name}[{level}]" for name, level in coder.columns]
-    for label, (name, _) in zip(column_label, coder.columns):
-        add(name, [label])
-    for label, (name, _), by in zip(column_label, coder.columns, coder.by_visit_mask):
+    add("arm", [(f"{a} vs {reference} at {first}", {"arm": a}) for a in arms[1:]])
+    add("visit", [(f"{v} vs {first} in {reference}", {"visit": v}) for v in visits[1:]])
+    add("arm_by_visit", [(f"{a} vs {reference}: change in the difference from {first} to {v}", {"arm": a, "visit": v})
+                         for a in arms[1:] for v in visits[1:]])
+    described = [(name, _covariate_words(coder, name, level),
+                  {"covariate": name} if level is None else {"covariate": name, "level": _scalar(level)}, by)
+                 for (name, level), by in zip(coder.columns, coder.by_visit_mask)]
+    for name, words, key, by in described:
+        add(name, [(words + (f" at {first}" if by else ""), key)])
+    for name, words, key, by in described:
         if by:
-            add(f"{name}_by_visit", [f"{label}:visit[{v}]" for v in visits[1:]])
+            add(f"{name}_by_visit", [(f"{words}: change in the effect from {first} to {v}", {**key, "visit": v})
+                                     for v in visits[1:]])
     covariate_columns = {name: blocks[name] for name, _ in coder.columns}
-    return tuple(names), {k: v for k, v in blocks.items() if v}, covariate_columns
+    return tuple(names), tuple(keys), {k: v for k, v in blocks.items() if v}, covariate_columns
+
+
+def _covariate_words(coder: _CovariateCoder, name: str, level: Any) -> str:
+    """A numeric covariate's slope, or a categorical level against the first level."""
+    return f"{name} (per unit)" if level is None else f"{name}: {level} vs {coder.levels[name][0]}"
 
 
 def _check_cells(arm_index, visit_index, arms, visits, arm_column) -> None:

@@ -16,12 +16,16 @@ J = dpsi/dtheta, and d2Sigma/dpsi2 = 0), otherwise in the optimisation parameter
 * ``kenward_roger``: variance Phi_A = Phi + 2 Phi {sum_ij W_ij (Q_ij - P_i Phi P_j - R_ij / 4)} Phi;
   a contrast L of rank l is tested with the scaled F, lambda * F ~ F(l, m), with lambda and m from
   the paper's moment matching (for l = 1 this is a t test on Phi_A with m = 2 (L Phi_A L')^2 / g'Wg).
-* ``kenward_roger_linear``: the same without the R_ij term (exact when Sigma is linear in theta).
+  ``second_derivatives=False`` leaves out the R_ij term.  R_ij is zero for the structures that are
+  linear in psi, so the switch changes nothing there; for the others it is taken in theta.  Without
+  R_ij the adjustment uses only first derivatives and W, which change together under any smooth
+  one-to-one reparametrisation, so its standard errors and df do not depend on the parametrisation;
+  with R_ij they do (see :func:`kenward_roger_parametrisation`).
 * ``satterthwaite``: variance Phi; one-df df = 2 (L Phi L')^2 / (g' W g), g_i = L dPhi/dtheta_i L';
   for l > 1 the contrast is rotated to the eigenvectors of L Phi L', each row gets its one-df value
   nu_m and the denominator df is 2E/(E - l) with E = sum_m nu_m / (nu_m - 2) (rows with nu_m <= 2
   are left out of E).
-* ``between_within``: the residual df split into a between-participant part (participants minus
+* ``participant_split``: the residual df split into a between-participant part (participants minus
   the number of columns constant within every participant, intercept included) and a
   within-participant part (observations minus participants minus the remaining columns); each
   column has the df of its part and a contrast gets the smallest df among the columns it touches.
@@ -43,9 +47,10 @@ from trialcut.stats.mmrm_likelihood import Evaluation, Likelihood
 
 class Inference:
     def __init__(self, likelihood: Likelihood, evaluation: Evaluation, design: Design, df_method: str,
-                 robust: bool):
+                 robust: bool, second_derivatives: bool = True):
         self.df_method = df_method
         self.robust = robust
+        self.second_derivatives = bool(second_derivatives)
         self.beta = evaluation.beta
         self.phi = evaluation.xvx_inverse
         self.weights_theta = np.linalg.inv(evaluation.information)            # W in theta
@@ -58,9 +63,9 @@ class Inference:
         self.psi = self.phi @ self.q_matrices @ self.phi                      # Phi P_i Phi up to sign
         self.notes: list[str] = []
         self.model_based = self.phi          # Phi, or Phi_A for Kenward-Roger
-        if df_method.startswith("kenward_roger"):
+        if df_method == "kenward_roger":
             self.model_based = self.phi + 2 * self._kenward_roger_lambda(
-                likelihood, evaluation, include_second=(df_method == "kenward_roger"))
+                likelihood, evaluation, include_second=self.second_derivatives)
         self.covariance = _sandwich(likelihood, evaluation) if robust else self.model_based
         n_between = int(design.between_columns.sum())
         p = len(self.beta)
@@ -68,9 +73,10 @@ class Inference:
         self.df_between = design.n_subjects - n_between
         self.df_within = design.n_obs - design.n_subjects - (p - n_between)
         self.df_residual = design.n_obs - p
-        if df_method == "between_within" and min(self.df_between, self.df_within) <= 0:
-            self.notes.append(f"between-within degrees of freedom are not positive (between {self.df_between}, "
-                              f"within {self.df_within}): too few participants or outcomes for this method")
+        if df_method == "participant_split" and min(self.df_between, self.df_within) <= 0:
+            self.notes.append(f"participant-split degrees of freedom are not positive (between participants "
+                              f"{self.df_between}, within participants {self.df_within}): too few participants "
+                              "or outcomes for this method")
         if robust and df_method != "residual":
             self.notes.append(f"robust variance: standard errors are the empirical sandwich; degrees of freedom "
                               f"({df_method}) are those of the model-based analysis")
@@ -101,7 +107,7 @@ class Inference:
         return estimate, np.sqrt(np.maximum(variance, 0.0)), self.one_df(contrast)
 
     def one_df(self, contrast: np.ndarray) -> np.ndarray:
-        if self.df_method in ("kenward_roger", "kenward_roger_linear", "satterthwaite"):
+        if self.df_method in ("kenward_roger", "satterthwaite"):
             centre = self.model_based if self.df_method != "satterthwaite" else self.phi
             variance = np.einsum("mp,pq,mq->m", contrast, centre, contrast)
             gradient = np.einsum("mp,ipq,mq->mi", contrast, self.psi, contrast)
@@ -128,7 +134,7 @@ class Inference:
         estimate = contrast @ self.beta
         wald = estimate @ np.linalg.solve(contrast @ self.covariance @ contrast.T, estimate)
         f_value = wald / l
-        if self.df_method.startswith("kenward_roger"):
+        if self.df_method == "kenward_roger":
             scale, den_df = self._kenward_roger_f(contrast)
             if not self.robust:
                 f_value *= scale

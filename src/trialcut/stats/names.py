@@ -15,11 +15,12 @@ COVARIANCE_STRUCTURES: tuple[str, ...] = (
     "spatial_exponential",
 )
 
+# Degrees-of-freedom methods.  Kenward-Roger's second-derivative term is a separate switch
+# (``second_derivatives``), not a method of its own.
 DF_METHODS: tuple[str, ...] = (
     "kenward_roger",
-    "kenward_roger_linear",
     "satterthwaite",
-    "between_within",
+    "participant_split",
     "residual",
 )
 

@@ -38,7 +38,7 @@ class PooledEstimate:
     p: float                              # two-sided
     lower: float
     upper: float
-    conf_level: float
+    confidence_level: float
     within_variance: float                # Ū
     between_variance: float               # B
     total_variance: float                 # T
@@ -60,11 +60,11 @@ def _plain_number(value: Any) -> Any:
 
 
 def rubin_pool(estimates, variances, complete_df: float | None = None,
-               conf_level: float = 0.95) -> PooledEstimate:
+               confidence_level: float = 0.95) -> PooledEstimate:
     """Pool one scalar estimand over m ≥ 2 completed-data analyses."""
     q = np.asarray(estimates, dtype=float).ravel()
     u = np.asarray(variances, dtype=float).ravel()
-    _check(q, u, complete_df, conf_level)
+    _check(q, u, complete_df, confidence_level)
     m = q.size
     identical = bool(np.all(q == q[0]))   # the mean of equal floats can miss them by one bit
     q_bar = float(q[0]) if identical else float(q.mean())
@@ -79,10 +79,10 @@ def rubin_pool(estimates, variances, complete_df: float | None = None,
         gamma = 0.0   # no imputation happened: no missing information
     se = math.sqrt(total)
     t_value = q_bar / se if se > 0 else math.copysign(math.inf, q_bar) if q_bar else math.nan
-    p_value, quantile = _t_tail(t_value, nu, conf_level)
+    p_value, quantile = _t_tail(t_value, nu, confidence_level)
     return PooledEstimate(
         estimate=q_bar, std_error=se, df=nu, t=t_value, p=p_value,
-        lower=q_bar - quantile * se, upper=q_bar + quantile * se, conf_level=conf_level,
+        lower=q_bar - quantile * se, upper=q_bar + quantile * se, confidence_level=confidence_level,
         within_variance=u_bar, between_variance=b, total_variance=total,
         relative_increase=r, proportion_due_to_missing=lam,
         fraction_missing_information=gamma, relative_efficiency=1.0 / (1.0 + gamma / m),
@@ -101,15 +101,15 @@ def _degrees_of_freedom(m: int, lam: float, b: float, complete_df: float | None)
     return 1.0 / (1.0 / nu_old + 1.0 / nu_obs)
 
 
-def _t_tail(t_value: float, nu: float, conf_level: float) -> tuple[float, float]:
-    alpha = 1.0 - conf_level
+def _t_tail(t_value: float, nu: float, confidence_level: float) -> tuple[float, float]:
+    alpha = 1.0 - confidence_level
     if math.isinf(nu):
         return float(2.0 * scipy_stats.norm.sf(abs(t_value))), float(scipy_stats.norm.ppf(1 - alpha / 2))
     return (float(2.0 * scipy_stats.t.sf(abs(t_value), nu)),
             float(scipy_stats.t.ppf(1 - alpha / 2, nu)))
 
 
-def _check(q: np.ndarray, u: np.ndarray, complete_df, conf_level) -> None:
+def _check(q: np.ndarray, u: np.ndarray, complete_df, confidence_level) -> None:
     problems = []
     if q.size != u.size:
         problems.append(Problem(code="stats.pool_lengths", message="one variance per estimate",
@@ -123,8 +123,8 @@ def _check(q: np.ndarray, u: np.ndarray, complete_df, conf_level) -> None:
     if complete_df is not None and not complete_df > 0:
         problems.append(Problem(code="stats.pool_complete_df", message="complete-data df must be positive",
                                 got=str(complete_df)))
-    if not 0 < conf_level < 1:
-        problems.append(Problem(code="stats.conf_level", message="confidence level out of range",
-                                expected="0 < conf_level < 1", got=str(conf_level)))
+    if not 0 < confidence_level < 1:
+        problems.append(Problem(code="stats.confidence_level", message="confidence level out of range",
+                                expected="0 < confidence_level < 1", got=str(confidence_level)))
     if problems:
         raise ModelSpecificationError("cannot pool these analyses", problems)

@@ -131,7 +131,7 @@ def tipping_grid(data: ImputationData, *, visit: str, shifts: Sequence[float],
     for index, (reference_shift, shift) in enumerate((r, s) for r in reference_shifts for s in shifts):
         for k, arm in enumerate(data.arms[1:]):
             pooled = rubin_pool(draws.estimates[index, :, k, j], draws.variances[index, :, k, j],
-                                complete_df=float(draws.complete_df[index, k, j]), conf_level=1.0 - alpha)
+                                complete_df=float(draws.complete_df[index, k, j]), confidence_level=1.0 - alpha)
             cells.append(TippingCell(arm, shift, reference_shift, pooled))
     points = tuple(_tipping_point(arm, r, [c for c in cells if c.arm == arm and c.reference_shift == r], alpha)
                    for arm in data.arms[1:] for r in reference_shifts)
