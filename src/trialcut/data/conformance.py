@@ -661,8 +661,8 @@ def _check_post_baseline(state: _State) -> None:
     first_each = _first_record_of_participants_without(state, analysed)
     state.record("post_baseline_present", "participants without post-baseline data at any analysis visit",
                  "warning", first_each, unit="participants", hint="they add nothing to a repeated-measures fit; check whether data are expected")
-    if len(state.work) and not analysed.any():
-        # Nothing to analyse at all (e.g. every study day negative): an export or a plan error.
+    if len(state.work) and not analysed.any() and not any(c.failed and c.severity == "error" for c in state.checks):
+        # Nothing to analyse at all (e.g. every study day negative), and no error above explains it.
         post = state.work[ROLE] == "post"
         state.record("analysable_records", "no record of any participant falls at an analysis visit", "error",
                      count=1, rows=state.offending(post, cols.study_day if state.has(cols.study_day) else cols.visit),

@@ -197,8 +197,7 @@ def _read_parquet(path: Path, content: bytes):
 
     try:
         table = pq.read_table(io.BytesIO(content))
-        table = _decimals_as_floats(table)
-        frame = table.to_pandas()
+        frame = _decimals_as_floats(table, table.to_pandas())
     except (pa.ArrowException, OSError, ValueError, TypeError, NotImplementedError) as exc:
         raise _error(path, "data.malformed_parquet", f"the Parquet file cannot be read: {exc}",
                      hint="write the cut again with a Parquet writer (e.g. pandas.DataFrame.to_parquet)") from exc
@@ -207,15 +206,16 @@ def _read_parquet(path: Path, content: bytes):
     return frame, 1, "record", True
 
 
-def _decimals_as_floats(table):
+def _decimals_as_floats(table, frame: pd.DataFrame) -> pd.DataFrame:
     """Decimal columns (fixed-point, as databases export them) become float64: every value of
-    a score or a study day fits a double's 15 significant digits."""
+    a score or a study day fits a double's 15 significant digits.  (Done after the conversion
+    to pandas, which would otherwise restore a column's older dtype from pandas' metadata.)"""
     import pyarrow as pa
 
-    for index, column in enumerate(table.schema):
-        if pa.types.is_decimal(column.type):
-            table = table.set_column(index, column.name, table.column(index).cast(pa.float64()))
-    return table
+    for field in table.schema:
+        if pa.types.is_decimal(field.type) and field.name in frame.columns:
+            frame[field.name] = table.column(field.name).cast(pa.float64()).to_numpy(zero_copy_only=False)
+    return frame
 
 
 # --------------------------------------------------------------------------- Dataset-JSON
