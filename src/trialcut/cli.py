@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 import contextlib
+import importlib
 import signal
 import sys
 import threading
@@ -19,7 +20,12 @@ from pathlib import Path
 from typing import Sequence
 
 from trialcut import __version__
+from trialcut.commands_key import add_key_arguments, add_signing_arguments
+from trialcut.commands_qc import add_qc_parser
 from trialcut.errors import TrialcutError
+
+OWN_MODULES = {"key": "trialcut.commands_key", "approve": "trialcut.commands_approve",
+               "qc": "trialcut.commands_qc"}
 
 
 class UsageError(TrialcutError):
@@ -53,6 +59,27 @@ def build_parser() -> argparse.ArgumentParser:
     lock.add_argument("plan", type=Path)
     lock.add_argument("--by", required=True, help="who locks it")
     lock.add_argument("--reason", required=True, help="why (e.g. 'final before unblinding')")
+    add_signing_arguments(lock, "sign the lock record with this private key (a .key file or a key name); "
+                                "an unchanged plan whose latest lock is unsigned gets that record signed")
+
+    key = commands.add_parser("key", help="make a signing key pair (private key for you, public key for the keyring)")
+    key_actions = key.add_subparsers(dest="key_action", metavar="ACTION", parser_class=_Parser, required=True)
+    key_new = key_actions.add_parser("new", help="create a key pair")
+    key_new.add_argument("--name", required=True, help="the key holder's name as the keyring shows it, e.g. a.smith")
+    key_new.add_argument("--role", action="append", metavar="ROLE",
+                         help="a role this key may approve in (repeatable; default: any role)")
+    key_new.add_argument("--no-passphrase", action="store_true",
+                         help="leave the private key unprotected (rehearsals and demos only)")
+    add_key_arguments(key_new)
+
+    approve = commands.add_parser("approve", help="record a signed review or approval of a verified run")
+    approve.add_argument("run_folder", type=Path)
+    add_signing_arguments(approve, "the private key to sign with (a .key file or a key name)", required=True)
+    approve.add_argument("--role", required=True, help="in which role, e.g. statistician or reviewer")
+    approve.add_argument("--note", help="what was reviewed, or any condition of the approval")
+    approve.add_argument("--registry", type=Path, help="registry file (default: the run's output root's)")
+
+    add_qc_parser(commands)
 
     run = commands.add_parser("run", help="check a data cut and run the locked plan on it")
     run.add_argument("plan", type=Path)
@@ -113,8 +140,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         if args.command is None:
             build_parser().print_help()
             return 2
-        from trialcut import commands
-
+        # One module per newer subcommand; the older ones live in trialcut.commands.
+        commands = importlib.import_module(OWN_MODULES.get(args.command, "trialcut.commands"))
         with _terminate_as_interrupt():
             return getattr(commands, f"command_{args.command}")(args)
     except TrialcutError as error:

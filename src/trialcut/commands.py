@@ -60,9 +60,15 @@ def command_lock(args) -> int:
     from trialcut.plan.lock import lock_plan
 
     loaded = load_plan(args.plan)
-    record = lock_plan(loaded, by=args.by, reason=args.reason)
+    from trialcut.commands_key import lock_signer
+
+    record = lock_plan(loaded, by=args.by, reason=args.reason, sign=lock_signer(args))
     console.print(f"[green]locked[/green] {args.plan} as {_short(record.plan_sha256)} "
-                  f"by {args.by} ({record.locked_utc})")
+                  f"by {record.by} ({record.locked_utc})")
+    if record.signature:
+        console.print(f"  signed by {record.signature['key']} ({record.signature['fingerprint']})")
+    else:
+        console.print("  unsigned: fine for a rehearsal; sign with --sign KEY before a run that counts")
     return 0
 
 

@@ -160,8 +160,10 @@ def primary(results):
 
 # --------------------------------------------------------------------------- HTML
 def test_html_primary_differences_equal_results(results, html_reader):
-    table = table_by_caption(html_reader, "Differences from Placebo by visit")
-    assert table["header"][0] == ["Arm", "Visit", "Estimate", "Std. error", "DF", "t", "p-value",
+    table = table_by_caption(html_reader, "Differences from Placebo by visit (arm minus reference)")
+    # The first header row gives N per arm (issue 9: a table that stands alone); then the columns.
+    assert table["header"][0][0].startswith("Full analysis set: Placebo N = ")
+    assert table["header"][1] == ["Arm", "Visit", "Estimate", "Standard error", "DF", "t", "p-value",
                                   "95% confidence interval"]
     expected = rows_of(primary(results)["tables"]["differences"])
     assert len(table["rows"]) == len(expected)
@@ -185,7 +187,7 @@ def test_html_model_means_equal_results(results, html_reader):
 
 
 def test_html_joint_tests_and_correlations_equal_results(results, html_reader):
-    joint = table_by_caption(html_reader, "Joint tests of the model terms")
+    joint = table_by_caption(html_reader, "Tests of each effect in the model")
     for cells, row in zip(joint["rows"], rows_of(primary(results)["tables"]["joint_tests"])):
         assert_shown(cells[2], row["den_df"], DF)
         assert_shown(cells[3], row["F"], T)
@@ -204,7 +206,7 @@ def test_html_is_self_contained_and_accessible(rendered, html_reader):
     assert all(i.get("alt", "").strip() for i in html_reader.images)
     for table in html_reader.tables:
         assert table["caption"].strip()
-        assert table["scopes"] and all(scope in ("col", "row") for scope in table["scopes"])
+        assert table["scopes"] and all(scope in ("col", "row", "colgroup") for scope in table["scopes"])
 
 
 def test_csv_files_hold_every_table_at_full_precision(results, rendered, html_reader):
@@ -285,12 +287,13 @@ def test_sensitivity_detail_tables_are_csv_files_named_in_the_report(results, re
     assert len(grid_csv.read_text(encoding="utf-8").splitlines()) == 1 + len(grid["data"])
     text = " ".join(" ".join(page.split()) for page in pdf_pages)
     assert f"tables/ {grid_csv.name}" in text or f"tables/{grid_csv.name}" in text
-    assert "Tipping-point map of p-values" in text and "Shift at which the conclusion changes" in text
+    assert "Tipping-point map: estimated difference" in text and "at which the conclusion changes" in text
 
 
 def test_pdf_wide_tables_sit_on_landscape_pages(rendered, pdf_pages):
     reader = pypdf.PdfReader(rendered["report.pdf"])
-    page = next(i for i, t in enumerate(pdf_pages) if "Observed values by arm and visit" in t and i > 3)
+    page = next(i for i, t in enumerate(pdf_pages) if "every analysis" in t and "Full analysis set: Placebo N" in t
+                and i > 3)
     box = reader.pages[page].mediabox
     assert float(box.width) > float(box.height)
 
@@ -308,6 +311,7 @@ def test_rerendering_a_run_folder_gives_identical_bytes_and_leaves_it_untouched(
     again = render_run(run, out=tmp_path / "again")
     assert {p.name: p.read_bytes() for p in run.iterdir()} == before
     assert again.pop("folder") == tmp_path / "again"
+    again.pop("results.json", None)     # a re-rendering carries a copy of the results it read
     assert set(again) == set(rendered)
     for key in rendered:
         assert again[key].read_bytes() == rendered[key].read_bytes(), key
@@ -370,7 +374,7 @@ def test_run_records_are_summarised_in_words(report_fixtures):
     checks = table_by_caption(read_html(text), "Conformance checks on the data cut")
     assert ["LVT-201-0117 Week 8 (line 388), LVT-201-0142 Week 4 (line 512)"] in [row[-1:] for row in checks["rows"]]
     assert "visit window: 7 records." in text and "(and 2 more in conformance.json)" in text
-    assert "Lorvatide 10 mg: the conclusion does not change for shifts from 0 to 1.5" in text
+    assert "Lorvatide 10 mg, with Placebo shifted by δᵣ = 0.00: significant at every shift of the grid, up to δ = 1.50." in text
 
 
 def test_a_repeated_measures_sensitivity_analysis_gets_its_differences_and_a_fit_sentence(report_fixtures):
@@ -382,7 +386,7 @@ def test_a_repeated_measures_sensitivity_analysis_gets_its_differences_and_a_fit
     fit = extra["fit"]
     assert (f"Fit: unstructured covariance, converged after {fit['iterations']} iterations; log-likelihood "
             f"-512.83; {fit['n_subjects']} participants and {fit['n_obs']} observations.") in text
-    table = [t for t in read_html(text).tables if t["caption"].endswith("Differences from Placebo by visit")]
+    table = [t for t in read_html(text).tables if "Differences from Placebo by visit: Model with sandwich errors;" in t["caption"]]
     assert len(table) == 1
     for cells, row in zip(table[0]["rows"], rows_of(extra["tables"]["differences"])):
         assert_shown(cells[2], row["estimate"], MEAN)

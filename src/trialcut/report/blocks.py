@@ -53,6 +53,25 @@ class Section:
         if figure is not None:
             self.blocks.append(Block("figure", figure))
 
+    @property
+    def lead_landscape(self) -> int:
+        """How many leading blocks go onto a landscape page with the heading (0: none).
+
+        When a section opens with a wide table, the page change before it would strand the
+        heading and the opening text at the foot of a portrait page; they move with it."""
+        for position, block in enumerate(self.blocks):
+            if block.kind == "table":
+                return position + 1 if block.content.wide else 0
+            if block.kind not in ("paragraph", "list", "notice"):
+                return 0
+        return 0
+
+    def keeps_with_next(self, position: int) -> bool:
+        """Whether text at ``position`` introduces the table or figure right after it (no page break between)."""
+        following = self.blocks[position + 1] if position + 1 < len(self.blocks) else None
+        return (self.blocks[position].kind in ("paragraph", "list", "notice")
+                and following is not None and following.kind in ("table", "figure", "list"))
+
     def child(self, anchor: str, title: str) -> "Section":
         section = Section(anchor=f"{self.anchor}-{anchor}", title=title)
         self.subsections.append(section)

@@ -15,7 +15,7 @@ from typing import Any, Mapping, Sequence
 from trialcut.report import sections_analysis, sections_flow, sections_front
 from trialcut.report.blocks import Block, Section, walk
 from trialcut.report.figures import FigureImage
-from trialcut.report.formatting import NumberFormat, describe_rules, short_hash
+from trialcut.report.formatting import NumberFormat, short_hash
 from trialcut.report.tables import ReportTable
 
 
@@ -35,9 +35,21 @@ class Document:
     csv_tables: list[ReportTable] = field(default_factory=list)    # CSV files only, listed in the text
     figures: list[FigureImage] = field(default_factory=list)
 
+    marks: list[str] = field(default_factory=list)   # short marks of state for the running header
+
     @property
     def header_text(self) -> str:
-        return f"{self.study_id} · cut {self.cut} · plan {short_hash(self.plan_hash, 12)}"
+        """The running header; an unlocked or dry run carries its mark on every page, not only the watermark."""
+        text = f"{self.study_id} · cut {self.cut} · plan {short_hash(self.plan_hash, 12)}"
+        return " · ".join([*self.marks, text])
+
+    @property
+    def kicker(self) -> str:
+        if "UNLOCKED PLAN" in self.marks:
+            return "Exploratory run of a plan that was not locked: not for decisions"
+        if "DUMMY TREATMENT CODES" in self.marks:
+            return "Dry run with dummy treatment codes: not the real assignment"
+        return "Efficacy analyses run from a prespecified, locked plan"
 
 
 CAUTIONS = (
@@ -63,7 +75,8 @@ def build_document(results: Mapping[str, Any], audit: Mapping[str, Any] | None =
     # The cautions stand on the title page, where no reader can miss them.
     about = Section("run", "About this run")
     sections_front.run_record(about, results, base_format)
-    about.paragraph(describe_rules(base_format))
+    about.paragraph("How values are rounded is stated at the start of each endpoint's section, from the plan's "
+                    "decimals; the CSV files keep full precision.")
     sections.append(about)
 
     estimands = Section("estimands", "Estimands")
@@ -103,12 +116,24 @@ def build_document(results: Mapping[str, Any], audit: Mapping[str, Any] | None =
         paper=report_settings.get("paper") if report_settings.get("paper") in ("A4", "Letter") else "A4",
         facts=sections_front.title_facts(results),
         banners=sections_front.banners(results),
-        cautions=list(CAUTIONS),
+        cautions=_cautions(results),
         sections=sections,
+        marks=sections_front.marks(results),
     )
     if draw:
         map_figures(document, FigureImage.drawn)
     return number_items(document, report_settings)
+
+
+def _cautions(results: Mapping[str, Any]) -> list[str]:
+    """The cautions; an unlocked or dry run does not claim to come from a prespecified plan."""
+    marks = sections_front.marks(results)
+    if not marks:
+        return list(CAUTIONS)
+    first = ("These results were produced by software from a plan that was not locked" if "UNLOCKED PLAN" in marks
+             else "These results were produced by software with dummy treatment codes (a dry run)")
+    return [first + ": they are exploratory, not for decisions. They require review by a qualified statistician "
+            "before anyone relies on them.", *CAUTIONS[1:]]
 
 
 def map_figures(document: Document, change) -> Document:

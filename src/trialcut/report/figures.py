@@ -116,7 +116,60 @@ def _draw(draw, *args, width=6.4, height=3.4, layout="constrained", **kwargs) ->
         if layout is None:
             figure.subplots_adjust(left=0.1, right=0.97, top=0.9, bottom=0.2, wspace=0.28)
         draw(figure, *args, **kwargs)
+        if layout is None:
+            make_room(figure)
         return _svg(figure)
+
+
+def axis_title(text: str, width: int = 34) -> str:
+    """A y-axis title wrapped onto lines short enough to fit beside a 3-inch-high axis."""
+    import textwrap
+
+    return textwrap.fill(text, width)
+
+
+def text_extents(figure) -> list[tuple[str, tuple[float, float, float, float]]]:
+    """Every visible text of ``figure`` (axis titles, tick labels, titles, legends, annotations)
+    with its drawn extent in figure pixels (x0, y0, x1, y1), from matplotlib's renderer."""
+    renderer = figure._get_renderer()   # the figure's own (Agg) renderer, as savefig would use
+    found = []
+    for artist in figure.findobj(lambda a: hasattr(a, "get_text") and hasattr(a, "get_window_extent")):
+        if not artist.get_visible() or not str(artist.get_text()).strip():
+            continue
+        box = artist.get_window_extent(renderer)
+        found.append((str(artist.get_text()), (box.x0, box.y0, box.x1, box.y1)))
+    return found
+
+
+def clipped_texts(figure, tolerance: float = 0.5) -> list[str]:
+    """The texts whose drawn extent leaves the figure: a clipped axis title, a cut tick label."""
+    width, height = figure.bbox.width, figure.bbox.height
+    return [text for text, (x0, y0, x1, y1) in text_extents(figure)
+            if x0 < -tolerance or y0 < -tolerance or x1 > width + tolerance or y1 > height + tolerance]
+
+
+def make_room(figure, pad: float = 4.0) -> None:
+    """Widen the margins of a fixed-margin figure until every text lies inside it.
+
+    A long axis title or tick label drawn with fixed margins runs past the figure's edge and
+    is cut off in the SVG (and so in the PDF and the HTML).  Measure what is drawn, move the
+    axes in by what sticks out, and measure again (a moved axis moves its labels)."""
+    for _ in range(3):
+        width, height = figure.bbox.width, figure.bbox.height
+        extents = [box for _, box in text_extents(figure)]
+        if not extents:
+            return
+        left = max(0.0, max(-x0 for x0, _, _, _ in extents) + pad)
+        bottom = max(0.0, max(-y0 for _, y0, _, _ in extents) + pad)
+        right = max(0.0, max(x1 - width for _, _, x1, _ in extents) + pad)
+        top = max(0.0, max(y1 - height for _, _, _, y1 in extents) + pad)
+        if left <= pad and bottom <= pad and right <= pad and top <= pad:
+            return
+        params = figure.subplotpars
+        figure.subplots_adjust(left=min(0.45, params.left + (left if left > pad else 0) / width),
+                               bottom=min(0.45, params.bottom + (bottom if bottom > pad else 0) / height),
+                               right=max(0.55, params.right - (right if right > pad else 0) / width),
+                               top=max(0.55, params.top - (top if top > pad else 0) / height))
 
 
 def arm_style(arms: Sequence[str], arm: str) -> dict[str, Any]:
@@ -166,7 +219,7 @@ def profile_chart(points: Sequence[Mapping[str, Any]], *, arms, visits, visit_da
         if reference_line:
             axes.axhline(0, color=INK, linewidth=0.7, linestyle=(0, (4, 3)))
         _visit_axis(axes, visits, positions, "Visit")
-        axes.set_ylabel(y_label)
+        axes.set_ylabel(axis_title(y_label))
         axes.legend(loc="best", fontsize=8)
 
     return _draw(draw, layout=None)
@@ -190,7 +243,7 @@ def trajectories_chart(series: Mapping[str, Mapping[str, list[tuple[str, float]]
                     axes.plot(xs, ys, color=colour, linewidth=0.7, alpha=0.55)
             axes.set_title(f"{arm} (n = {len(series.get(arm, {}))})", fontsize=8.5, color=INK)
             axes.set_xticks(list(positions.values()), list(positions), rotation=45, ha="right")
-        panels[0].set_ylabel(y_label)
+        panels[0].set_ylabel(axis_title(y_label))
 
     return _draw(draw, height=3.0, layout=None)
 
@@ -302,36 +355,53 @@ def tipping_chart(cells: Sequence[Mapping[str, Any]], *, arms: Sequence[str], al
     return _draw(draw, height=height, layout=None)
 
 
-def forest_chart(rows: Sequence[Mapping[str, Any]], *, arms: Sequence[str], x_label: str) -> bytes:
-    """One band per analysis, one line per arm inside it: the estimate and its confidence interval."""
+def forest_chart(rows: Sequence[Mapping[str, Any]], *, arms: Sequence[str], x_label: str,
+                 favours: tuple[str, str] | None = None, label=lambda value: f"{value:.1f}") -> bytes:
+    """One band per analysis, one line per arm inside it: the estimate and its confidence interval,
+    the numbers at the right, the primary analysis in bold and the side each arm is favoured on."""
     import textwrap
 
     labels = list(dict.fromkeys(r["label"] for r in rows))
-    shown_arms = [a for a in arms if any(r["arm"] == a for r in rows)] or list(dict.fromkeys(r["arm"] for r in rows))
+    primary = {r["label"] for r in rows if r.get("primary")}
+    shown_arms = [a for a in arms if any(_arm_of(r) == a for r in rows)] or list(dict.fromkeys(_arm_of(r) for r in rows))
     band = 0.7 / max(1, len(shown_arms))
-    height = max(2.2, 0.42 * len(labels) * max(1, len(shown_arms)) ** 0.5 + 1.2)
+    height = max(2.4, 0.42 * len(labels) * max(1, len(shown_arms)) ** 0.5 + 1.5)
 
     def draw(figure):
         axes = figure.subplots()
         for row in rows:
-            style = arm_style(arms, row["arm"])
-            offset = (shown_arms.index(row["arm"]) - (len(shown_arms) - 1) / 2) * band if row["arm"] in shown_arms else 0
+            arm = _arm_of(row)
+            style = arm_style(arms, arm)
+            offset = (shown_arms.index(arm) - (len(shown_arms) - 1) / 2) * band if arm in shown_arms else 0
             y = labels.index(row["label"]) + offset
             if row.get("lower") is not None and row.get("upper") is not None:
                 axes.plot([row["lower"], row["upper"]], [y, y], color=style["color"], linewidth=1.6)
             axes.plot([row["estimate"]], [y], marker=style["marker"], color=style["color"], markersize=5,
-                      linestyle="none", label=row["arm"])
+                      linestyle="none", label=arm)
+            numbers = f"{label(row['estimate'])} ({label(row.get('lower'))}, {label(row.get('upper'))})" \
+                if row.get("lower") is not None else label(row["estimate"])
+            axes.text(1.02, y, numbers, transform=axes.get_yaxis_transform(), va="center", ha="left",
+                      fontsize=7, color=style["color"], fontweight="bold" if row["label"] in primary else "normal")
         axes.axvline(0, color=INK, linewidth=0.8, linestyle=(0, (4, 3)))
-        axes.set_yticks(range(len(labels)), [textwrap.fill(str(l), 34) for l in labels], fontsize=7.5)
+        axes.set_yticks(range(len(labels)), [textwrap.fill(("Primary: " if l in primary else "") + str(l), 34)
+                                             for l in labels], fontsize=7.5)
+        for tick, text in zip(axes.get_yticklabels(), labels):
+            if text in primary:
+                tick.set_fontweight("bold")
         axes.set_ylim(len(labels) - 0.5, -0.5)
-        axes.set_xlabel(x_label)
+        axes.set_xlabel(x_label if not favours else f"{x_label}\n← {favours[0]}    {favours[1]} →")
         axes.grid(axis="y", visible=False)
         handles, names = axes.get_legend_handles_labels()
         unique = dict(zip(names, handles))
-        axes.legend(unique.values(), unique.keys(), loc="upper center", bbox_to_anchor=(0.5, -0.12 * 3.4 / height),
+        axes.legend(unique.values(), unique.keys(), loc="lower center", bbox_to_anchor=(0.5, 1.0),
                     ncols=len(unique), fontsize=8)
+        figure.subplots_adjust(left=0.36, right=0.76, top=1 - 0.45 / height, bottom=0.9 / height)
 
-    return _draw(draw, height=height)
+    return _draw(draw, height=height, layout=None)
+
+
+def _arm_of(row: Mapping[str, Any]) -> str:
+    return row.get("arm_code") or row["arm"]
 
 
 def finite(values: Sequence[Any]) -> bool:

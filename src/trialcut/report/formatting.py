@@ -16,8 +16,9 @@ floating-point rounding would give 0.2.  CSV files keep full precision instead.
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass
-from decimal import ROUND_HALF_UP, Decimal
+from decimal import ROUND_HALF_UP, Context, Decimal
 from typing import Any, Mapping
 
 STATISTIC_DECIMALS = 2
@@ -91,6 +92,10 @@ class NumberFormat:
         if kind == "share":       # a proportion shown as a percentage
             return round_half_away(100.0 * value, 1)
         if kind == "count" and float(value).is_integer():
+        if kind == "coefficient":
+            return coefficient_text(float(value), self.mean_decimals)
+        if kind == "p_exact":     # p-values whose order matters (multiplicity): never "<0.001"
+            return p_exact_text(float(value), self.p_value)
             return str(int(value))
         decimals = self.decimals_for(kind)
         if decimals is None:
@@ -107,10 +112,46 @@ TERM_WORDS = {"arm": "Arm", "visit": "Visit", "arm_by_visit": "Arm by visit", "i
 
 
 def term_text(term: str) -> str:
-    """A model term in words: 'BASE_by_visit' reads 'BASE by visit'."""
+# One part of a coefficient name in formula style, e.g. "arm[Lorvatide 10 mg]".
+_LEVELLED = re.compile(r"^\s*(?P<name>[^\[\]]+?)\s*\[(?P<level>[^\]]*)\]\s*$")
+    """A model term or coefficient in words, whatever naming the statistics layer used.
+
+    'BASE_by_visit' reads 'BASE by visit'; formula-style coefficient names never reach the
+    reader: 'arm[Lorvatide 10 mg]:visit[Week 4]' reads 'Arm by visit: Lorvatide 10 mg, Week 4'
+    and 'STRAT1R[Severe]' reads 'STRAT1R: Severe'.
+    """
+    term = str(term)
     if term in TERM_WORDS:
         return TERM_WORDS[term]
-    return term[: -len("_by_visit")] + " by visit" if term.endswith("_by_visit") else term
+    if "[" not in term:
+        plain = term[: -len("_by_visit")] + " by visit" if term.endswith("_by_visit") else term
+        # "BASE:visit" is formula syntax; "STRAT1R: Severe vs Mild" is already words.
+        return _first_upper(plain.replace(":", " by ") if " " not in plain else plain)
+    names, levels = [], []
+    for part in term.split(":"):
+        match = _LEVELLED.match(part)
+        names.append(TERM_WORDS.get(match["name"], match["name"]).lower() if match and match["name"] in TERM_WORDS
+                     else (match["name"] if match else part.strip()))
+        if match:
+            levels.append(match["level"])
+    return _first_upper(" by ".join(names)) + (": " + ", ".join(levels) if levels else "")
+
+
+def _first_upper(text: str) -> str:
+    """Capitalise a lower-case first word only ('arm' -> 'Arm'; a column name such as 'BASE' stays)."""
+    return text[:1].upper() + text[1:] if text[:1].islower() else text
+
+
+def coefficient_text(value: float, least_decimals: int) -> str:
+    """A model coefficient: three significant digits, never fewer decimals than a mean has.
+
+    A slope per unit of a covariate (-0.163 per point of baseline) would read -0.2 if it were
+    rounded like a mean.
+    """
+    if value == 0 or not math.isfinite(value):
+        return round_half_away(value, least_decimals) if math.isfinite(value) else str(value)
+    digits = 3 - 1 - math.floor(math.log10(abs(value)))
+    return round_half_away(value, max(least_decimals, digits))
 
 
 def _general(value: float) -> str:
@@ -122,16 +163,45 @@ def _general(value: float) -> str:
     return f"{value:.3g}"
 
 
-def describe_rules(number_format: NumberFormat) -> str:
-    """The rules in words, printed in the report so a reader knows how values were rounded."""
+def describe_rules(number_format: NumberFormat, *, what: str = "", recorded: Any = None) -> str:
+    """The rules in words, as the tables of ``what`` apply them, so a reader knows how values were rounded.
+
+    ``recorded`` is the endpoint's ``decimals`` as the plan gives it; the sentence names the
+    plan's report settings (``decimals``: mean_extra, sd_extra, p_value) that set the rest.
+    """
+    smallest = f"<{Decimal(1).scaleb(-number_format.p_value):.{number_format.p_value}f}"
+    subject = f"In the tables of {what}, m" if what else "M"
+    recorded_text = (f"the values are recorded to {number_format.raw} decimal{'s' if number_format.raw != 1 else ''}"
+                     + (" (the plan's decimals for this endpoint)" if recorded is not None else ""))
     return (
-        f"Means, estimated differences and confidence limits are shown to {number_format.mean_decimals} "
-        f"decimals and standard deviations and standard errors to {number_format.sd_decimals} "
-        f"(the data are recorded to {number_format.raw}); p-values to {number_format.p_value} decimals, "
-        f"with smaller values shown as <{Decimal(1).scaleb(-number_format.p_value):.{number_format.p_value}f}. "
+        f"{subject}eans, medians, estimated differences and confidence limits are shown to "
+        f"{_decimals_words(number_format.mean_decimals)} and standard deviations and standard errors to "
+        f"{_decimals_words(number_format.sd_decimals)}: {recorded_text}, plus {number_format.mean_extra} and "
+        f"{number_format.sd_extra} (the plan's report decimals mean_extra and sd_extra). p-values are shown to "
+        f"{_decimals_words(number_format.p_value)} (p_value), with smaller values shown as {smallest}, except in "
+        f"the multiplicity table, where small p-values keep three significant digits so their order shows. "
+        "Degrees of freedom and percentages are shown to 1 decimal, test statistics to 2, correlations to 3; "
+        "model coefficients (including slopes of numeric covariates) to three significant digits. "
         "Values are rounded half away from zero. The CSV files keep full precision."
     )
 
 
 def short_hash(value: str | None, length: int = 12) -> str:
     return (value or "")[:length] or "not recorded"
+def _decimals_words(count: int) -> str:
+    return f"{count} decimal{'s' if count != 1 else ''}"
+
+
+def p_exact_text(value: float, decimals: int) -> str:
+    """A p-value whose order matters: ``decimals`` places, and three significant digits below that."""
+    if value <= 0:
+        return f"<{Decimal(1).scaleb(-300)}"
+    if value >= 10 ** -decimals:
+        return round_half_away(value, decimals)
+    mantissa, exponent = f"{value:.2e}".split("e")
+    return f"{mantissa} × 10{str(int(exponent)).translate(SUPERSCRIPTS)}"
+
+
+SUPERSCRIPTS = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
+
+

@@ -6,7 +6,7 @@ from typing import Any, Mapping, Sequence
 
 from trialcut.report.blocks import Section
 from trialcut.report.formatting import NumberFormat, short_hash
-from trialcut.report.tables import ReportTable, from_records, from_results_table
+from trialcut.report.tables import ReportTable, from_records, from_results_table, rows_as_dicts
 
 STRATEGY_WORDS = {
     "treatment_policy": "treatment policy", "hypothetical": "hypothetical", "composite": "composite",
@@ -37,9 +37,14 @@ def lock_status(results: Mapping[str, Any]) -> str:
         return "NOT LOCKED: this run used a plan without a valid lock record"
     who = lock.get("locked_by") or lock.get("by") or "someone not recorded"
     when = lock.get("locked_utc") or lock.get("when") or "an unrecorded time"
-    reason = lock.get("reason") or lock.get("why")
-    text = f"Locked by {who} on {when}"
-    return f"{text}: {reason}" if reason else text
+    # The reason is a fact of its own (lock_reason): said once, not glued to who and when.
+    return f"Locked by {who} on {when}"
+
+
+def lock_reason(results: Mapping[str, Any]) -> str | None:
+    plan, run = results.get("plan") or {}, results.get("run") or {}
+    lock = _lock(plan, run)
+    return None if lock is None else (lock.get("reason") or lock.get("why"))
 
 
 def banners(results: Mapping[str, Any]) -> list[str]:
@@ -52,6 +57,11 @@ def banners(results: Mapping[str, Any]) -> list[str]:
     return out
 
 
+def marks(results: Mapping[str, Any]) -> list[str]:
+    """The banners' short forms, for the running header of every page."""
+    return [banner.split(" — ")[0] for banner in banners(results)]
+
+
 def title_facts(results: Mapping[str, Any]) -> list[tuple[str, str]]:
     plan, run, data = results.get("plan") or {}, results.get("run") or {}, results.get("data") or {}
     study = plan.get("study") or {}
@@ -60,6 +70,7 @@ def title_facts(results: Mapping[str, Any]) -> list[tuple[str, str]]:
         ("Plan version", str(plan.get("version", "not recorded"))),
         ("Plan hash (SHA-256)", str(plan.get("sha256") or "not recorded")),
         ("Lock status", lock_status(results)),
+        *([("Reason for the lock", str(lock_reason(results)))] if lock_reason(results) else []),
         *([("Lock record hash", str(_lock(plan, run).get("record_sha256")))]
           if _lock(plan, run) is not None and _lock(plan, run).get("record_sha256") else []),
         ("Data cut", str(run.get("cut") or "not recorded")),
@@ -69,10 +80,9 @@ def title_facts(results: Mapping[str, Any]) -> list[tuple[str, str]]:
         ("Tool version", f"trialcut {run.get('tool_version') or 'not recorded'}"),
     ]
     history = amendment_history(plan) if _lock(plan, run) is not None else []
-    if history:
+    if len(history) > 1:     # one version has no history beyond its lock; reasons are in section 1
         facts.insert(4, ("Amendment history", "; ".join(
-            f"version {h['version']} locked {h['locked_utc']}" + (f" ({h['reason']})" if h.get("reason") else "")
-            for h in history)))
+            f"version {h['version']} locked {h['locked_utc']}" for h in history)))
     if run.get("dummy_arms_seed") is not None:
         facts.append(("Treatment codes", f"dummy codes drawn with seed {run['dummy_arms_seed']}"))
     return facts
@@ -96,6 +106,7 @@ def run_record(section: Section, results: Mapping[str, Any], number_format: Numb
         ("Plan version", plan.get("version"), "text"),
         ("Plan hash (SHA-256)", plan.get("sha256"), "text"),
         ("Lock status", lock_status(results), "text"),
+        ("Reason for the lock", lock_reason(results), "text"),
         ("Data cut", run.get("cut"), "text"),
         ("Data file", data.get("file"), "text"),
         ("Data format", data.get("format"), "text"),
@@ -212,21 +223,50 @@ def multiplicity(section: Section, results: Mapping[str, Any], number_format: Nu
     if method == "none" or not hypotheses:
         section.paragraph("The plan declares no adjustment for multiple comparisons; p-values are unadjusted.")
         return
-    method = {"holm": "Holm", "hochberg": "Hochberg", "bonferroni": "Bonferroni",
-              "graphical": "graphical"}.get(method, method)
-    section.paragraph(f"Hypotheses tested with the {method} procedure at an overall two-sided level of "
-                      f"{record.get('alpha', 0.05):g}.")
+    procedure = {"holm": "Holm", "hochberg": "Hochberg", "bonferroni": "Bonferroni",
+                 "graphical": "graphical"}.get(method, method)
+    alpha = record.get("alpha", 0.05)
+    reference = ((results.get("plan") or {}).get("arms") or {}).get("reference") or "the reference arm"
     labels = {a.get("id"): a.get("label") for e in results.get("endpoints") or [] for a in e.get("analyses") or []}
-    columns = list(hypotheses.get("columns") or [])
-    if "analysis" in columns:   # the analysis by its label, as everywhere else in the report
-        position = columns.index("analysis")
-        hypotheses = {**hypotheses, "data": [[labels.get(v, v) if i == position else v for i, v in enumerate(row)]
-                                             for row in hypotheses.get("data") or []]}
-    section.table(from_results_table(hypotheses, slug="multiplicity", title="Tests adjusted for multiplicity",
-                                     number_format=number_format,
-                                     labels={"id": "Hypothesis", "analysis": "Analysis", "weight": "Weight",
-                                             "adjusted_p": "Adjusted p-value", "rejected": "Rejected"},
-                                     kinds={"adjusted_p": "p", "rejected": "flag", "weight": "general"}))
+    rows = sorted(rows_as_dicts(hypotheses), key=lambda r: (r.get("p") is None, r.get("p") or 0.0))
+    for order, row in enumerate(rows, start=1):
+        row["order"] = order
+        row["comparison"] = " ".join(str(part) for part in (
+            row.get("arm"), f"vs {reference}", f"at {row['visit']}" if row.get("visit") else "") if part)
+        row["analysis_label"] = labels.get(row.get("analysis"), row.get("analysis"))
+        row["conclusion"] = ("rejected" if row.get("rejected") else "not rejected") if "rejected" in row else None
+    weights = {row.get("weight") for row in rows}
+    # Under Holm, Hochberg or Bonferroni with equal weights a weight column says nothing.
+    show_weight = "weight" in (hypotheses.get("columns") or []) and (
+        len(weights) > 1 or method not in ("holm", "hochberg", "bonferroni"))
+    section.paragraph(
+        f"Hypotheses tested with the {procedure} procedure at an overall two-sided level of {alpha:g}"
+        + (", in the order of their p-values (smallest first)" if method in ("holm", "hochberg") else "") + ". "
+        "Small p-values keep three significant digits here so that their order shows.")
+    columns = ["id", "order", "comparison", "analysis_label", *(["weight"] if show_weight else []), "p",
+               "adjusted_p", "conclusion"]
+    table = from_records(rows, columns, slug="multiplicity", number_format=number_format,
+                         title=f"Tests adjusted for multiplicity ({procedure} procedure, overall two-sided level {alpha:g})",
+                         labels={"order": "Order", "comparison": "Comparison", "analysis_label": "Analysis",
+                                 "weight": "Weight", "p": "p-value", "adjusted_p": "Adjusted p-value",
+                                 "conclusion": "Conclusion"},
+                         kinds={"p": "p_exact", "adjusted_p": "p_exact", "weight": "general", "order": "count"},
+                         footnotes=[f"Comparisons are each arm minus {reference}. p-values are two-sided; an adjusted "
+                                    f"p-value below {alpha:g} rejects its hypothesis.",
+                                    f"Source: results of run {(results.get('run') or {}).get('id', 'not recorded')}; "
+                                    f"data file SHA-256 {short_hash((results.get('data') or {}).get('sha256'), 12)}…."])
+    section.table(replace(table, display=tuple(c for c in table.display if c.sources != ("id",))))
+    rejected = [r["comparison"] for r in rows if r.get("rejected")]
+    if not rows:
+        return
+    if len(rejected) == len(rows):
+        section.paragraph(f"Conclusion: every hypothesis is rejected at the overall two-sided level {alpha:g} "
+                          f"({'; '.join(rejected)}): the type I error is controlled across all {len(rows)} tests.")
+    elif rejected:
+        section.paragraph(f"Conclusion: {len(rejected)} of {len(rows)} hypotheses are rejected at the overall "
+                          f"two-sided level {alpha:g} ({'; '.join(rejected)}); the others are not.")
+    else:
+        section.paragraph(f"Conclusion: no hypothesis is rejected at the overall two-sided level {alpha:g}.")
 
 
 # --------------------------------------------------------------------------- conformance

@@ -17,8 +17,8 @@ COLUMN_LABELS = {
     "arm": "Arm", "reference": "Compared with", "visit": "Visit", "variable": "Variable",
     "n": "n", "mean": "Mean", "sd": "SD", "median": "Median", "q1": "Lower quartile",
     "q3": "Upper quartile", "min": "Minimum", "max": "Maximum", "estimate": "Estimate",
-    "se": "Std. error", "std_error": "Std. error", "df": "DF", "t": "t", "p": "p-value",
-    "lower": "Lower limit", "upper": "Upper limit", "term": "Model term", "num_df": "Numerator DF",
+    "se": "Standard error", "std_error": "Standard error", "df": "DF", "t": "t", "p": "p-value",
+    "lower": "Lower limit", "upper": "Upper limit", "term": "Effect", "num_df": "Numerator DF",
     "den_df": "Denominator DF", "F": "F", "expected": "Expected", "observed": "Observed",
     "missing": "Missing", "percent_missing": "Missing (%)", "pattern": "Visits observed",
     "count": "Participants", "share": "Share of arm (%)", "monotone": "Monotone",
@@ -85,6 +85,11 @@ class ReportTable:
     wide: bool = False                   # set on a landscape page in the PDF
     number: str = ""                     # "Table 14.2.3", given when the document is assembled
     anchor: str = ""
+    # What makes a table stand alone when pasted elsewhere: the participants per arm it is
+    # about (a header row above the column labels, repeated on every page) and footnotes
+    # (model, covariates, degrees of freedom, confidence level, abbreviations, source).
+    counts: str = ""
+    footnotes: tuple[str, ...] = ()
 
     def header(self) -> list[ReportColumn]:
         return list(self.display)
@@ -163,6 +168,8 @@ def from_results_table(
     intervals: Mapping[str, tuple[str, str]] | None = None,
     note: str = "",
     wide: bool | None = None,
+    counts: str = "",
+    footnotes: Sequence[str] = (),
 ) -> ReportTable:
     """A report table from a results.json table, every column shown unless hidden.
 
@@ -192,7 +199,8 @@ def from_results_table(
     if wide is None:
         wide = len(display) > 9
     return ReportTable(slug=slug, title=title or source.get("title") or slug, columns=columns, rows=rows,
-                       display=tuple(display), number_format=number_format, note=note, wide=wide)
+                       display=tuple(display), number_format=number_format, note=note, wide=wide,
+                       counts=counts, footnotes=tuple(f for f in footnotes if f))
 
 
 def from_records(
@@ -205,6 +213,8 @@ def from_records(
     labels: Mapping[str, str] | None = None,
     kinds: Mapping[str, str] | None = None,
     note: str = "",
+    counts: str = "",
+    footnotes: Sequence[str] = (),
 ) -> ReportTable:
     """A report table built by the report itself (facts, checks, summaries)."""
     rows = [
@@ -212,7 +222,8 @@ def from_records(
         for r in records
     ]
     return from_results_table({"title": title, "columns": list(columns), "data": rows}, slug=slug,
-                              number_format=number_format, labels=labels, kinds=kinds, note=note)
+                              number_format=number_format, labels=labels, kinds=kinds, note=note,
+                              counts=counts, footnotes=footnotes)
 
 
 def rows_as_dicts(source: Mapping[str, Any] | None) -> list[dict[str, Any]]:

@@ -92,7 +92,8 @@ def _run_endpoint(plan, cut, endpoint, context, timer, run_warnings) -> dict[str
         "id": endpoint.id, "label": endpoint.label, "analysed": endpoint.analysed,
         "primary_visit": endpoint.primary_visit, "decimals": endpoint.decimals,
         "population": primary_population,
-        "descriptive": table(describe_by_arm_visit(observed.frame, columns=tuple(columns), **roles),
+        "descriptive": table(_with_baseline_rows(describe_by_arm_visit(observed.frame, columns=tuple(columns), **roles),
+                                                 observed, plan.visits.baseline, roles["arms"]),
                              "Summary statistics by arm and visit (observed data)"),
         "missing_by_visit": table(flow.missing_by_visit(primary_flow, primary_data.arms),
                                   "Missing outcomes by arm and visit (visits not yet due apart)"),
@@ -111,6 +112,23 @@ def _run_endpoint(plan, cut, endpoint, context, timer, run_warnings) -> dict[str
 
 def _trajectory_sample(data, size: int, context: RunContext) -> dict[str, Any]:
     """A seeded sample of participants' observed outcomes for the trajectory figure."""
+def _with_baseline_rows(summary: pd.DataFrame, observed, label: str, arms: list) -> pd.DataFrame:
+    """The summary with a first row per arm for the baseline value, each participant counted once."""
+    from trialcut.stats.descriptive import describe_by_arm_visit
+
+    baseline = observed.baseline
+    if not baseline or baseline not in observed.frame.columns:
+        return summary
+    once = observed.frame.drop_duplicates(observed.subject)[[observed.subject, observed.arm, baseline]]
+    once = once.assign(**{observed.visit: label})
+    rows = describe_by_arm_visit(once, columns=(baseline,), subject=observed.subject, arm=observed.arm,
+                                 visit=observed.visit, visits=[label], arms=arms)
+    order = {arm: position for position, arm in enumerate(arms)}
+    combined = pd.concat([rows, summary], ignore_index=True)
+    keys = pd.DataFrame({"arm": combined["arm"].map(order), "later": combined["visit"] != label})
+    return combined.loc[keys.sort_values(["arm", "later"], kind="stable").index].reset_index(drop=True)
+
+
     subjects = np.array(sorted(data.frame[data.subject].unique()))
     rng = np.random.default_rng(context.seed_sequence("trajectory sample"))
     chosen = set(rng.choice(subjects, size=min(size, len(subjects)), replace=False)) if len(subjects) else set()
