@@ -579,6 +579,33 @@ class Report(Strict):
     trajectories_sample: int = Field(default=60, ge=1, description="Participants drawn for the trajectory figure.")
 
 
+class SignOff(Strict):
+    """What a locked run needs before trialcut calls it final (shown by verify and approve)."""
+
+    signed_locks: bool = Field(default=False, description=(
+        "Every lock record of the plan must carry a valid signature by a key in the keyring."))
+    approvals: int = Field(default=0, ge=0, le=20, description=(
+        "Signed approvals (trialcut approve) by different keys a run needs to be final."))
+    roles: tuple[str, ...] = Field(default=(), description=(
+        "Roles each of which needs at least one approval, e.g. [statistician, reviewer]."))
+
+
+class QcTolerances(Strict):
+    """Largest absolute difference between a run's value and a QC programmer's that still agrees."""
+
+    estimate: float = Field(default=1e-6, ge=0)
+    se: float = Field(default=1e-6, ge=0)
+    df: float = Field(default=1e-4, ge=0, description="Degrees of freedom (approximations differ more).")
+    t: float = Field(default=1e-5, ge=0)
+    p: float = Field(default=1e-6, ge=0)
+    lower: float = Field(default=1e-6, ge=0)
+    upper: float = Field(default=1e-6, ge=0)
+
+
+class QualityControl(Strict):
+    tolerances: QcTolerances = QcTolerances()
+
+
 # --------------------------------------------------------------------------- the plan
 class AnalysisPlan(Strict):
     format: Literal[2] = Field(default=PLAN_FORMAT_VERSION, description="Plan file format version.")
@@ -593,6 +620,8 @@ class AnalysisPlan(Strict):
     endpoints: tuple[Endpoint, ...] = Field(min_length=1)
     multiplicity: Multiplicity = Multiplicity()
     report: Report = Report()
+    sign_off: SignOff = SignOff()
+    qc: QualityControl = QualityControl()
     seed: int = Field(default=20240101, ge=0, lt=2**63, description="Root seed for every random step of a run.")
 
     @field_validator("format", mode="before")
