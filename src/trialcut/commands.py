@@ -333,6 +333,10 @@ def command_verify(args) -> int:
         for line in after:
             console.print(f"  {line}", markup=False)
     _print_leftovers(report.leftovers)
+    from trialcut.commands_approve import verify_signoff
+
+    verify_signoff(args, Path(report.registry), run_id=None if args.run_folder is None
+                   else Path(args.run_folder).resolve().name)
     return 0
 
 
