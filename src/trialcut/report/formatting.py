@@ -18,7 +18,7 @@ from __future__ import annotations
 import math
 import re
 from dataclasses import dataclass
-from decimal import ROUND_HALF_UP, Context, Decimal
+from decimal import ROUND_HALF_UP, Decimal
 from typing import Any, Mapping
 
 STATISTIC_DECIMALS = 2
@@ -89,13 +89,13 @@ class NumberFormat:
             return str(value)
         if kind == "p":
             return self.p_value_text(value)
-        if kind == "share":       # a proportion shown as a percentage
-            return round_half_away(100.0 * value, 1)
-        if kind == "count" and float(value).is_integer():
         if kind == "coefficient":
             return coefficient_text(float(value), self.mean_decimals)
         if kind == "p_exact":     # p-values whose order matters (multiplicity): never "<0.001"
             return p_exact_text(float(value), self.p_value)
+        if kind == "share":       # a proportion shown as a percentage
+            return round_half_away(100.0 * value, 1)
+        if kind == "count" and float(value).is_integer():
             return str(int(value))
         decimals = self.decimals_for(kind)
         if decimals is None:
@@ -109,11 +109,11 @@ class NumberFormat:
 
 TERM_WORDS = {"arm": "Arm", "visit": "Visit", "arm_by_visit": "Arm by visit", "intercept": "Intercept",
               "(Intercept)": "Intercept"}
+# One part of a coefficient name in formula style, e.g. "arm[Lorvatide 10 mg]".
+_LEVELLED = re.compile(r"^\s*(?P<name>[^\[\]]+?)\s*\[(?P<level>[^\]]*)\]\s*$")
 
 
 def term_text(term: str) -> str:
-# One part of a coefficient name in formula style, e.g. "arm[Lorvatide 10 mg]".
-_LEVELLED = re.compile(r"^\s*(?P<name>[^\[\]]+?)\s*\[(?P<level>[^\]]*)\]\s*$")
     """A model term or coefficient in words, whatever naming the statistics layer used.
 
     'BASE_by_visit' reads 'BASE by visit'; formula-style coefficient names never reach the
@@ -186,8 +186,6 @@ def describe_rules(number_format: NumberFormat, *, what: str = "", recorded: Any
     )
 
 
-def short_hash(value: str | None, length: int = 12) -> str:
-    return (value or "")[:length] or "not recorded"
 def _decimals_words(count: int) -> str:
     return f"{count} decimal{'s' if count != 1 else ''}"
 
@@ -205,3 +203,5 @@ def p_exact_text(value: float, decimals: int) -> str:
 SUPERSCRIPTS = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
 
 
+def short_hash(value: str | None, length: int = 12) -> str:
+    return (value or "")[:length] or "not recorded"
