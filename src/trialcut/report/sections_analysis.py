@@ -10,8 +10,9 @@ import numpy as np
 
 from trialcut.report import figures as draw
 from trialcut.report.blocks import Section
+from trialcut.report.context import EndpointContext
 from trialcut.report.figures import FigureImage
-from trialcut.report.formatting import NumberFormat
+from trialcut.report.formatting import NumberFormat, describe_rules, term_text
 from trialcut.report.sections_front import facts_table
 from trialcut.report.tables import from_records, from_results_table, rows_as_dicts
 
@@ -39,7 +40,11 @@ ASSUMPTION_WORDS = {
     "copy_increments_in_reference": "copy increments in reference",
 }
 FACT_LABELS = {"complete_df": "Complete-data DF", "burn_in": "Burn-in iterations",
-               "thinning": "Iterations between imputations", "chains": "Independent chains"}
+               "thinning": "Iterations between imputations", "chains": "Independent chains",
+               "conf_level": "Confidence level", "confidence_level": "Confidence level",
+               "visits": "Visits", "covariates": "Covariates", "outcome": "Outcome column",
+               "reference": "Reference arm", "assumption": "Assumption", "imputations": "Imputations",
+               "alpha": "Two-sided significance level", "visit": "Visit"}
 AVERAGING_RULE = (
     "Model-estimated means set each numeric covariate to its mean over the participants in the fit "
     "(each participant counted once) and average over categorical covariates in their observed proportions."
@@ -53,11 +58,14 @@ FIT_FACTS = (
     ("n_excluded_subjects", "Participants with no observed value (left out)", "count"),
     ("n_subjects_excluded", "Participants with no observed value (left out)", "count"),
     ("iterations", "Iterations", "count"), ("gradient_norm", "Gradient norm at the end", "general"),
+    ("scaled_gradient", "Scaled gradient at the end", "general"),
+    ("tolerance", "Convergence tolerance", "general"), ("robust", "Standard errors of the fixed effects", "text"),
 )
 
 
 def endpoint(section: Section, results, endpoint: Mapping[str, Any], number_format: NumberFormat) -> None:
     context = EndpointContext(results, endpoint, number_format)
+    section.paragraph(describe_rules(number_format, what="this endpoint", recorded=endpoint.get("decimals")))
     missing_data(section.child("missing", "Missing data"), context)
     descriptive(section.child("descriptive", "Descriptive statistics"), context)
     analyses = endpoint.get("analyses") or []
@@ -71,56 +79,27 @@ def endpoint(section: Section, results, endpoint: Mapping[str, Any], number_form
     sensitivity(section.child("sensitivity", "Sensitivity analyses"), context, primary, others)
 
 
-class EndpointContext:
-    """What every part of an endpoint's section needs: labels, arms, visits, decimals."""
-
-    def __init__(self, results, endpoint, number_format: NumberFormat):
-        plan = results.get("plan") or {}
-        self.results, self.endpoint, self.number_format = results, endpoint, number_format
-        self.slug = str(endpoint.get("id") or "endpoint")
-        arms = plan.get("arms") or {}
-        self.arms = [a.get("code") for a in arms.get("list") or []] or _levels(endpoint, "arm")
-        self.reference = arms.get("reference") or (self.arms[0] if self.arms else "")
-        schedule = (plan.get("visits") or {}).get("schedule") or []
-        self.visits = [v.get("label") for v in schedule] or _levels(endpoint, "visit")
-        self.visit_days = {v.get("label"): v.get("day") for v in schedule}
-        self.primary_visit = endpoint.get("primary_visit")
-        self.label = endpoint.get("label") or self.slug
-        self.analysed = endpoint.get("analysed", "change")
-        self.settings = plan.get("report") or {}
-        self.seed = (results.get("run") or {}).get("seed") or 0
-
-    @property
-    def y_label(self) -> str:
-        """Short enough for an axis: the kind of value and the unit in the label's last brackets."""
-        unit = re.search(r"\(([^()]*)\)\s*$", self.label)
-        kind = "Change from baseline" if self.analysed == "change" else "Value"
-        return f"{kind} ({unit.group(1)})" if unit else kind
-
-
-def _levels(endpoint, column: str) -> list[str]:
-    seen: list[str] = []
-    for row in rows_as_dicts(endpoint.get("descriptive")):
-        if row.get(column) not in seen:
-            seen.append(row.get(column))
-    return seen
-
-
 # --------------------------------------------------------------------------- missing data
 def missing_data(section: Section, context: EndpointContext) -> None:
     endpoint, number_format = context.endpoint, context.number_format
     by_visit = endpoint.get("missing_by_visit")
     if by_visit:
-        section.table(from_results_table(by_visit, slug=f"{context.slug}_missing_by_visit",
-                                         title="Missing values by arm and visit", number_format=number_format))
+        section.table(context.standalone(from_results_table(
+            by_visit, slug=f"{context.slug}_missing_by_visit", number_format=number_format,
+            title=context.title("Missing values of the primary analysis by arm and visit")),
+            notes=["Expected: participants due a value at the visit by the data cut; a visit not yet due "
+                   "is not counted as missing."]))
     patterns = endpoint.get("missing_patterns")
     if patterns:
         section.paragraph(
-            "A pattern has one mark per scheduled visit in time order: X where a value was observed, "
-            "a dot where it is missing. A monotone pattern has no observed value after a missing one.")
-        section.table(from_results_table(patterns, slug=f"{context.slug}_missing_patterns",
-                                         title="Participants by pattern of observed visits",
-                                         number_format=number_format))
+            f"A pattern has one mark per scheduled visit in time order, drawn as in Figure 1: {OBSERVED_MARK} "
+            f"where a value was observed, {MISSING_MARK} where it is missing. A monotone pattern has no "
+            "observed value after a missing one.")
+        shown = _with_pattern_marks(patterns)
+        section.table(context.standalone(from_results_table(
+            shown, slug=f"{context.slug}_missing_patterns", number_format=number_format,
+            title=context.title("Participants by pattern of observed visits")),
+            notes=[f"Visits in order: {', '.join(context.visits)}. {OBSERVED_MARK} observed; {MISSING_MARK} missing."]))
         rows = rows_as_dicts(patterns)
         section.figure(_figure(
             "missing_patterns", "Pattern of observed and missing visits by arm",
@@ -131,25 +110,69 @@ def missing_data(section: Section, context: EndpointContext) -> None:
         section.notice("The results carry no missing-data summaries for this endpoint.")
 
 
+# The marks of a pattern, the same as the tiles of the pattern figure (filled: observed).
+OBSERVED_MARK, MISSING_MARK = "■", "□"
+
+
+def _with_pattern_marks(patterns: Mapping[str, Any]) -> dict[str, Any]:
+    """The pattern column in the figure's marks, whatever characters results.json stored."""
+    columns = list(patterns.get("columns") or [])
+    if "pattern" not in columns:
+        return dict(patterns)
+    position = columns.index("pattern")
+    data = [[_marks(v) if i == position else v for i, v in enumerate(row)] for row in patterns.get("data") or []]
+    return {**patterns, "data": data}
+
+
+def _marks(pattern: Any) -> Any:
+    if not isinstance(pattern, str):
+        return pattern
+    return "".join(MISSING_MARK if mark in (".", "-", " ", "0", MISSING_MARK) else OBSERVED_MARK for mark in pattern)
+
+
 # --------------------------------------------------------------------------- descriptive
 def descriptive(section: Section, context: EndpointContext) -> None:
     source = context.endpoint.get("descriptive")
     if not source:
         section.notice("The results carry no descriptive statistics for this endpoint.")
     else:
-        section.paragraph("Observed values only; nothing is imputed or modelled here. SD uses the n − 1 divisor.")
-        section.table(from_results_table(source, slug=f"{context.slug}_descriptive",
-                                         title="Observed values by arm and visit",
-                                         number_format=context.number_format,
-                                         labels={"variable": "Variable"}))
+        population = _lower_first_word(context.population_label(context.population))
+        section.paragraph(
+            f"All values observed in the {population}, as recorded: values after an intercurrent event are "
+            "included, nothing is imputed, set aside by an estimand's strategy or modelled here. The baseline "
+            "row summarises each participant's baseline value once. SD uses the n − 1 divisor.")
+        shown = _with_variable_words(source, context)
+        section.table(context.standalone(from_results_table(
+            shown, slug=f"{context.slug}_descriptive", number_format=context.number_format,
+            title=context.title("Observed values by arm and visit, as recorded"),
+            labels={"variable": "Variable"},
+            intervals={"Quartiles (lower, upper)": ("q1", "q3"), "Range (minimum, maximum)": ("min", "max")}),
+            notes=["Observed data only (no imputation, no estimand strategy applied)."]))
         section.figure(_observed_means_figure(context, rows_as_dicts(source)))
     section.figure(_trajectories_figure(context))
 
 
+def _variable_words(context: EndpointContext) -> dict[str, str]:
+    columns = context.columns
+    return {columns.get("value", "AVAL"): "Value", columns.get("change", "CHG"): "Change from baseline",
+            columns.get("baseline", "BASE"): "Baseline value"}
+
+
+def _with_variable_words(source: Mapping[str, Any], context: EndpointContext) -> dict[str, Any]:
+    """The variable column in words (Value, Change from baseline, Baseline value)."""
+    columns = list(source.get("columns") or [])
+    if "variable" not in columns:
+        return dict(source)
+    position, words = columns.index("variable"), _variable_words(context)
+    data = [[words.get(v, v) if i == position else v for i, v in enumerate(row)] for row in source.get("data") or []]
+    return {**source, "data": data}
+
+
 def _observed_means_figure(context: EndpointContext, rows: list[dict]) -> FigureImage:
-    wanted = "CHG" if context.analysed == "change" else "AVAL"
+    wanted = context.columns.get("change", "CHG") if context.analysed == "change" else context.columns.get("value", "AVAL")
     if any("variable" in r for r in rows):
         rows = [r for r in rows if r.get("variable") == wanted] or rows
+    rows = [r for r in rows if r.get("visit") in context.visits] or rows
     points = []
     for row in rows:
         n, mean, sd = row.get("n"), row.get("mean"), row.get("sd")
@@ -187,14 +210,29 @@ def _trajectories_figure(context: EndpointContext) -> FigureImage:
     sample_size = int(context.settings.get("trajectories_sample") or 60)
     sampled, total = _sample(series, sample_size, context.seed)
     shown = sum(len(v) for v in sampled.values())
-    note = (f"A random sample of {shown} of {total} participants (seed {context.seed}), split evenly across arms."
-            if shown < total else f"All {total} participants.")
+    note = _trajectories_note(context, source, shown, total)
     figure = _figure(
         "trajectories", title,
         f"Line charts, one per arm, of {context.label} over visits for {shown} participants.",
         lambda: draw.trajectories_chart(sampled, arms=context.arms, visits=context.visits,
                                         visit_days=context.visit_days, y_label=context.y_label), context)
     return replace(figure, note=figure.note or note)
+
+
+def _trajectories_note(context: EndpointContext, source: Mapping[str, Any], shown: int, in_table: int) -> str:
+    """Say which participants are drawn: the run draws a random sample of the population first."""
+    population = context.population_label(context.population)
+    in_population = sum(context.population_counts(context.population).values())
+    drawn = re.search(r"(\d+) participants drawn at random", str(source.get("title") or ""))
+    if drawn and in_population and int(drawn.group(1)) < in_population:
+        text = (f"A random sample of {drawn.group(1)} of the {in_population} participants of the {population}, "
+                "drawn by the run with its seed")
+        if shown < int(drawn.group(1)):
+            text += f"; {shown} of them are drawn here" + (" (the others have no observed value)" if shown == in_table else "")
+        return text + "."
+    if shown < in_table:
+        return f"A random sample of {shown} of {in_table} participants (seed {context.seed}), split evenly across arms."
+    return f"All {shown} participants with an observed value" + (f" in the {population}." if population else ".")
 
 
 def _sample(series: dict[str, dict[str, list]], sample_size: int, seed: int):
@@ -224,42 +262,72 @@ def primary_analysis(section: Section, context: EndpointContext, analysis: Mappi
     level = _level_text(options)
     section.paragraph(_model_description(context, analysis))
     section.paragraph(AVERAGING_RULE)
-    section.table(_covariate_summary(context, fit))
+    section.table(_covariate_summary(context, fit, analysis))
     _fallbacks(section, context, fit, options)
     ci = f"{level} confidence interval"
+    model = _model_footnote(context, analysis)
     if tables.get("marginal_means"):
-        section.table(from_results_table(tables["marginal_means"], slug=f"{context.slug}_model_means",
-                                         title="Model-estimated means by arm and visit",
-                                         number_format=number_format, intervals={ci: ("lower", "upper")}))
+        section.table(context.standalone(from_results_table(
+            tables["marginal_means"], slug=f"{context.slug}_model_means", number_format=number_format,
+            title=context.title("Model-estimated means by arm and visit", analysis),
+            intervals={ci: ("lower", "upper")}), analysis, notes=[model, AVERAGING_RULE]))
     if tables.get("differences"):
         section.table(_differences_table(context, tables["differences"], "primary_differences",
-                                         f"Differences from {context.reference} by visit (arm minus reference)", ci))
+                                         context.title(f"Differences from {context.reference} by visit (arm minus "
+                                                       "reference)", analysis), ci, analysis=analysis))
     if tables.get("joint_tests"):
-        section.table(from_results_table(tables["joint_tests"], slug=f"{context.slug}_joint_tests",
-                                         title="Joint tests of the model terms", number_format=number_format,
-                                         kinds={"term": "term"},
-                                         note="Terms: arm, visit, arm by visit, and each covariate "
-                                              "(with its own effect at each visit where the plan asks for it)."))
+        section.paragraph(JOINT_TESTS_WORDS)
+        section.table(context.standalone(from_results_table(
+            _with_term_words(tables["joint_tests"]), slug=f"{context.slug}_joint_tests", number_format=number_format,
+            title=context.title("Tests of each effect in the model, all its coefficients at once", analysis),
+            labels={"term": "Effect tested"}, kinds={"term": "text"}), analysis,
+            notes=[model, "Each row is an F test that the effect is absent (see the text above the table)."]))
     if tables.get("fixed_effects"):
-        section.table(from_results_table(tables["fixed_effects"], slug=f"{context.slug}_fixed_effects",
-                                         title="Fixed-effect estimates", number_format=number_format,
-                                         kinds={"term": "term"}))
+        columns = tables["fixed_effects"].get("columns") or []
+        section.table(context.standalone(from_results_table(
+            _with_term_words(tables["fixed_effects"]), slug=f"{context.slug}_fixed_effects",
+            number_format=number_format, title=context.title("Estimated coefficients of the model", analysis),
+            labels={"term": "Coefficient"},
+            kinds={"term": "text", **{c: "coefficient" for c in ("estimate", "se", "lower", "upper") if c in columns}}),
+            analysis, notes=[model, f"Coefficients compare each level with the first: {context.reference} for the "
+                                    f"arm, {context.visits[0] if context.visits else 'the first visit'} for the "
+                                    "visit; a numeric covariate's coefficient is its slope per unit."]))
     for name in sorted(tables):
         if name.startswith("covariance") or name.startswith("correlation"):
             kind = "sd" if name.startswith("covariance") else "correlation"
             group = name.split("_", 1)[1] if "_" in name else ""
-            title = f"Estimated {name.split('_')[0]} matrix between visits" + (f" ({group})" if group else "")
+            what = f"Estimated {name.split('_')[0]} matrix between visits" + (f" ({group})" if group else "")
             columns = tables[name].get("columns") or []
-            section.table(from_results_table(tables[name], slug=f"{context.slug}_{name}", title=title,
-                                             number_format=number_format,
-                                             kinds={c: kind for c in columns[1:]}))
-    section.table(_model_fit_facts(context, fit))
+            section.table(from_results_table(tables[name], slug=f"{context.slug}_{name}",
+                                             title=context.title(what, analysis), number_format=number_format,
+                                             kinds={c: kind for c in columns[1:]}, labels={"visit": "Visit"}))
+    section.table(_model_fit_facts(context, fit, analysis))
     known = {"marginal_means", "differences", "joint_tests", "fixed_effects"}
     for name, source in tables.items():
         if name not in known and not name.startswith(("covariance", "correlation")):
             section.table(from_results_table(source, slug=f"{context.slug}_{name}", number_format=number_format))
     section.figure(_model_profile_figure(context, tables.get("marginal_means"), level))
     section.figure(_residual_figure(context, analysis))
+
+
+JOINT_TESTS_WORDS = (
+    "The tests of each effect ask, one effect at a time, whether all of its coefficients could be zero: "
+    "Arm, whether the arms' means averaged over the visits are equal; Visit, whether the visits' means "
+    "averaged over the arms are equal; Arm by visit, whether the differences between arms are the same "
+    "at every visit; a covariate, whether it has no effect on the outcome (averaged over the visits when it "
+    "has an effect at each visit). Each is an F test; with Kenward–Roger degrees of freedom the F statistic "
+    "is the scaled one and the denominator degrees of freedom are adjusted."
+)
+
+
+def _with_term_words(source: Mapping[str, Any]) -> dict[str, Any]:
+    """The term column in plain words, so the CSV file reads as the table does."""
+    columns = list(source.get("columns") or [])
+    if "term" not in columns:
+        return dict(source)
+    position = columns.index("term")
+    return {**source, "data": [[term_text(v) if i == position and isinstance(v, str) else v
+                                for i, v in enumerate(row)] for row in source.get("data") or []]}
 
 
 def _model_description(context: EndpointContext, analysis) -> str:
@@ -276,18 +344,98 @@ def _model_description(context: EndpointContext, analysis) -> str:
         for record in fit.get("kenward_roger_parametrisation") or ())
     covariates = list(options.get("covariates") or fit.get("covariates") or [])
     by_visit = list(options.get("covariates_by_visit") or fit.get("covariates_by_visit") or [])
-    covariate_text = ", ".join(covariates) if covariates else "no covariates"
-    if by_visit:
-        covariate_text += f"; with an effect at each visit for {', '.join(by_visit)}"
     robust = " Standard errors of the fixed effects are empirical (sandwich) estimates." if options.get("robust") else ""
+    structure_words = STRUCTURE_WORDS.get(structure, structure)
     return (
-        f"{context.label} was analysed with a mixed model for repeated measures: arm, visit and the "
-        f"arm-by-visit interaction as fixed effects, {covariate_text}, and a "
-        f"{STRUCTURE_WORDS.get(structure, structure)} covariance matrix between visits within a participant, "
+        f"{context.label} was analysed with a mixed model for repeated measures (MMRM). Fixed effects: arm, "
+        f"visit and the arm-by-visit interaction{_covariates_words(context, covariates, by_visit)} "
+        f"Within a participant the visits share {_article(structure_words)} {structure_words} covariance matrix, "
         f"estimated by {method}. Degrees of freedom for tests and intervals: {df_words}. "
         f"Differences are each arm minus {context.reference}; the primary comparison is at "
         f"{context.primary_visit}.{robust}" + (f" {parametrisation}" if parametrisation else "")
+        + " " + _records_words(context, analysis)
     )
+
+
+def _article(word: str) -> str:
+    return "an" if word[:1].lower() in "aeiou" else "a"
+
+
+def _covariates_words(context: EndpointContext, covariates: Sequence[str], by_visit: Sequence[str]) -> str:
+    """Which terms are covariates, what they are, and whether each interacts with visit."""
+    if not covariates and not by_visit:
+        return "; no covariates."
+    baseline = context.columns.get("baseline", "BASE")
+    named = []
+    for name in dict.fromkeys([*covariates, *by_visit]):
+        what = ("the baseline value" if name == baseline else
+                "a stratification factor" if name in context.strata else "")
+        named.append(f"{name} ({what})" if what else name)
+    text = "; covariates: " + ", ".join(named) + "."
+    with_visit = [c for c in by_visit]
+    without = [c for c in covariates if c not in by_visit]
+    if with_visit:
+        text += f" {', '.join(with_visit)} also {'has' if len(with_visit) == 1 else 'have'} an effect at each visit " \
+                "(an interaction with visit)."
+    if without:
+        text += (f" {', '.join(without)} {'has' if len(without) == 1 else 'have'} one effect for all visits "
+                 "(no interaction with visit).")
+    return text
+
+
+def _records_words(context: EndpointContext, analysis: Mapping[str, Any]) -> str:
+    """Which records the model reads, including those on the day of an intercurrent event."""
+    plan = context.results.get("plan") or {}
+    events = {e.get("id"): e.get("label") or e.get("id") for e in plan.get("intercurrent_events") or []}
+    estimand = next((e for e in plan.get("estimands") or [] if e.get("id") == analysis.get("estimand")), None)
+    text = ("Each participant contributes at most one record per scheduled visit (the record in the visit's "
+            "window). A visit on the same day as an intercurrent event, or later, counts as after the event")
+    handled = []
+    for handling in (estimand or {}).get("intercurrent_events") or []:
+        label = _lower_first_word(str(events.get(handling.get("event"), handling.get("event"))))
+        strategy = handling.get("strategy")
+        if strategy == "hypothetical":
+            handled.append(f"after {label} its value is set aside (hypothetical strategy)")
+        elif strategy == "composite":
+            handled.append(f"after {label} its value is set to {handling.get('composite_value')} (composite strategy)")
+        elif strategy:
+            handled.append(f"after {label} its value is kept ({str(strategy).replace('_', ' ')} strategy)")
+    return text + (": " + "; ".join(handled) + "." if handled else ".")
+
+
+def _lower_first_word(text: str) -> str:
+    return text[:1].lower() + text[1:] if len(text) > 1 and not text[1].isupper() else text
+
+
+def _model_footnote(context: EndpointContext, analysis: Mapping[str, Any]) -> str:
+    """The model in one footnote line: method, effects, covariates, structure, df, confidence level."""
+    fit, options = analysis.get("fit") or {}, analysis.get("options") or {}
+    method = analysis.get("method")
+    level = _level_text(options)
+    covariates = list(options.get("covariates") or [])
+    by_visit = list(options.get("covariates_by_visit") or [])
+    covariate_text = (", ".join(covariates + [f"{c} by visit" for c in by_visit]) if covariates or by_visit
+                      else "none")
+    if method == "mmrm":
+        structure = fit.get("structure") or (options.get("covariance") or ["not recorded"])[0]
+        df = fit.get("df_method") or options.get("df") or "not recorded"
+        return (f"Model: MMRM with arm, visit and arm by visit; covariates: {covariate_text}; "
+                f"{STRUCTURE_WORDS.get(structure, structure)} covariance; "
+                f"{str(fit.get('method') or options.get('method') or 'reml').upper()}"
+                + ("; empirical (sandwich) standard errors" if options.get("robust") else "")
+                + f". Degrees of freedom: {DF_WORDS.get(df, df)}. Confidence level: {level}.")
+    if method == "ancova":
+        return (f"Model: ANCOVA at each visit on observed values, with arm and the covariates {covariate_text}. "
+                f"Degrees of freedom: residual. Confidence level: {level}.")
+    if method in ("multiple_imputation", "tipping_point"):
+        return (f"Imputation under {ASSUMPTION_WORDS.get(options.get('assumption'), options.get('assumption'))}, "
+                f"{options.get('imputations', '?')} imputations; each completed dataset analysed by ANCOVA at "
+                f"each visit with covariates {covariate_text}; pooled by Rubin's rules with Barnard–Rubin degrees "
+                f"of freedom. Confidence level: {level}.")
+    return f"Method: {METHOD_WORDS.get(method, method)}. Confidence level: {level}."
+
+
+
 
 
 def _fallbacks(section: Section, context: EndpointContext, fit, options) -> None:
@@ -316,13 +464,14 @@ def _attempt_status(attempt: Mapping[str, Any]) -> str:
     return "used" if attempt.get("converged") else "did not converge"
 
 
-def _covariate_summary(context: EndpointContext, fit: Mapping[str, Any]):
+def _covariate_summary(context: EndpointContext, fit: Mapping[str, Any], analysis: Mapping[str, Any]):
     """The covariate values the model-estimated means average over, when the fit records them."""
     summary = fit.get("covariate_summary")
     if not isinstance(summary, Mapping) or not summary:
         return None
     pairs = [(str(name), _covariate_text(value), "text") for name, value in summary.items() if value is not None]
-    return facts_table(pairs, slug=f"{context.slug}_covariate_values", title="Covariate values used for the means",
+    return facts_table(pairs, slug=f"{context.slug}_covariate_values",
+                       title=context.title("Covariate values used for the model-estimated means", analysis),
                        number_format=context.number_format) if pairs else None
 
 
@@ -337,32 +486,39 @@ def _covariate_text(value: Any) -> str:
     return "; ".join(f"{k}: {v}" for k, v in value.items())
 
 
-def _model_fit_facts(context: EndpointContext, fit: Mapping[str, Any]):
-    pairs, used = [], set()
+def _model_fit_facts(context: EndpointContext, fit: Mapping[str, Any], analysis: Mapping[str, Any]):
+    """The fit's facts, each under a plain label; settings the text already states are left out."""
+    pairs = []
     for key, label, kind in FIT_FACTS:
-        if key in fit and fit[key] is not None and label not in {p[0] for p in pairs}:
-            value = fit[key]
-            if key == "structure":
-                value = STRUCTURE_WORDS.get(value, value)
-            elif key == "df_method":
-                value = DF_WORDS.get(value, value)
-            elif key == "method":
-                value = str(value).upper()
-            pairs.append((label, value, kind))
-            used.add(key)
-    for key, value in fit.items():
-        if key not in used and isinstance(value, (int, float, str, bool)) and key not in ("loglik",):
-            pairs.append((key.replace("_", " ").capitalize(), value, "general" if not isinstance(value, str) else "text"))
+        value = fit.get(key)
+        if value is None or label in {p[0] for p in pairs}:
+            continue
+        if key == "structure":
+            value = STRUCTURE_WORDS.get(value, value)
+        elif key == "df_method":
+            value = DF_WORDS.get(value, value)
+        elif key == "method":
+            value = str(value).upper()
+        elif key == "robust":
+            value = "empirical (sandwich)" if value else "model-based"
+        pairs.append((label, value, kind))
+    level = _level_text(analysis.get("options") or {})
+    if pairs:
+        pairs.append(("Confidence level", level, "text"))
     if not pairs:
         return None
-    return facts_table(pairs, slug=f"{context.slug}_model_fit", title="Fit of the model",
+    return facts_table(pairs, slug=f"{context.slug}_model_fit", title=context.title("Fit of the model", analysis),
                        number_format=context.number_format)
 
 
-def _differences_table(context: EndpointContext, source, slug: str, title: str, ci: str, note: str = ""):
-    return from_results_table(source, slug=f"{context.slug}_{slug}", title=title,
-                              number_format=context.number_format, hide=("reference",),
-                              intervals={ci: ("lower", "upper")}, note=note)
+def _differences_table(context: EndpointContext, source, slug: str, title: str, ci: str, note: str = "", *,
+                       analysis: Mapping[str, Any] | None = None, notes: Sequence[str] = ()):
+    table = from_results_table(source, slug=f"{context.slug}_{slug}", title=title,
+                               number_format=context.number_format, hide=("reference",),
+                               intervals={ci: ("lower", "upper")}, note=note)
+    if analysis is None:
+        return table
+    return context.standalone(table, analysis, notes=[*notes, _model_footnote(context, analysis)])
 
 
 def _model_profile_figure(context: EndpointContext, source, level: str) -> FigureImage | None:
@@ -406,25 +562,36 @@ def _residual_figure(context: EndpointContext, analysis) -> FigureImage:
 def sensitivity(section: Section, context: EndpointContext, primary, others: Sequence[Mapping[str, Any]]) -> None:
     rows = _estimates_at_primary_visit(context, [primary, *others])
     if rows:
+        level = _level_text(primary.get("options") or {})
         section.paragraph(
             f"The primary estimate and every sensitivity estimate at {context.primary_visit}, side by side. "
-            "Each row reads its analysis' table of differences from the reference arm.")
-        summary = from_records(rows, ("label", "method", "arm", "estimate", "se", "lower", "upper", "p"),
-                               slug=f"{context.slug}_estimates_summary",
-                               title=f"Estimated difference from {context.reference} at {context.primary_visit}, "
-                                     "all analyses",
-                               number_format=context.number_format,
-                               labels={"label": "Analysis", "method": "Method"})
-        section.table(from_results_table({"columns": list(summary.columns), "data": list(summary.rows)},
-                                         slug=summary.slug, title=summary.title, number_format=context.number_format,
-                                         labels={"label": "Analysis", "method": "Method"},
-                                         intervals={"Confidence interval": ("lower", "upper")}))
+            "Each row reads its analysis' table of differences from the reference arm; N is the arm's number "
+            "of participants in the analysis' population. The tipping-point analysis is shown at no shift, "
+            "where it is a multiple imputation under missing at random.")
+        columns = ("label", "scope", "arm", "estimate", "se", "df", "lower", "upper", "p")
+        labels = {"label": "Analysis", "scope": "Estimand; population", "arm": "Arm (N)"}
+        summary = from_results_table({"columns": list(columns), "data": [[r[c] for c in columns] for r in rows]},
+                                     slug=f"{context.slug}_estimates_summary", number_format=context.number_format,
+                                     wide=True,
+                                     title=context.title(f"Estimated difference from {context.reference} at "
+                                                         f"{context.primary_visit}, every analysis"),
+                                     labels=labels, intervals={f"{level} confidence interval": ("lower", "upper")})
+        section.table(context.standalone(summary, notes=[
+            f"Differences are each arm minus {context.reference}. Confidence level: {level} in every analysis "
+            "(the tipping-point analysis uses 1 − α). Models and degrees of freedom: see each analysis' section; "
+            "DF is each analysis' own (Kenward–Roger, residual or Barnard–Rubin)."]))
+        favours = context.favours_words()
         section.figure(_figure(
-            "forest", f"Estimates at {context.primary_visit} from every analysis",
+            "forest", f"Estimated difference from {context.reference} at {context.primary_visit} with {level} "
+                      "confidence intervals, every analysis",
             f"Forest plot of {len(rows)} estimated differences from {context.reference} at "
-            f"{context.primary_visit} with confidence intervals; a dashed line marks no difference.",
-            lambda: draw.forest_chart(rows, arms=context.arms,
-                                      x_label=f"Difference from {context.reference}"), context))
+            f"{context.primary_visit} with {level} confidence intervals; a dashed line marks no difference; "
+            "the primary analysis is marked.",
+            lambda: draw.forest_chart(rows, arms=context.arms, x_label=f"Difference from {context.reference} "
+                                      f"(arm minus {context.reference})", favours=favours,
+                                      label=lambda v: context.number_format.cell(v, "mean")), context,
+            note=f"Numbers at the right: estimate ({level} confidence interval). The primary analysis is in bold. "
+                 + (f"Direction: {favours[0]} to the left, {favours[1]} to the right." if favours else "")))
     if not others:
         section.notice("The plan has no sensitivity analyses for this endpoint.")
     for analysis in others:
@@ -444,30 +611,40 @@ def _estimates_at_primary_visit(context: EndpointContext, analyses) -> list[dict
     for analysis in analyses:
         if analysis.get("status") not in (None, "ok"):
             continue
+        label = analysis.get("label") or analysis.get("id")
+        if analysis.get("method") == "tipping_point":   # its differences are the no-shift cell, under MAR
+            label = f"{label}: no shift (multiple imputation, missing at random)"
+        counts = context.population_counts(analysis.get("population"))
         differences = (analysis.get("tables") or {}).get("differences")
         for row in rows_as_dicts(differences):
             if row.get("visit") in (context.primary_visit, None) and row.get("estimate") is not None:
-                rows.append({"label": analysis.get("label") or analysis.get("id"),
-                             "method": METHOD_SHORT.get(analysis.get("method"), str(analysis.get("method"))),
-                             "arm": row.get("arm"), "estimate": row.get("estimate"), "se": row.get("se"),
-                             "lower": row.get("lower"), "upper": row.get("upper"), "p": row.get("p")})
+                n = counts.get(row.get("arm"))
+                rows.append({"label": label, "primary": analysis.get("role") == "primary",
+                             "scope": "; ".join([_short_label(context.estimand_label(analysis.get("estimand"))),
+                                                 context.population_label(analysis.get("population"))]),
+                             "arm": f"{row.get('arm')} (N = {n})" if n is not None else row.get("arm"),
+                             "arm_code": row.get("arm"), "estimate": row.get("estimate"), "se": row.get("se"),
+                             "df": row.get("df"), "lower": row.get("lower"), "upper": row.get("upper"),
+                             "p": row.get("p")})
     return rows
+
+
+def _short_label(label: str) -> str:
+    return re.sub(r"\s*\(.*\)\s*$", "", label).strip() or label
 
 
 def mmrm_sensitivity(section: Section, context: EndpointContext, analysis) -> None:
     """A repeated-measures model as a sensitivity analysis: what differs, its differences and fit."""
     tables, fit = analysis.get("tables") or {}, analysis.get("fit") or {}
     section.paragraph(_model_description(context, analysis))
-    plan = context.results.get("plan") or {}
-    populations = {p.get("id"): p.get("label") for p in plan.get("populations") or []}
-    estimands = {e.get("id"): e.get("label") for e in plan.get("estimands") or []}
     if analysis.get("population"):
-        section.paragraph(f"Population: {populations.get(analysis['population'], analysis['population'])}; "
-                          f"estimand: {estimands.get(analysis.get('estimand'), analysis.get('estimand') or 'none named')}.")
+        section.paragraph(f"Population: {context.population_label(analysis['population'])}; "
+                          f"estimand: {context.estimand_label(analysis.get('estimand'))}.")
     if tables.get("differences"):
         section.table(_differences_table(context, tables["differences"], f"{analysis.get('id')}_differences",
-                                         f"Differences from {context.reference} by visit",
-                                         f"{_level_text(analysis.get('options') or {})} confidence interval"))
+                                         context.title(f"Differences from {context.reference} by visit", analysis),
+                                         f"{_level_text(analysis.get('options') or {})} confidence interval",
+                                         analysis=analysis))
     section.paragraph(_fit_sentence(context, fit))
 
 
@@ -500,53 +677,127 @@ def generic_analysis(section: Section, context: EndpointContext, analysis) -> No
     detail_shown = analysis.get("role") == "primary" or analysis.get("method") not in METHOD_WORDS
     method = analysis.get("method")
     options = analysis.get("options") or {}
-    words = METHOD_WORDS.get(method, f"Method '{method}'")
-    assumption = options.get("assumption") or (analysis.get("fit") or {}).get("assumption")
-    text = f"{words}."
-    if assumption:
-        text += f" Values missing after an intercurrent event are imputed under {ASSUMPTION_WORDS.get(assumption, assumption)}"
-        if options.get("imputations"):
-            text += f", with {options['imputations']} imputations"
-        text += "."
-    if method not in METHOD_WORDS:
-        text += " This method is not described further by this version of the report; its tables follow as recorded."
-    section.paragraph(text)
+    if method == "multiple_imputation":
+        for text in _imputation_words(context, analysis):
+            section.paragraph(text)
+    else:
+        text = f"{METHOD_WORDS.get(method, f'Method {method!r}')}."
+        if method not in METHOD_WORDS:
+            text += " This method is not described further by this version of the report; its tables follow as recorded."
+        section.paragraph(text)
     level = _level_text(options)
     detail = []
     for name, source in (analysis.get("tables") or {}).items():
         if name == "differences":
             section.table(_differences_table(context, source, f"{analysis.get('id')}_differences",
-                                             source.get("title") or "Differences from the reference arm",
-                                             f"{level} confidence interval"))
+                                             context.title(f"Differences from {context.reference} by visit",
+                                                           analysis),
+                                             f"{level} confidence interval", analysis=analysis))
             continue
+        if name == "pooling":
+            source = _pooling_in_our_order(source)
         table = from_results_table(source, slug=f"{context.slug}_{analysis.get('id')}_{name}",
-                                   number_format=context.number_format)
+                                   number_format=context.number_format, labels=POOLING_LABELS,
+                                   title=context.title(POOLING_TITLE if name == "pooling"
+                                                       else str(source.get("title") or name), analysis))
         if detail_shown or name in SENSITIVITY_SHOWN:
-            section.table(table)
+            section.table(context.standalone(table, analysis, notes=[_model_footnote(context, analysis)]))
         else:
             detail.append(table)
     fit = {k: v for k, v in (analysis.get("fit") or {}).items() if isinstance(v, (int, float, str, bool))}
+    if method == "multiple_imputation":
+        fit = {}     # stated in words above
     if fit.get("assumption"):
         fit["assumption"] = ASSUMPTION_WORDS.get(fit["assumption"], fit["assumption"])
+    for key in ("conf_level", "confidence_level"):
+        if key in fit:
+            fit[key] = _level_text({"confidence_level": fit[key]})
     if fit and not detail_shown:
         section.paragraph(_facts_sentence(fit, context.number_format))
     elif fit:
-        section.table(facts_table([(FACT_LABELS.get(k, k.replace("_", " ").capitalize()), v,
+        section.table(facts_table([(_fact_label(k), v,
                                     "text" if isinstance(v, str) else ("count" if isinstance(v, int) else "general"))
                                    for k, v in fit.items()],
                                   slug=f"{context.slug}_{analysis.get('id')}_facts",
-                                  title=f"Settings and facts of {analysis.get('label') or analysis.get('id')}",
+                                  title=context.title("Settings and facts", analysis),
                                   number_format=context.number_format))
     section.csv_only(detail)
+
+
+POOLING_TITLE = "How the imputations add to the variance of each estimate"
+# Our own order: the total first, then its two parts, then what they imply.
+POOLING_ORDER = ("arm", "visit", "total_variance", "within_variance", "between_variance", "monte_carlo_se",
+                 "fraction_missing_information", "relative_increase", "proportion_due_to_missing",
+                 "relative_efficiency", "imputations", "complete_df")
+POOLING_LABELS = {
+    "total_variance": "Variance of the pooled estimate", "within_variance": "Average variance within an imputation",
+    "between_variance": "Variance between imputations", "monte_carlo_se": "Monte Carlo error (√(between / m))",
+    "fraction_missing_information": "Information lost to missing data (fraction)",
+    "relative_increase": "Increase in variance from missing data (relative)",
+    "proportion_due_to_missing": "Part of the variance from missing data",
+    "relative_efficiency": "Efficiency against infinitely many imputations",
+    "imputations": "Imputations (m)", "complete_df": "DF with complete data",
+}
+
+
+def _pooling_in_our_order(source: Mapping[str, Any]) -> dict[str, Any]:
+    """The variance table in our column order, with the Monte Carlo error of each estimate added."""
+    rows = rows_as_dicts(source)
+    for row in rows:
+        if row.get("between_variance") is not None and row.get("imputations"):
+            row["monte_carlo_se"] = math.sqrt(max(row["between_variance"], 0.0) / row["imputations"])
+    present = [c for c in POOLING_ORDER if any(c in r for r in rows)]
+    present += [c for c in (source.get("columns") or []) if c not in present]
+    return {**source, "columns": present, "data": [[r.get(c) for c in present] for r in rows]}
+
+
+def _imputation_words(context: EndpointContext, analysis: Mapping[str, Any]) -> list[str]:
+    """The imputation model, the analysis model run on each completed dataset, and what was imputed."""
+    options, fit = analysis.get("options") or {}, analysis.get("fit") or {}
+    assumption = ASSUMPTION_WORDS.get(options.get("assumption"), options.get("assumption") or "an unrecorded assumption")
+    covariates = ", ".join(options.get("covariates") or []) or "no covariates"
+    own_matrix = ("each arm with its own regression and covariance matrix" if options.get("covariance_by_arm")
+                  else "the arms sharing one covariance matrix, with a mean for each arm and visit")
+    words = [
+        f"Imputation model: the outcome at all {len(context.visits)} scheduled visits is multivariate normal given "
+        f"the arm and the covariates ({covariates}, each with its own effect at each visit), {own_matrix}; "
+        f"parameters are drawn from their posterior by data augmentation ({options.get('chains', '?')} independent "
+        f"chains, {options.get('burn_in', '?')} burn-in iterations, {options.get('thinning', '?')} iterations between "
+        f"imputations), giving {options.get('imputations', '?')} completed datasets. Values missing at or after "
+        f"an intercurrent event are imputed under {assumption}; every other missing value (intermittent or "
+        "administrative) under missing at random."]
+    if options.get("delta") not in (None, 0, 0.0):
+        arms = ", ".join(options.get("delta_arms") or []) or "the active arms"
+        words[0] += (f" Imputed values in {arms} are then shifted by {options['delta']:g}"
+                     + (" at each later visit, cumulatively." if options.get("delta_cumulative") else "."))
+    model = options.get("analysis_model") or "ancova"
+    model_words = ("an analysis of covariance at each visit (outcome on arm and the covariates "
+                   f"{covariates})" if model == "ancova" else
+                   "the repeated-measures model of the primary analysis" if model == "mmrm" else str(model))
+    complete_df = fit.get("complete_df")
+    words.append(f"Analysis model: each completed dataset is analysed by {model_words}; the {options.get('imputations', '?')} "
+                 "results are pooled by Rubin's rules, with Barnard–Rubin degrees of freedom"
+                 + (f" (complete-data degrees of freedom {complete_df:g})." if isinstance(complete_df, (int, float)) else "."))
+    diagnostics = fit.get("diagnostics") or {}
+    if diagnostics.get("imputed_values") is not None:
+        words.append(
+            f"Values imputed: {diagnostics['imputed_values']} in each completed dataset"
+            + (f" (among {diagnostics['participants']} participants)" if diagnostics.get("participants") else "")
+            + f": {diagnostics.get('imputed_after_event', '?')} at or after an intercurrent event, under {assumption}, "
+              f"and {diagnostics.get('imputed_other', '?')} under missing at random.")
+    return words
+
+
+def _fact_label(key: str) -> str:
+    return FACT_LABELS.get(key, key.replace("_", " ").capitalize())
 
 
 def _facts_sentence(fit: Mapping[str, Any], number_format: NumberFormat) -> str:
     """The settings and facts of a sensitivity analysis as one line of text."""
     parts = []
     for key, value in fit.items():
-        label = FACT_LABELS.get(key, key.replace("_", " ").capitalize())
         kind = "text" if isinstance(value, str) else ("count" if isinstance(value, int) else "general")
-        parts.append(f"{label}: {number_format.cell(value, kind)}")
+        parts.append(f"{_fact_label(key)}: {number_format.cell(value, kind)}")
     return "Settings and facts: " + "; ".join(parts) + "."
 
 
@@ -556,66 +807,200 @@ def tipping_point(section: Section, context: EndpointContext, analysis) -> None:
     grid_name = next((n for n, t in tables.items()
                       if {"shift", "active_shift"} & set(t.get("columns") or []) and "estimate" in (t.get("columns") or [])),
                      None)
-    section.paragraph(
-        "Imputed values in the active arm are shifted by each amount in the grid (and, where the plan "
-        "asks, in the reference arm too), and the comparison is repeated. The tipping point is the smallest "
-        f"shift at which the difference is no longer significant at the two-sided level {alpha:g}.")
     if grid_name is None:
         section.notice("The tipping-point analysis carries no grid of shifts.")
         return
     grid = tables[grid_name]
-    cells = [{**c, "shift": c.get("shift", c.get("active_shift"))} for c in rows_as_dicts(grid)]
-    recorded = [r for r in rows_as_dicts(tables.get("tipping_points")) if r.get("statement")]
-    if recorded:   # the run's own reading of the grid, with the shifts it searched
-        section.items([f"{r.get('arm')}: {r['statement']}" for r in recorded])
-    else:
-        for line in _tipping_statements(cells, alpha, context.number_format):
-            section.paragraph(line)
-    visits = {c.get("visit") for c in cells}
-    hidden = ("visit", "reference") if len(visits) == 1 else ("reference",)
-    title = "Tipping-point grid: estimate and p-value for each shift"
-    if hidden:
-        title += f" (at {visits.pop()})"
-    # The map below shows every cell's estimate and conclusion; the grid's numbers are a CSV file.
-    grid_table = from_results_table(grid, slug=f"{context.slug}_tipping_grid", title=title, hide=hidden,
-                                    number_format=context.number_format, wide=True,
-                                    intervals={"Confidence interval": ("lower", "upper")})
+    cells = [{**c, "shift": c.get("shift", c.get("active_shift")), "reference_shift": c.get("reference_shift") or 0.0}
+             for c in rows_as_dicts(grid)]
+    reading = TippingReading(context, analysis, cells, alpha)
+    for text in reading.method_words():
+        section.paragraph(text)
+    section.items(reading.bullets())
     for name, source in tables.items():
         if name == "differences":
-            section.table(_differences_table(context, source, "tipping_base_differences",
-                                             "Differences from the reference arm with no shift", "Confidence interval"))
-        elif name != grid_name:
-            section.table(from_results_table(source, slug=f"{context.slug}_tipping_{name}", hide=("statement",),
-                                             number_format=context.number_format,
-                                             kinds={"tipping_shift": "shift", "base_shift": "shift",
-                                                    "base_significant": "flag", "crossings": "count"},
-                                             labels={"tipping_shift": "Tipping shift",
-                                                     "base_shift": "Smallest shift in the grid",
-                                                     "base_significant": "Significant without a shift",
-                                                     "crossings": "Changes of conclusion in the grid"}))
+            section.table(_differences_table(
+                context, source, "tipping_base_differences",
+                context.title(f"Differences from {context.reference} with no shift (missing at random)", analysis),
+                f"{100 * (1 - alpha):g}% confidence interval", analysis=analysis))
+    section.table(reading.summary_table())
+    # The grid's numbers are a CSV file (listed before the map, so the list never stands alone on a page).
+    visits = {c.get("visit") for c in cells}
+    hidden = ("visit", "reference") if len(visits) == 1 else ("reference",)
+    grid_table = from_results_table(grid, slug=f"{context.slug}_tipping_grid", hide=hidden, wide=True,
+                                    title=context.title("Tipping-point grid: estimate and p-value for each shift"
+                                                        + (f" (at {next(iter(visits))})" if len(visits) == 1 else ""),
+                                                        analysis),
+                                    number_format=context.number_format,
+                                    intervals={f"{100 * (1 - alpha):g}% confidence interval": ("lower", "upper")})
+    section.csv_only([grid_table])
     usable = [c for c in cells if c.get("shift") is not None and c.get("arm") is not None]
     section.figure(_figure(
-        "tipping_map", "Tipping-point map of p-values",
-        f"Heat map of p-values over {len({c['shift'] for c in usable})} shifts in the active arm"
-        f" for {len({c['arm'] for c in usable})} arms; each tile is labelled with the estimated difference.",
+        "tipping_map", f"Tipping-point map: estimated difference from {context.reference} for each pair of shifts, "
+                       "coloured by significance",
+        f"Tile map over {len({c['shift'] for c in usable})} shifts in the active arm and "
+        f"{len({c['reference_shift'] for c in usable})} in the reference arm for {len({c['arm'] for c in usable})} arms; "
+        "each tile is labelled with the estimated difference and coloured by whether it is still significant.",
         lambda: draw.tipping_chart(usable, arms=context.arms, alpha=alpha,
-                                   label=lambda v: context.number_format.cell(v, "mean")), context))
-    section.csv_only([grid_table])
+                                   label=lambda v: context.number_format.cell(v, "mean")), context,
+        note="Tile text: pooled estimated difference (arm minus reference). Colour: whether the two-sided p-value "
+             f"is below {alpha:g}."))
 
 
-def _tipping_statements(cells, alpha: float, number_format: NumberFormat) -> list[str]:
-    lines = []
-    for arm in dict.fromkeys(c.get("arm") for c in cells):
-        line = sorted((c for c in cells if c.get("arm") == arm and not c.get("reference_shift")),
-                      key=lambda c: c.get("shift") or 0.0)
-        tipping = next((c for c in line if c.get("p") is not None and c["p"] >= alpha), None)
+class TippingReading:
+    """The tipping-point grid read for a reviewer: which shift tips each row, in context."""
+
+    def __init__(self, context: EndpointContext, analysis: Mapping[str, Any], cells: list[dict], alpha: float):
+        self.context, self.analysis, self.cells, self.alpha = context, analysis, cells, alpha
+        self.recorded = {(r.get("arm"), r.get("reference_shift") or 0.0): r
+                         for r in rows_as_dicts((analysis.get("tables") or {}).get("tipping_points"))}
+        self.arms = [a for a in dict.fromkeys(c.get("arm") for c in cells) if a is not None]
+        self.reference_shifts = sorted({c["reference_shift"] for c in cells}, key=lambda r: (abs(r), r))
+        self.sd, self.sd_source = _outcome_sd(context)
+
+    def shift_text(self, value: float | None) -> str:
+        return self.context.number_format.cell(value, "shift")
+
+    def row(self, arm: str, reference_shift: float) -> list[dict]:
+        return sorted((c for c in self.cells if c.get("arm") == arm and c["reference_shift"] == reference_shift),
+                      key=lambda c: c["shift"])
+
+    def tipping(self, arm: str, reference_shift: float) -> float | None:
+        """The run's interpolated tipping shift, or the same rule applied to the grid here."""
+        recorded = self.recorded.get((arm, reference_shift))
+        if recorded is not None and "tipping_shift" in recorded:   # the run's reading is the record
+            return None if recorded["tipping_shift"] is None else float(recorded["tipping_shift"])
+        line = self.row(arm, reference_shift)
+        for left, right in zip(line, line[1:]):
+            if None in (left.get("p"), right.get("p")) or (left["p"] < self.alpha) == (right["p"] < self.alpha):
+                continue
+            return left["shift"] + (self.alpha - left["p"]) * (right["shift"] - left["shift"]) / (right["p"] - left["p"])
+        return None
+
+    def method_words(self) -> list[str]:
+        options = self.analysis.get("options") or {}
+        shifts = ", ".join(self.shift_text(s) for s in sorted({c["shift"] for c in self.cells}))
+        reference_shifts = ", ".join(self.shift_text(s) for s in sorted({c["reference_shift"] for c in self.cells}))
+        base = next((c for c in self.cells if c["shift"] == 0 and c["reference_shift"] == 0 and c.get("estimate") is not None), None)
+        words = [
+            f"Multiple imputation under missing at random ({options.get('imputations', '?')} imputations; imputation "
+            "and analysis models as for the other multiple-imputation analyses), repeated with every imputed value "
+            f"in the active arms shifted by δ ({shifts}) and every imputed value in {self.context.reference} shifted "
+            f"by δᵣ ({reference_shifts}). Observed values are never shifted. Each shifted set of completed datasets "
+            f"is analysed and pooled again at {self.context.primary_visit}.",
+            f"The tipping shift of a row (one δᵣ) is where the two-sided p-value crosses α = {self.alpha:g} between "
+            "two neighbouring shifts of the grid, found by linear interpolation of the p-value in the shift: "
+            "δ* = δᵢ + (α − pᵢ)(δᵢ₊₁ − δᵢ)/(pᵢ₊₁ − pᵢ).",
+        ]
+        if base is not None:
+            lower = base["estimate"] < 0
+            better = self.context.better
+            words.append(
+                f"Direction: the estimated differences at no shift are {'negative' if lower else 'positive'} "
+                f"(the active arms {'below' if lower else 'above'} {self.context.reference}"
+                + (f", and {better} values are better for this endpoint" if better else "") + "). "
+                f"A {'positive' if lower else 'negative'} δ (the active arms' imputed values made "
+                f"{'higher' if lower else 'lower'}) and a {'negative' if lower else 'positive'} δᵣ "
+                f"({self.context.reference}'s imputed values made {'lower' if lower else 'higher'}) work against "
+                "the treatment; the grid searches that way.")
+        if self.sd is not None:
+            words.append(f"SD units use the {self.sd_source}, {self.context.number_format.cell(self.sd, 'sd')}.")
+        return words
+
+    def bullets(self) -> list[str]:
+        lines = []
+        for arm in self.arms:
+            for reference_shift in self.reference_shifts:
+                lines.append(self.bullet(arm, reference_shift))
+        return lines
+
+    def bullet(self, arm: str, reference_shift: float) -> str:
+        where = f"{arm}, with {self.context.reference} shifted by δᵣ = {self.shift_text(reference_shift)}"
+        line = self.row(arm, reference_shift)
+        tipping = self.tipping(arm, reference_shift)
+        base = line[0] if line else {}
+        significant = base.get("p") is not None and base["p"] < self.alpha
         if tipping is None:
-            largest = number_format.cell(line[-1]["shift"], "shift") if line else "–"
-            lines.append(f"{arm}: still significant at the largest shift in the grid ({largest}).")
-        else:
-            lines.append(f"{arm}: the difference is no longer significant from a shift of "
-                         f"{number_format.cell(tipping['shift'], 'shift')} in the active arm.")
-    return lines
+            largest = self.shift_text(line[-1]["shift"]) if line else "–"
+            verdict = "significant" if significant else "not significant"
+            return f"{where}: {verdict} at every shift of the grid, up to δ = {largest}."
+        change = "is no longer significant" if significant else "becomes significant"
+        text = f"{where}: the difference {change} from δ ≈ {self.shift_text(tipping)}"
+        context = []
+        if self.sd:
+            context.append(f"{tipping / self.sd:.2f} SD")
+        if base.get("estimate"):
+            context.append(f"{abs(tipping / base['estimate']):.1f} times the size of the estimated difference at "
+                           f"no active shift ({self.context.number_format.cell(base['estimate'], 'mean')})")
+        error = self.monte_carlo(line, tipping)
+        if error:
+            context.append(error)
+        return text + (f" ({'; '.join(context)})" if context else "") + "."
+
+    def monte_carlo(self, line: list[dict], tipping: float) -> str:
+        """The Monte Carlo error near the tipping shift, as a standard error and as a shift."""
+        near = [c for c in line if c.get("monte_carlo_se") is not None]
+        if not near:
+            return ""
+        closest = min(near, key=lambda c: abs(c["shift"] - tipping))
+        slopes = [(b["estimate"] - a["estimate"]) / (b["shift"] - a["shift"]) for a, b in zip(line, line[1:])
+                  if a.get("estimate") is not None and b.get("estimate") is not None and b["shift"] != a["shift"]]
+        slope = abs(sum(slopes) / len(slopes)) if slopes else 0.0
+        text = f"Monte Carlo error of the estimate there {self.context.number_format.cell(closest['monte_carlo_se'], 'sd')}"
+        if slope > 0:
+            text += f", about ±{self.shift_text(closest['monte_carlo_se'] / slope)} in δ"
+        return text
+
+    def summary_table(self):
+        rows = []
+        for arm in self.arms:
+            for reference_shift in self.reference_shifts:
+                line = self.row(arm, reference_shift)
+                tipping = self.tipping(arm, reference_shift)
+                base = line[0] if line else {}
+                rows.append({"arm": arm, "reference_shift": reference_shift, "tipping_shift": tipping,
+                             "tipping_sd": tipping / self.sd if tipping is not None and self.sd else None,
+                             "base_estimate": base.get("estimate"),
+                             "ratio": abs(tipping / base["estimate"]) if tipping is not None and base.get("estimate") else None})
+        columns = ["arm", "reference_shift", "base_estimate", "tipping_shift", "tipping_sd", "ratio"]
+        if self.sd is None:
+            columns.remove("tipping_sd")
+        table = from_records(rows, columns, slug=f"{self.context.slug}_tipping_tipping_points",
+                             title=self.context.title("Shift of the active arms' imputed values at which the "
+                                                      "conclusion changes", self.analysis),
+                             number_format=self.context.number_format,
+                             labels={"reference_shift": f"Shift in {self.context.reference} (δᵣ)",
+                                     "base_estimate": "Estimated difference at δ = 0",
+                                     "tipping_shift": "Tipping shift δ*", "tipping_sd": "δ* in SD units",
+                                     "ratio": "δ* relative to the difference at δ = 0"},
+                             kinds={"reference_shift": "shift", "base_estimate": "mean", "tipping_shift": "shift",
+                                    "tipping_sd": "statistic", "ratio": "percent"})
+        notes = [_model_footnote(self.context, self.analysis).replace("Imputation under", "Imputation under")
+                 + " Shifts are added to imputed values only.",
+                 "δ* is interpolated linearly in the p-value between neighbouring shifts of the grid; "
+                 "– where the conclusion does not change within the grid."]
+        if self.sd is not None:
+            notes.append(f"SD: the {self.sd_source}.")
+        return self.context.standalone(table, self.analysis, notes=notes)
+
+
+def _outcome_sd(context: EndpointContext) -> tuple[float | None, str]:
+    """The outcome's SD at the primary visit: from the primary model's covariance, else observed."""
+    for analysis in context.endpoint.get("analyses") or []:
+        if analysis.get("role") != "primary":
+            continue
+        for row in rows_as_dicts((analysis.get("tables") or {}).get("covariance")):
+            value = row.get(context.primary_visit)
+            if row.get("visit") == context.primary_visit and isinstance(value, (int, float)) and value > 0:
+                return math.sqrt(value), f"residual SD at {context.primary_visit} from the primary model"
+    wanted = context.columns.get("change", "CHG") if context.analysed == "change" else context.columns.get("value", "AVAL")
+    rows = [r for r in rows_as_dicts(context.endpoint.get("descriptive"))
+            if r.get("visit") == context.primary_visit and r.get("variable") in (wanted, None)
+            and r.get("sd") is not None and r.get("n")]
+    if rows:
+        pooled = math.sqrt(sum((r["n"] - 1) * r["sd"] ** 2 for r in rows) / max(1, sum(r["n"] - 1 for r in rows)))
+        return pooled, f"pooled observed SD at {context.primary_visit}"
+    return None, ""
 
 
 # --------------------------------------------------------------------------- shared
@@ -629,7 +1014,7 @@ def _failed(section: Section, analysis) -> bool:
 
 
 def _level_text(options: Mapping[str, Any]) -> str:
-    level = options.get("confidence_level") or 0.95
+    level = options.get("confidence_level") or options.get("conf_level") or 0.95
     return f"{100 * float(level):g}%"
 
 

@@ -110,8 +110,6 @@ def _run_endpoint(plan, cut, endpoint, context, timer, run_warnings) -> dict[str
     return entry
 
 
-def _trajectory_sample(data, size: int, context: RunContext) -> dict[str, Any]:
-    """A seeded sample of participants' observed outcomes for the trajectory figure."""
 def _with_baseline_rows(summary: pd.DataFrame, observed, label: str, arms: list) -> pd.DataFrame:
     """The summary with a first row per arm for the baseline value, each participant counted once."""
     from trialcut.stats.descriptive import describe_by_arm_visit
@@ -129,6 +127,8 @@ def _with_baseline_rows(summary: pd.DataFrame, observed, label: str, arms: list)
     return combined.loc[keys.sort_values(["arm", "later"], kind="stable").index].reset_index(drop=True)
 
 
+def _trajectory_sample(data, size: int, context: RunContext) -> dict[str, Any]:
+    """A seeded sample of participants' observed outcomes for the trajectory figure."""
     subjects = np.array(sorted(data.frame[data.subject].unique()))
     rng = np.random.default_rng(context.seed_sequence("trajectory sample"))
     chosen = set(rng.choice(subjects, size=min(size, len(subjects)), replace=False)) if len(subjects) else set()

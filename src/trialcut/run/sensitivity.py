@@ -79,8 +79,11 @@ def run_tipping_point(data, analysis, context: RunContext) -> dict[str, Any]:
     tables = {
         "differences": table(result.differences(), "Differences from the reference arm with no shift "
                              f"({_assumption_words(options.assumption)})"),
-        "tipping_grid": table(result.grid(), f"Pooled difference at {data.primary_visit} for each shift of "
-                              "the imputed values"),
+        # Monte Carlo standard error of each pooled estimate, √(B/m): the report states how far
+        # the finite number of imputations can move the tipping point.
+        "tipping_grid": table(result.grid().assign(monte_carlo_se=[
+                                  (c.pooled.between_variance / c.pooled.n_imputations) ** 0.5 for c in result.cells]),
+                              f"Pooled difference at {data.primary_visit} for each shift of the imputed values"),
         "tipping_points": table(result.tipping_points(), "Shift at which the conclusion changes"),
     }
     fit = {"assumption": options.assumption, "imputations": options.imputations, "burn_in": options.burn_in,
