@@ -8,6 +8,8 @@
 - ``add_file: <relative path>``       add a file that the manifest does not list
 - ``edit_registry_row: <column>``     change one column of the run's registry row
 - ``delete_registry_row: true``       delete the run's registry row
+- ``untouched: true``                 leave the run as it is (cases about commands that take a
+                                      good run, e.g. qc with a bad QC file)
 
 The registry is edited with plain ``sqlite3``, the way someone with the file would do it,
 not through trialcut.  A setup that cannot be applied raises ValueError, so that a wrong
@@ -15,11 +17,14 @@ case file fails loudly instead of testing nothing.
 """
 from __future__ import annotations
 
+import hashlib
+import json
+import shutil
 import sqlite3
 from pathlib import Path, PurePosixPath
 
 TAMPER_ACTIONS = ("edit_file", "delete_file", "add_file", "edit_registry_row",
-                  "delete_registry_row")
+                  "delete_registry_row", "untouched")
 
 
 def apply_tamper(run_folder: Path, registry_path: Path, setup: dict) -> None:
@@ -36,6 +41,9 @@ def apply_tamper(run_folder: Path, registry_path: Path, setup: dict) -> None:
         _add_file(_inside(run_folder, argument))
     elif action == "edit_registry_row":
         _edit_row(registry_path, run_folder.name, argument)
+    elif action == "untouched":
+        if argument is not True:
+            raise ValueError(f"untouched takes true; got {argument!r}")
     else:
         if argument is not True:
             raise ValueError(f"delete_registry_row takes true; got {argument!r}")
@@ -108,3 +116,53 @@ def _change_registry(registry_path: Path, statement: str, arguments: list) -> No
     connection.close()
     if changed != 1:
         raise ValueError(f"expected to change one registry row; changed {changed}")
+
+
+# --------------------------------------------------------------------------- a forger's tools
+# What someone with write access to the output folder can do without any secret: rewrite
+# files, write a fresh manifest, edit rows and recompute the whole chain.  Written with the
+# standard library only (hashlib, json, sqlite3), from the rule the registry documents.
+def regenerate_manifest(folder: Path) -> str:
+    """Write MANIFEST.sha256 afresh for the folder's files; return the new manifest's SHA-256."""
+    lines = []
+    for path in sorted(p for p in folder.rglob("*") if p.is_file() and p.name != "MANIFEST.sha256"):
+        digest = hashlib.sha256(path.read_bytes()).hexdigest()
+        lines.append(f"{digest}  {path.relative_to(folder).as_posix()}\n")
+    text = "".join(sorted(lines, key=lambda line: line[66:]))
+    (folder / "MANIFEST.sha256").write_text(text, encoding="utf-8", newline="\n")
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def rehash_chain(registry_path: Path) -> None:
+    """Recompute every row's previous_hash and row_hash, as a forger would after an edit."""
+    connection = sqlite3.connect(registry_path)
+    connection.row_factory = sqlite3.Row
+    with connection:
+        rows = [dict(row) for row in connection.execute("SELECT * FROM records ORDER BY seq")]
+        previous = "0" * 64
+        for row in rows:
+            row["previous_hash"] = previous
+            hashed = {key: value for key, value in row.items() if key != "row_hash"}
+            text = json.dumps(hashed, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
+            previous = hashlib.sha256(text.encode("utf-8")).hexdigest()
+            connection.execute("UPDATE records SET previous_hash = ?, row_hash = ? WHERE seq = ?",
+                               [row["previous_hash"], previous, row["seq"]])
+    connection.close()
+
+
+def set_row_field(registry_path: Path, record_id: str, column: str, value: object) -> None:
+    _change_registry(registry_path, f"UPDATE records SET {column} = ? WHERE record_id = ?",
+                     [value, record_id])
+
+
+def erase_newest(registry_path: Path) -> str:
+    """Remove the newest row, its folder and SQLite's memory of its number; return its id."""
+    connection = sqlite3.connect(registry_path)
+    with connection:
+        seq, record_id, folder = connection.execute(
+            "SELECT seq, record_id, folder FROM records ORDER BY seq DESC LIMIT 1").fetchone()
+        connection.execute("DELETE FROM records WHERE seq = ?", [seq])
+        connection.execute("UPDATE sqlite_sequence SET seq = ? WHERE name = 'records'", [seq - 1])
+    connection.close()
+    shutil.rmtree(Path(registry_path).parent / folder)
+    return record_id

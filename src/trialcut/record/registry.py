@@ -197,9 +197,13 @@ class RegistryWriter:
 
 
 @contextmanager
-def registry_writer(registry_path: Path, *, patience: float = RECORD_PATIENCE_SECONDS,
+def registry_writer(registry_path: Path, *, patience: float | None = None,
                     on_wait: Callable[[float], None] | None = None) -> Iterator[RegistryWriter]:
-    """Lock the registry for writing (creating or upgrading it); roll back unless committed."""
+    """Lock the registry for writing (creating or upgrading it); roll back unless committed.
+
+    ``patience`` defaults to RECORD_PATIENCE_SECONDS (read when called, so tests can shorten it).
+    """
+    patience = RECORD_PATIENCE_SECONDS if patience is None else patience
     path = Path(registry_path)
     path.parent.mkdir(parents=True, exist_ok=True)
     with closing(_connect(path, timeout=_POLL_SECONDS)) as connection:
@@ -213,12 +217,14 @@ def registry_writer(registry_path: Path, *, patience: float = RECORD_PATIENCE_SE
                 connection.execute("ROLLBACK")
 
 
-def check_writable(registry_path: Path, *, patience: float = EARLY_PATIENCE_SECONDS,
+def check_writable(registry_path: Path, *, patience: float | None = None,
                    on_wait: Callable[[float], None] | None = None) -> None:
     """Fail now (exit 2) if a run could not be recorded later: locked, unwritable or too new.
 
     Writes nothing: a missing registry is only checked for a writable folder to go in.
+    ``patience`` defaults to EARLY_PATIENCE_SECONDS.
     """
+    patience = EARLY_PATIENCE_SECONDS if patience is None else patience
     path = Path(registry_path)
     if not path.exists():
         _require_writable_folder(path)
@@ -232,7 +238,7 @@ def check_writable(registry_path: Path, *, patience: float = EARLY_PATIENCE_SECO
 
 
 def append_record(registry_path: Path, entry: dict[str, Any], *,
-                  patience: float = RECORD_PATIENCE_SECONDS,
+                  patience: float | None = None,
                   on_wait: Callable[[float], None] | None = None) -> RegistryRow:
     """Append one row (the registry is created if missing) and return it.
 

@@ -36,7 +36,7 @@ from typing import Any, Callable, Iterator
 
 from trialcut.errors import Problem, TrialcutError
 from trialcut.record.manifest import MANIFEST_NAME, sha256_file
-from trialcut.record.registry import (RECORD_PATIENCE_SECONDS, REGISTRY_NAME, ChainPosition,
+from trialcut.record.registry import (REGISTRY_NAME, ChainPosition,
                                       RegistryRow, RegistryWriter, registry_writer, utc_now)
 from trialcut.record.runfolder import (find_temporaries, make_parent, make_temporary,
                                        parse_temporary_name, process_alive, refuse_existing,
@@ -69,7 +69,7 @@ RecordedRun = RecordedFolder
 
 def record_folder(out_root: Path, *, kind: str, study_id: str, group: str, record_id: str,
                   write: Write, entry: dict[str, Any] | None = None,
-                  registry_path: Path | None = None, patience: float = RECORD_PATIENCE_SECONDS,
+                  registry_path: Path | None = None, patience: float | None = None,
                   on_wait: Callable[[float], None] | None = None) -> RecordedFolder:
     """Seal ``<out_root>/<study_id>/<group>/<record_id>/`` filled by ``write`` and register it.
 
