@@ -97,6 +97,7 @@ def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: P
     from trialcut.record.environment import capture_environment
     from trialcut.record.runfolder import new_run_id
     from trialcut.run.context import RunContext
+    from trialcut.run.participant_records import participant_records
     from trialcut.run.runner import StepTimer, participant_hashes, run_plan
 
     started = started or _utc_now()
@@ -125,6 +126,8 @@ def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: P
                 plan_block=_plan_block(loaded, lock),
                 data_block=cut.summary() | {
                     "participant_hashes": participant_hashes(raw.frame, plan.columns.subject),
+                    # What changed, for a later comparison: new visits, edited values, removed records.
+                    "participant_records": participant_records(raw.frame, plan.columns),
                 },
             )
     finally:
@@ -188,7 +191,7 @@ def _record(out_root: Path, plan, cut_label, run_id, results, audit, loaded, raw
         if lock_file.exists():
             shutil.copyfile(lock_file, folder / "plan" / lock_file.name)
         _write_json(folder / "data_manifest.json", {k: v for k, v in results["data"].items()
-                                                      if k != "participant_hashes"})
+                                                      if k not in ("participant_hashes", "participant_records")})
         _write_json(folder / "conformance.json", results["conformance"])
         write_analysis_data(folder, datasets, study_id=plan.study.id, created=results["run"]["started_utc"])
         started = time.perf_counter()
