@@ -33,7 +33,24 @@ def command_check(args) -> int:
     for endpoint in plan.endpoints:
         names = [endpoint.analyses.primary.id] + [a.id for a in endpoint.analyses.sensitivity]
         console.print(f"  endpoint {endpoint.id}: {len(names)} analyses ({', '.join(names)})")
+    _print_estimand_findings(loaded)
     return 0
+
+
+def _print_estimand_findings(loaded) -> None:
+    """Roles and estimand guard-rails: warnings with their place in the plan (the run records them too)."""
+    from rich.markup import escape
+
+    from trialcut.plan.estimand_checks import findings
+
+    for finding in findings(loaded.plan):
+        field, position = finding.field, None
+        while field and position is None:   # the nearest key the plan spells out
+            position = loaded.position(field)
+            field = field.rsplit(".", 1)[0] if "." in field else ""
+        place = f"{loaded.path}:{position[0]}:{position[1]}" if position else str(loaded.path)
+        console.print(f"  [yellow]warning[/yellow] {escape(f'{place} {finding.field}: {finding.message}')}",
+                      soft_wrap=True)
 
 
 def _lock_line(loaded) -> str:

@@ -370,6 +370,15 @@ class AncovaOptions(Strict):
     confidence_level: float = Field(default=0.95, gt=0, lt=1)
 
 
+class AssumptionRule(Strict):
+    """One line of 'assumptions by reason': after this event, for these reasons, this assumption."""
+
+    event: Identifier
+    reasons: tuple[str, ...] | None = Field(default=None, description=(
+        "Values of the event's reason_column this rule covers; leave out to cover every reason."))
+    assumption: ImputationAssumption
+
+
 class _ImputationSettings(Strict):
     """What every analysis by multiple imputation shares."""
 
@@ -381,6 +390,25 @@ class _ImputationSettings(Strict):
         "Independent imputation chains, each with its own burn-in. Part of the random-number "
         "layout: changing it changes the numbers; the worker count never does."))
     covariates: tuple[str, ...] = ()
+    covariate_effects: Literal["by_visit", "common"] = Field(default="by_visit", description=(
+        "How the imputation model's covariates act: by_visit gives each its own effect at each visit; "
+        "common gives one effect at all visits, as a repeated-measures model with covariates but no "
+        "covariates_by_visit has. Match the primary model so the two are congenial."))
+    reason_column: str | None = Field(default=None, description=(
+        "Column with each participant's reason for the event (e.g. DCTREAS or DCSREAS), read by "
+        "assumptions_by_reason."))
+    assumptions_by_reason: tuple[AssumptionRule, ...] = Field(default=(), description=(
+        "Assumptions for values missing after an intercurrent event, chosen by the event and its reason; "
+        "the first rule that matches wins, and 'assumption' covers events no rule names."))
+
+    @model_validator(mode="after")
+    def _reasons_need_a_column(self) -> "_ImputationSettings":
+        if self.reason_column is None and any(rule.reasons is not None for rule in self.assumptions_by_reason):
+            _raise_issues([RuleIssue(("reason_column",), "assumptions chosen by reason need the reason column",
+                                     expected="reason_column: the column holding the reason, e.g. DCTREAS",
+                                     got="none", hint="add reason_column, or drop 'reasons' from the rules",
+                                     code="plan.reason_column")])
+        return self
 
 
 class ImputationOptions(_ImputationSettings):
@@ -407,6 +435,10 @@ class _AnalysisBase(Strict):
     label: str
     estimand: Identifier | None = None
     population: Identifier | None = Field(default=None, description="Overrides the estimand's population.")
+    role: Literal["primary", "sensitivity", "supplementary"] | None = Field(default=None, description=(
+        "ICH E9(R1): sensitivity = the primary estimand under other assumptions about missing data; "
+        "supplementary = another estimand or population. None: primary in the primary slot, otherwise "
+        "sensitivity when estimand and population are the primary's, else supplementary."))
 
 
 class MMRMAnalysis(_AnalysisBase):
@@ -757,6 +789,7 @@ _RULES = (
     (("populations", "intercurrent_events"), ("estimands",), lambda plan: _estimand_references(plan)),
     (("visits", "populations", "estimands"), ("endpoints",), lambda plan: _endpoint_references(plan)),
     (("arms", "visits", "endpoints", "multiplicity"), (), lambda plan: _multiplicity_references(plan)),
+    (("intercurrent_events",), ("endpoints",), lambda plan: _role_and_assumption_references(plan)),
 )
 
 
@@ -827,6 +860,22 @@ def _analysis_references(plan: PlanSections, path, analysis) -> Iterator[RuleIss
                                 code="plan.unknown_visit")
     if isinstance(analysis, ImputationAnalysis):
         yield from _delta_references(plan, path, analysis.options)
+
+
+def _role_and_assumption_references(plan: PlanSections) -> Iterator[RuleIssue]:
+    """Roles fit their slot; assumption rules name declared events."""
+    events = {e.id: e for e in plan.intercurrent_events}
+    for path, analysis in _analysis_paths(plan):
+        primary_slot = path[-1] == "primary"
+        if analysis.role is not None and (analysis.role == "primary") != primary_slot:
+            yield RuleIssue(path + ("role",), f"role {analysis.role!r} does not fit where the analysis is listed",
+                            expected="primary (or nothing) for analyses.primary; sensitivity or supplementary "
+                            "for the others", got=repr(analysis.role), code="plan.role")
+        for position, rule in enumerate(getattr(analysis.options, "assumptions_by_reason", ())):
+            where = path + ("options", "assumptions_by_reason", position)
+            if rule.event not in events:
+                yield _not_declared(where + ("event",), "intercurrent event", rule.event, list(events),
+                                    "plan.unknown_event")
 
 
 def _delta_references(plan: PlanSections, path, options: ImputationOptions) -> Iterator[RuleIssue]:

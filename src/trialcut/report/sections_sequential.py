@@ -36,7 +36,7 @@ def multiplicity_by_look(section: Section, results: Mapping[str, Any], number_fo
         labels={"id": "Hypothesis", "analysis": "Analysis", "weight": "Weight", "p": "Nominal p-value",
                 "local_alpha": "Alpha held", "boundary_z": "Boundary |z|", "boundary_p": "Boundary p-value",
                 "crossed_alone": "Crosses at its own initial alpha", "crossed_adjusted": decision},
-        kinds={"p": "p_exact", "local_alpha": "general", "boundary_z": "general", "boundary_p": "p_exact",
+        kinds={"p": "p_exact", "local_alpha": "general", "boundary_z": "general", "boundary_p": "general",
                "crossed_alone": "flag", "crossed_adjusted": "flag", "weight": "general"}))
     if facts.get("boundaries"):
         section.table(from_results_table(
@@ -45,7 +45,7 @@ def multiplicity_by_look(section: Section, results: Mapping[str, Any], number_fo
                     "cumulative_alpha": "Alpha spent so far", "boundary_z": "Boundary |z|",
                     "boundary_p": "Boundary p-value"},
             kinds={"look": "count", "information_fraction": "general", "cumulative_alpha": "general",
-                   "boundary_z": "general", "boundary_p": "p_exact"}))
+                   "boundary_z": "general", "boundary_p": "general"}))
 
 
 def _look_sentence(record: Mapping[str, Any], facts: Mapping[str, Any]) -> str:

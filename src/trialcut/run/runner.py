@@ -17,6 +17,7 @@ import numpy as np
 import pandas as pd
 
 from trialcut.errors import FitError, ModelSpecificationError
+from trialcut.run import estimand_guard
 from trialcut.run.context import RunContext
 from trialcut.run.methods import METHODS
 from trialcut.data import flow
@@ -66,6 +67,7 @@ def run_plan(plan, cut, context: RunContext, *, plan_block: dict[str, Any], data
         with timer.time(f"endpoint {endpoint.id}"):
             results["endpoints"].append(_run_endpoint(plan, cut, endpoint, context, timer, results["warnings"]))
     results["multiplicity"] = _multiplicity(plan, results, cut)
+    estimand_guard.annotate(plan, results)   # roles, covariate structures, guard-rail warnings
     return results
 
 

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from typing import Any
 
+from trialcut.run.assumption_rules import participant_assumptions
 from trialcut.run.context import RunContext
 from trialcut.run.tables import plain, table
 from trialcut.stats.imputation import impute
@@ -44,6 +45,7 @@ def _entry(tables: dict[str, Any], fit: dict[str, Any]) -> dict[str, Any]:
 
 def run_multiple_imputation(data, analysis, context: RunContext) -> dict[str, Any]:
     options = analysis.options
+    by_participant, rule_facts = participant_assumptions(data, options)
     result = impute(
         _frame_with_event_flag(data), **_roles(data), covariates=tuple(options.covariates),
         assumption=options.assumption, event=EVENT_FLAG, n_imputations=options.imputations,
@@ -51,7 +53,8 @@ def run_multiple_imputation(data, analysis, context: RunContext) -> dict[str, An
         chains=options.chains, delta=options.delta, delta_arms=tuple(options.delta_arms), delta_cumulative=options.delta_cumulative,
         seed_sequence=context.seed_sequence(analysis.id), executor=context.executor,
         confidence_level=options.confidence_level, progress=_progress(context, analysis.id),
-        analysis_model=options.analysis_model,
+        analysis_model=options.analysis_model, covariate_effects=options.covariate_effects,
+        assumption_by_subject=by_participant,
     )
     tables = {
         "differences": table(result.differences(), f"Differences from the reference arm, pooled over "
@@ -61,12 +64,14 @@ def run_multiple_imputation(data, analysis, context: RunContext) -> dict[str, An
     fit = {"assumption": options.assumption, "imputations": options.imputations, "burn_in": options.burn_in,
            "thinning": options.thinning, "chains": result.settings["chains"], "complete_df": result.complete_df,
            "covariates": result.settings["covariates"], "diagnostics": result.diagnostics,
-           "delta": result.settings["delta"], "delta_arms": result.settings["delta_arms"]}
+           "delta": result.settings["delta"], "delta_arms": result.settings["delta_arms"],
+           **_model_facts(options, result.settings, rule_facts)}
     return _entry(tables, fit)
 
 
 def run_tipping_point(data, analysis, context: RunContext) -> dict[str, Any]:
     options = analysis.options
+    by_participant, rule_facts = participant_assumptions(data, options)
     result = tipping_point(
         _frame_with_event_flag(data), **_roles(data), target_visit=data.primary_visit,
         shifts=options.shifts, reference_shifts=options.reference_shifts, covariates=tuple(options.covariates),
@@ -74,7 +79,8 @@ def run_tipping_point(data, analysis, context: RunContext) -> dict[str, Any]:
         burn_in=options.burn_in, thinning=options.thinning, alpha=options.alpha,
         chains=options.chains, covariance_by_arm=options.covariance_by_arm,
         seed_sequence=context.seed_sequence(analysis.id), executor=context.executor,
-        progress=_progress(context, analysis.id),
+        progress=_progress(context, analysis.id), covariate_effects=options.covariate_effects,
+        assumption_by_subject=by_participant,
     )
     tables = {
         "differences": table(result.differences(), "Differences from the reference arm with no shift "
@@ -89,8 +95,22 @@ def run_tipping_point(data, analysis, context: RunContext) -> dict[str, Any]:
     fit = {"assumption": options.assumption, "imputations": options.imputations, "burn_in": options.burn_in,
            "thinning": options.thinning, "chains": result.settings["chains"], "alpha": options.alpha,
            "visit": data.primary_visit, "shifts": result.settings["shifts"],
-           "reference_shifts": result.settings["reference_shifts"], "diagnostics": result.diagnostics}
+           "reference_shifts": result.settings["reference_shifts"], "diagnostics": result.diagnostics,
+           **_model_facts(options, result.settings, rule_facts)}
     return _entry(tables, fit)
+
+
+def _model_facts(options, settings: dict[str, Any], rule_facts: dict[str, Any]) -> dict[str, Any]:
+    """How the imputation model treats covariates, and which assumption each participant got."""
+    effect = "by visit" if options.covariate_effects == "by_visit" else "common to all visits"
+    facts: dict[str, Any] = {
+        "covariate_effects": options.covariate_effects,
+        "imputation_covariate_structure": ", ".join(f"{name} ({effect})" for name in options.covariates)
+                                          or "no covariates"}
+    if rule_facts:
+        facts["assumption_rules"] = rule_facts
+        facts["participants_by_assumption"] = settings.get("participants_by_assumption")
+    return facts
 
 
 def _assumption_words(name: str) -> str:

@@ -900,7 +900,7 @@ def _analysis_model(name: str, options: Mapping[str, str] | None,
                 got=f"{name!r} with options {dict(options or {})}")])
 
 
-def _participants_by_assumption(data: ImputationData, assumption) -> dict[str, int]:
+def participants_by_assumption(data: ImputationData, assumption) -> dict[str, int]:
     """Participants with an intercurrent event, by the assumption their values follow after it."""
     event = data.deviation < len(data.visits)
     names = [rule.name for rule, hit in zip(participant_rules(data, assumption), event) if hit]
@@ -950,7 +950,7 @@ def impute(frame: pd.DataFrame, *, subject: str, arm: str, visit: str, outcome: 
                 "covariance_by_arm": covariance_by_arm, "covariates": list(data.covariate_names),
                 "covariate_effects": covariate_effects, "delta": None if delta is None else np.broadcast_to(np.asarray(delta, float), (len(data.visits),)).tolist(),
                 "delta_arms": list(delta_arms), "delta_cumulative": delta_cumulative,
-                "participants_by_assumption": _participants_by_assumption(data, rules),
+                "participants_by_assumption": participants_by_assumption(data, rules),
                 "analysis": "ancova at each visit" if analysis is None else f"mmrm ({analysis.covariance}, "
                 f"{analysis.method}, df {analysis.df})", "confidence_level": confidence_level}
     return MultipleImputationResult(assumption, reference, data.arms, data.visits, pooled, settings,

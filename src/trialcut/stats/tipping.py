@@ -21,7 +21,7 @@ import numpy as np
 import pandas as pd
 
 from trialcut.errors import ModelSpecificationError, Problem
-from trialcut.stats.imputation import ImputationData, prepare_data, run_imputations
+from trialcut.stats.imputation import ImputationData, participants_by_assumption, prepare_data, run_imputations
 from trialcut.stats.pooling import PooledEstimate, rubin_pool
 
 GRID_COLUMNS = ("arm", "reference", "visit", "active_shift", "reference_shift", "estimate", "se", "df",
@@ -110,7 +110,7 @@ def shift_scenarios(n_arms: int, n_visits: int, shifts: Sequence[float],
 
 
 def tipping_grid(data: ImputationData, *, visit: str, shifts: Sequence[float],
-                 reference_shifts: Sequence[float] | None = None, assumption: str = "mar",
+                 reference_shifts: Sequence[float] | None = None, assumption: str | tuple[str, ...] = "mar",
                  n_imputations: int = 50, burn_in: int = 200, thinning: int = 10,
                  covariance_by_arm: bool = False, alpha: float = 0.05,
                  seed_sequence: np.random.SeedSequence | int = 0, chains: int = 4, executor: Any = None,
@@ -135,7 +135,9 @@ def tipping_grid(data: ImputationData, *, visit: str, shifts: Sequence[float],
             cells.append(TippingCell(arm, shift, reference_shift, pooled))
     points = tuple(_tipping_point(arm, r, [c for c in cells if c.arm == arm and c.reference_shift == r], alpha)
                    for arm in data.arms[1:] for r in reference_shifts)
-    settings = {"assumption": assumption, "n_imputations": n_imputations, "burn_in": burn_in,
+    settings = {"assumption": assumption if isinstance(assumption, str) else "by participant",
+                "participants_by_assumption": participants_by_assumption(data, assumption),
+                "n_imputations": n_imputations, "burn_in": burn_in,
                 "thinning": thinning, "chains": chains, "covariance_by_arm": covariance_by_arm,
                 "covariates": list(data.covariate_names), "covariate_effects": covariate_effects, "shifts": shifts,
                 "reference_shifts": reference_shifts, "analysis": "ancova at each visit"}
@@ -188,8 +190,13 @@ def tipping_point(frame: pd.DataFrame, *, subject: str, arm: str, visit: str, ou
     """Tipping-point grid from a long frame (one row per participant × scheduled visit).
 
     ``options`` are those of :func:`tipping_grid` (assumption, n_imputations, burn_in,
-    thinning, covariance_by_arm, alpha, seed_sequence, chains, executor, progress).
+    thinning, covariance_by_arm, alpha, seed_sequence, chains, executor, progress,
+    covariate_effects) and ``assumption_by_subject`` (participant -> assumption name).
     """
     data = prepare_data(frame, subject=subject, arm=arm, visit=visit, outcome=outcome, visits=visits,
                         reference=reference, covariates=covariates, event=event, arms=arms)
+    by_subject = options.pop("assumption_by_subject", None)
+    if by_subject:   # one assumption per participant, e.g. chosen by the reason for the event
+        default = options.get("assumption", "mar")
+        options["assumption"] = tuple(str(by_subject.get(s, default)) for s in data.subjects)
     return tipping_grid(data, visit=target_visit, shifts=shifts, reference_shifts=reference_shifts, **options)
