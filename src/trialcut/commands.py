@@ -128,6 +128,7 @@ def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: P
         raw = read_cut(data_path)
     with timer.time("check and derive data"):
         cut = prepare_cut(plan, raw, dummy_arms_seed=dummy_arms_seed, cut_off=cut_off)
+    plan, raw = cut.plan, cut.blinded_raw(raw)   # a dry run names the dummy arms only, from here on
     run_id = new_run_id()
     run_block = {
         "id": run_id, "study_id": plan.study.id, "cut": cut_label, "started_utc": started,
@@ -140,7 +141,7 @@ def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: P
             context = RunContext(root_seed=plan.seed, executor=executor, progress=_progress_printer())
             results = run_plan(
                 plan, cut, context, timer=timer, run_block=run_block,
-                plan_block=_plan_block(loaded, lock),
+                plan_block=cut.blind(_plan_block(loaded, lock)),
                 data_block=cut.summary() | {
                     "participant_hashes": participant_hashes(raw.frame, plan.columns.subject),
                     # What changed, for a later comparison: new visits, edited values, removed records.
@@ -155,12 +156,18 @@ def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: P
         "run_id": run_id, "environment": capture_environment(), "seeds": {"root": plan.seed,
                                                                            "dummy_arms": dummy_arms_seed},
         "executor": {"workers": workers, "scheduler": scheduler}, "cut_off": cut.summary()["cut_off"],
-        "lock": lock, "warnings": results["warnings"], "steps": timer.steps,
+        "lock": cut.blind(lock), "warnings": results["warnings"], "steps": timer.steps,
         "plan_problems": [], "conformance_problems": [c for c in results["conformance"].get("checks", [])
                                                       if c.get("status") == "failed"],
     }
     folder = _record(out_root, plan, cut_label, run_id, results, audit, loaded, raw, cut)
     return folder, folder / "report.html"
+
+
+DRY_RUN_PLAN_NOTE = (
+    "This is a blinded dry run with dummy arms. The plan file and its lock record name the real arms, so\n"
+    "they are not copied here; results.json identifies the plan by its SHA-256 (plan.sha256) and shows it\n"
+    "with every arm code and label replaced by its dummy name.\n")
 
 
 def _lock_state(loaded, unlocked: bool) -> dict[str, Any]:
@@ -203,10 +210,13 @@ def _record(out_root: Path, plan, cut_label, run_id, results, audit, loaded, raw
         audit["registry_seq"], audit["registry_follows"] = position.seq, position.previous_hash
         _write_json(folder / "results.json", results)
         (folder / "plan").mkdir()
-        (folder / "plan" / Path(loaded.path).name).write_text(loaded.text, encoding="utf-8")
-        lock_file = Path(str(loaded.path) + ".lock.json")
-        if lock_file.exists():
-            shutil.copyfile(lock_file, folder / "plan" / lock_file.name)
+        if cut.blinding is not None:   # the plan and its lock name the real arms: a dry run leaves them out
+            (folder / "plan" / "LEFT_OUT.txt").write_text(DRY_RUN_PLAN_NOTE, encoding="utf-8")
+        else:
+            (folder / "plan" / Path(loaded.path).name).write_text(loaded.text, encoding="utf-8")
+            lock_file = Path(str(loaded.path) + ".lock.json")
+            if lock_file.exists():
+                shutil.copyfile(lock_file, folder / "plan" / lock_file.name)
         _write_json(folder / "data_manifest.json", {k: v for k, v in results["data"].items()
                                                       if k not in ("participant_hashes", "participant_records")})
         _write_json(folder / "conformance.json", results["conformance"])

@@ -34,6 +34,7 @@ import pandas as pd
 from trialcut.data.conformance import (ANALYSIS_VISIT, CHOSEN, ROLE, ROW, ConformanceReport, check_cut,
                                        subject_level_columns)
 from trialcut.data.cutoff import CutOff, due_flags, resolve_cut_off
+from trialcut.data.dummy_arms import ArmBlinding, allocate, blind_raw, blinding_for
 from trialcut.data.readers import RawCut
 from trialcut.errors import PlanError, Problem
 
@@ -107,6 +108,7 @@ class DataCut:
     dummy_arms_seed: int | None = None
     reason_column: str | None = None
     cut_off: CutOff | None = None
+    blinding: ArmBlinding | None = None
 
     # ------------------------------------------------------------------ summaries
     def summary(self) -> dict[str, Any]:
@@ -116,6 +118,19 @@ class DataCut:
         data["participants"] = int(len(self.subjects))
         data["cut_off"] = (self.cut_off or CutOff(None, "none", None)).to_dict()
         return data
+
+    def blind(self, value: Any) -> Any:
+        """``value`` (text, or dicts and lists of it) with every real arm name replaced, in a dry run."""
+        return self.blinding.deep(value) if self.blinding is not None else value
+
+    def blinded_raw(self, raw: RawCut) -> RawCut:
+        """``raw`` as a dry run may show it: each participant's treatment column holds their dummy arm."""
+        if self.blinding is None:
+            return raw
+        cols = self.plan.columns
+        arms = dict(zip(self.subjects[cols.subject], self.subjects[cols.arm]))
+        frame = raw.frame.assign(**{cols.arm: raw.frame[cols.subject].map(arms)})
+        return RawCut(frame, dict(raw.manifest), raw.first_row, raw.row_word, raw.typed)
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-able: the data summary, every check and every derivation (no records)."""
@@ -326,7 +341,15 @@ def prepare_cut(plan, raw: RawCut, dummy_arms_seed: int | None = None, cut_off: 
     """Check ``raw`` against ``plan`` (DataError on any error-severity failure) and derive.
 
     ``cut_off``: the database cut-off (default: the latest date in the data, with a note).
+    ``dummy_arms_seed``: a blinded dry run (see :mod:`trialcut.data.dummy_arms`): the cut's
+    treatment column, if any, is never read; the returned cut's ``plan`` names the dummy arms
+    and ``blinding`` blinds anything else that might name a real arm.
     """
+    blinding = None
+    if dummy_arms_seed is not None:
+        blinding = blinding_for(plan)
+        plan = blinding.plan(plan)
+        raw = blind_raw(raw, plan.columns.arm, plan.arms.reference)
     resolved = resolve_cut_off(plan, raw, cut_off, today)
     checked = check_cut(plan, raw)
     log = list(checked.derivations)
@@ -338,7 +361,7 @@ def prepare_cut(plan, raw: RawCut, dummy_arms_seed: int | None = None, cut_off: 
         subjects, records = _dummy_arms(plan, subjects, records, dummy_arms_seed, log)
     return DataCut(plan=plan, manifest=dict(raw.manifest), records=records, subjects=subjects,
                    conformance=checked.report, derivations=tuple(log),
-                   dummy_arms_seed=dummy_arms_seed, reason_column=reason, cut_off=resolved)
+                   dummy_arms_seed=dummy_arms_seed, reason_column=reason, cut_off=resolved, blinding=blinding)
 
 
 def _derive_baseline_and_change(plan, work: pd.DataFrame, log: list[dict[str, Any]]) -> pd.DataFrame:
@@ -409,21 +432,16 @@ def _constant_within(records: pd.DataFrame, subject: str, column: str) -> bool:
 
 def _dummy_arms(plan, subjects: pd.DataFrame, records: pd.DataFrame, seed: int,
                 log: list[dict[str, Any]]) -> tuple[pd.DataFrame, pd.DataFrame]:
-    """Permute the participants' arms at random (within strata): sizes stay, the link is broken."""
+    """Allocate dummy arms at random in permuted blocks within strata (the real arms are never read)."""
     subject, arm = plan.columns.subject, plan.columns.arm
     strata = [s for s in plan.arms.strata if s in subjects.columns]
-    generator = np.random.default_rng(np.random.SeedSequence(seed))
     subjects = subjects.sort_values(subject, kind="stable").reset_index(drop=True)
-    dummy = subjects[arm].copy()
-    # Strata in sorted order and participants sorted by id: the draw depends on the seed only.
-    groups = [group.index for _, group in subjects.groupby(strata, sort=True, dropna=False)] if strata \
-        else [subjects.index]
-    for index in groups:
-        dummy.loc[index] = generator.permutation(subjects.loc[index, arm].to_numpy())
+    dummy = allocate(subjects, subject, strata, plan.arm_codes, seed)
     subjects = subjects.assign(**{arm: dummy})
     records = records.assign(**{arm: records[subject].map(dict(zip(subjects[subject], dummy)))})
     log.append({"step": "dummy_arms", "seed": int(seed), "count": int(len(subjects)),
-                "reason": "arms replaced by a seeded random permutation of the participants' arms"
+                "reason": "dummy arms " + ", ".join(plan.arm_codes) + " allocated at random in permuted blocks"
                           + (f" within strata {', '.join(strata)}" if strata else "")
-                          + " (blinded dry run: results carry no treatment information)"})
+                          + "; the data's treatment column, if any, was not read (blinded dry run: results "
+                            "carry no treatment information)"})
     return subjects, records
