@@ -98,7 +98,7 @@ def test_unparseable_dates_are_refused_with_their_rows():
         prepare_cut(_plan(), raw(frame), today=TODAY)
     problem = caught.value.problems[0]
     assert problem.code == "data.unparseable_date" and problem.field == "RANDDT"
-    assert problem.rows[0]["subject"] == "S2" and "10/01/2026x" in problem.rows[0]["value"]
+    assert problem.rows[0] == "record 3 (S2): '10/01/2026x'"
 
 
 def test_a_number_is_not_a_date():

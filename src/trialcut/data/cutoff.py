@@ -154,11 +154,12 @@ def _participant_dates(plan, raw: RawCut, column: str) -> dict[Any, dt.date]:
     return {key: value.date() for key, value in first.items()}
 
 
-def _rows(raw: RawCut, mask: pd.Series, subject: str, column: str) -> tuple[dict[str, Any], ...]:
+def _rows(raw: RawCut, mask: pd.Series, subject: str, column: str) -> tuple[str, ...]:
+    """The first offending rows as the conformance checks write them: where (participant): value."""
     positions = np.flatnonzero(mask.to_numpy())[:SHOWN_ROWS]
-    return tuple({"row": int(p + raw.first_row), "where": f"{raw.row_word} {int(p + raw.first_row)}",
-                  "subject": str(raw.frame[subject].iloc[p]) if subject in raw.frame.columns else None,
-                  "value": str(raw.frame[column].iloc[p])} for p in positions)
+    who = (lambda p: f" ({raw.frame[subject].iloc[p]})") if subject in raw.frame.columns else (lambda p: "")
+    return tuple(f"{raw.row_word} {int(p + raw.first_row)}{who(p)}: {str(raw.frame[column].iloc[p])!r}"
+                 for p in positions)
 
 
 def _date_span(plan, raw: RawCut, randomisation: dict[Any, dt.date]) -> tuple[dt.date | None, dt.date | None]:
