@@ -54,13 +54,13 @@ def test_term_names_are_readable(fit):
     terms = list(fit.fixed_effects.term)
     assert terms[:5] == ["Intercept (TAU at 2m)", "BtheB vs TAU at 2m", "4m vs 2m in TAU", "6m vs 2m in TAU",
                          "8m vs 2m in TAU"]
-    assert "BtheB vs TAU: change in the difference from 2m to 8m" in terms
+    assert "BtheB vs TAU, 8m minus 2m" in terms
     assert "drug: Yes vs No" in terms and "BASE (per unit) at 2m" in terms
-    assert "BASE (per unit): change in the effect from 2m to 4m" in terms
+    assert "BASE (per unit), 4m minus 2m" in terms
     assert not any("[" in term or "]" in term for term in terms)
     assert len(set(terms)) == len(terms)
     keys = list(fit.term_keys)
-    assert keys[terms.index("BtheB vs TAU: change in the difference from 2m to 8m")] == {
+    assert keys[terms.index("BtheB vs TAU, 8m minus 2m")] == {
         "effect": "arm_by_visit", "arm": "BtheB", "visit": "8m"}
     assert keys[terms.index("drug: Yes vs No")] == {"effect": "drug", "covariate": "drug", "level": "Yes"}
     assert {key["effect"] for key in keys} - {"intercept"} == set(fit.joint_tests().term)

@@ -304,7 +304,8 @@ def _term_names(arms, visits, coder: _CovariateCoder):
 
     The columns are treatment-coded against the reference arm and the first visit, so each label
     says what its coefficient compares: an arm column is the difference at the first visit, an
-    arm-by-visit column how that difference changes from the first visit to a later one."""
+    arm-by-visit column "A vs R, V minus V1" the difference at visit V minus the difference at the
+    first visit V1 (and likewise for a covariate's effect at each visit)."""
     reference, first = arms[0], visits[0]
     names: list[str] = [f"Intercept ({reference} at {first})"]
     keys: list[dict[str, Any]] = [{"effect": "intercept"}]
@@ -318,7 +319,7 @@ def _term_names(arms, visits, coder: _CovariateCoder):
 
     add("arm", [(f"{a} vs {reference} at {first}", {"arm": a}) for a in arms[1:]])
     add("visit", [(f"{v} vs {first} in {reference}", {"visit": v}) for v in visits[1:]])
-    add("arm_by_visit", [(f"{a} vs {reference}: change in the difference from {first} to {v}", {"arm": a, "visit": v})
+    add("arm_by_visit", [(f"{a} vs {reference}, {v} minus {first}", {"arm": a, "visit": v})
                          for a in arms[1:] for v in visits[1:]])
     described = [(name, _covariate_words(coder, name, level),
                   {"covariate": name} if level is None else {"covariate": name, "level": _scalar(level)}, by)
@@ -327,8 +328,7 @@ def _term_names(arms, visits, coder: _CovariateCoder):
         add(name, [(words + (f" at {first}" if by else ""), key)])
     for name, words, key, by in described:
         if by:
-            add(f"{name}_by_visit", [(f"{words}: change in the effect from {first} to {v}", {**key, "visit": v})
-                                     for v in visits[1:]])
+            add(f"{name}_by_visit", [(f"{words}, {v} minus {first}", {**key, "visit": v}) for v in visits[1:]])
     covariate_columns = {name: blocks[name] for name, _ in coder.columns}
     return tuple(names), tuple(keys), {k: v for k, v in blocks.items() if v}, covariate_columns
 
