@@ -67,7 +67,7 @@ def test_unlocked_run_is_marked_everywhere(two_runs):
     assert results["run"]["unlocked"] is True and results["plan"]["lock_status"] == "unlocked"
     assert "unlocked" in (folder / "report.html").read_text(encoding="utf-8").lower()
     with sqlite3.connect(out / "registry.sqlite") as connection:
-        statuses = {row[0] for row in connection.execute("select lock_status from runs")}
+        statuses = {row[0] for row in connection.execute("select lock_status from records where kind = 'run'")}
     assert statuses == {"unlocked"}
 
 
