@@ -44,8 +44,8 @@ def week12_analysis_set(data: pd.DataFrame) -> pd.DataFrame:
     return chosen[chosen["change"].notna() & chosen["BASE"].notna()]
 
 
-def arm_differences(analysed: pd.DataFrame) -> list[dict[str, float | str]]:
-    arms = sorted(a for a in analysed["TRT01P"].unique() if a != REFERENCE)
+def arm_differences(analysed: pd.DataFrame, reference: str = REFERENCE) -> list[dict[str, float | str]]:
+    arms = sorted(a for a in analysed["TRT01P"].unique() if a != reference)
     strata = sorted(analysed["STRAT1R"].unique())[1:]
     columns = [np.ones(len(analysed))]
     columns += [(analysed["TRT01P"] == arm).to_numpy(float) for arm in arms]
