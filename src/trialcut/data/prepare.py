@@ -175,6 +175,39 @@ class DataCut:
                                                if primary.estimand else None)
         return _find(self.plan.populations, population_id, "population") if population_id else None
 
+    def visit_assignment(self) -> pd.DataFrame:
+        """Post-baseline records per analysis visit, by what the visit assignment did with them.
+
+        With windowing on, a record is kept at the visit it was recorded as, moved to another
+        visit whose window holds its study day, or placed by its study day when its own label is
+        not a scheduled visit (an unscheduled visit); records not analysed are counted with the
+        reason (another record closer to the planned day, or outside every window).  With
+        windowing off every analysed record stays at the visit the data names.
+        """
+        plan, cols = self.plan, self.plan.columns
+        post = self.records[self.records[ROLE_COLUMN] == "post"]
+        scheduled = set(plan.visit_labels)
+        rows = []
+        for visit in plan.visit_labels:
+            collected = post.loc[post[cols.visit] == visit, VISIT_COLLECTED]
+            if not plan.visits.windowing:
+                rows.append((visit, "kept at the visit the data names (no windowing)", int(len(collected))))
+                continue
+            rows.append((visit, "kept at the visit it was recorded as", int((collected == visit).sum())))
+            rows.append((visit, "moved here from another scheduled visit: its study day is in this visit's window",
+                         int((collected.isin(scheduled) & (collected != visit)).sum())))
+            rows.append((visit, "placed here by its study day: recorded under a label outside the schedule",
+                         int((~collected.isin(scheduled)).sum())))
+            rejected = sum(len(e.get("rejected_days") or []) for e in self.derivations
+                           if e.get("step") == "visit_window" and e.get("visit") == visit)
+            rows.append((visit, "not analysed: another record of the participant is closer to the planned day",
+                         int(rejected)))
+        if plan.visits.windowing:
+            outside = sum(len(e.get("rejected_days") or []) for e in self.derivations
+                          if e.get("step") == "visit_window" and e.get("visit") is None)
+            rows.append(("(no visit)", "not analysed: the study day is outside every visit window", int(outside)))
+        return pd.DataFrame(rows, columns=["visit", "what_happened", "records"])
+
     def _arm_order(self) -> list[str]:
         return list(self.plan.arm_codes)
 

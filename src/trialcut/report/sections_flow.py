@@ -20,6 +20,7 @@ LONGEST_LISTING = 40
 def flow_section(results: Mapping[str, Any], number_format: NumberFormat) -> Section:
     section = Section("flow", "Cut-off, visits due and participant flow")
     cut_off(section, results)
+    visit_assignment(section, results, number_format)
     for position, endpoint in enumerate(results.get("endpoints") or []):
         for index, entry in enumerate(endpoint.get("flow") or []):
             _flow_table(section, endpoint, entry, f"flow_{position + 1}_{index + 1}", number_format)
@@ -99,3 +100,26 @@ def _left_out(section: Section, endpoint, entry, slug: str, number_format: Numbe
         section.table(table)
     else:
         section.csv_only([table])
+
+
+def visit_assignment(section: Section, results: Mapping[str, Any], number_format: NumberFormat) -> None:
+    """How records became analysis visits: kept, moved by their study day, or not analysed."""
+    source = results.get("visit_assignment")
+    if not source or not source.get("data"):
+        return
+    windowing = ((results.get("plan") or {}).get("visits") or {}).get("windowing")
+    part = section.child("visits", "How records were assigned to visits")
+    rows = rows_as_dicts(source)
+    moved = sum(r["records"] for r in rows if str(r["what_happened"]).startswith(("moved", "placed")))
+    if windowing:
+        part.paragraph(f"The plan assigns records to visits by their study day (visit windows): {moved} analysed "
+                       "record(s) sit at a visit other than the one they were recorded as. The plan switch "
+                       "visits.windowing: false keeps the visits as the data names them (for example an analysis "
+                       "dataset's AVISIT) instead.")
+    else:
+        part.paragraph("The plan keeps the visits as the data names them (visits.windowing: false): no record was "
+                       "moved.")
+    part.table(from_results_table(source, slug="visit_assignment", number_format=number_format,
+                                  title="Post-baseline records by analysis visit and what the assignment did",
+                                  labels={"visit": "Visit", "what_happened": "What happened", "records": "Records"},
+                                  kinds={"visit": "text", "what_happened": "text", "records": "count"}))

@@ -58,6 +58,8 @@ def run_plan(plan, cut, context: RunContext, *, plan_block: dict[str, Any], data
         "conformance": plain(cut.conformance.to_dict()) | {"derivations": plain(list(cut.derivations))},
         "populations": table(cut.population_counts(), "Participants in each analysis population"),
         "disposition": table(cut.disposition(), "Disposition by arm"),
+        "visit_assignment": table(cut.visit_assignment(), "Post-baseline records by analysis visit and what the visit "
+                                   "assignment did with them"),
         "endpoints": [],
         "warnings": [],
     }
