@@ -197,6 +197,8 @@ def required_columns(plan) -> dict[str, str]:
               cols.visit: "visit label", cols.value: "measured value"}
     if plan.visits.windowing and cols.study_day:
         needed[cols.study_day] = "study day (the plan assigns visits by windows)"
+    if not plan.visits.windowing and cols.analysis_flag:
+        needed[cols.analysis_flag] = "analysis flag (the plan keeps the data's own visit assignment)"
     if cols.parameter and any(e.parameter for e in plan.endpoints):
         needed[cols.parameter] = "parameter code (the plan selects endpoints by it)"
     for population in plan.populations:
@@ -250,7 +252,7 @@ def numeric_columns(plan) -> list[str]:
 
 def text_columns(plan) -> list[str]:
     cols = plan.columns
-    names = [cols.subject, cols.arm, cols.visit, cols.baseline_flag, cols.parameter]
+    names = [cols.subject, cols.arm, cols.visit, cols.baseline_flag, cols.parameter, cols.analysis_flag]
     names += [p.flag for p in plan.populations if p.flag] + list(plan.arms.strata)
     return list(dict.fromkeys(n for n in names if n))
 
@@ -575,17 +577,32 @@ def _check_known_visits(state: _State) -> None:
     if not state.has(visit):
         state.record("known_visits", "visit labels not in the plan", "error")
         return
-    post = state.work[ROLE] == "post"
+    post = (state.work[ROLE] == "post") & _flagged_for_analysis(state)
     mask = post & ~state.work[visit].isin(state.plan.visit_labels)
     unknown = sorted(set(state.work.loc[mask, visit].dropna().astype(str)))
     description = "visit labels not in the plan"
     if mask.any():
         description = "visit labels not in the plan: " + (", ".join(map(repr, unknown)) or "(blank)")
-    state.record("known_visits", description, "error", mask, field=visit, value_column=visit,
+    # The plan may trust the data's own assignment and leave records at other labels out (counted).
+    severity = "warning" if state.plan.visits.other_labels == "leave_out" else "error"
+    state.record("known_visits", description, severity, mask, field=visit, value_column=visit,
                  hint=f"the plan's visits are {state.plan.visits.baseline}, {', '.join(state.plan.visit_labels)}"
                       " (or turn on windowing by study day)")
     assigned = ~mask & post
     state.work.loc[assigned, ANALYSIS_VISIT] = state.work.loc[assigned, visit]
+
+
+def _flagged_for_analysis(state: _State) -> pd.Series:
+    """Records the data's own analysis flag keeps (every record when the plan maps no flag)."""
+    flag = state.columns.analysis_flag
+    if not flag or state.plan.visits.windowing or not state.has(flag):
+        return pd.Series(True, index=state.work.index)
+    kept = state.work[flag] == "Y"
+    left_out = int(((state.work[ROLE] == "post") & ~kept).sum())
+    if left_out:
+        state.log.append({"step": "analysis_flag", "count": left_out,
+                          "reason": f"post-baseline records without {flag} = Y are not analysed (the data's own choice)"})
+    return kept
 
 
 def _check_one_per_visit(state: _State) -> None:

@@ -206,6 +206,13 @@ class DataCut:
             outside = sum(len(e.get("rejected_days") or []) for e in self.derivations
                           if e.get("step") == "visit_window" and e.get("visit") is None)
             rows.append(("(no visit)", "not analysed: the study day is outside every visit window", int(outside)))
+        else:
+            unflagged = sum(int(e.get("count") or 0) for e in self.derivations if e.get("step") == "analysis_flag")
+            if cols.analysis_flag:
+                rows.append(("(no visit)", f"not analysed: not flagged {cols.analysis_flag} = Y in the data",
+                             unflagged))
+            other = sum(c.count for c in self.conformance.checks if c.id == "known_visits" and c.severity == "warning")
+            rows.append(("(no visit)", "not analysed: the visit label is not in the schedule", int(other)))
         return pd.DataFrame(rows, columns=["visit", "what_happened", "records"])
 
     def _arm_order(self) -> list[str]:

@@ -167,6 +167,9 @@ class Columns(Strict):
         "Column with each participant's randomisation (or first-dose) date, ISO 8601 (ADaM RANDDT or "
         "TRTSDT). With it a visit is due at the cut-off when date + planned day − 1 + window is on or "
         "before the cut-off; without it the report says due-ness could not be judged."))
+    analysis_flag: str | None = Field(default=None, description=(
+        "Without windowing: a column (ADaM ANL01FL) whose value Y marks the one record per participant and "
+        "visit the data's own assignment analyses; other post-baseline records are left out and counted."))
 
 
 # --------------------------------------------------------------------------- arms, visits
@@ -213,7 +216,12 @@ class Visit(Strict):
 
 class Visits(Strict):
     baseline: str = Field(default="Baseline", description="Label of the baseline visit in the visit column.")
-    windowing: bool = Field(default=False, description="Assign records to visits from the study day column.")
+    windowing: bool = Field(default=False, description=(
+        "true: assign records to visits by their study day (the windows below); false: keep the visits as "
+        "the data names them (e.g. an analysis dataset's AVISIT), trusting its own assignment."))
+    other_labels: Literal["error", "leave_out"] = Field(default="error", description=(
+        "Without windowing, post-baseline records whose visit label is not scheduled (e.g. 'Unscheduled'): "
+        "'error' refuses the cut, 'leave_out' leaves them out of the analysis and counts them."))
     schedule: tuple[Visit, ...] = Field(min_length=1, description="Post-baseline analysis visits, in time order.")
 
     @property
