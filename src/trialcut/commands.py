@@ -521,7 +521,6 @@ def _read_results(run_folder: Path) -> dict[str, Any]:
 def command_demo(args) -> int:
     from trialcut.data.simulate import demo_cut_offs, demo_cuts, write_csv
     from trialcut.plan.load import load_plan
-    from trialcut.plan.lock import check_lock, lock_plan
 
     out = args.out
     data_dir = out / "demo" / "data"
@@ -539,12 +538,9 @@ def command_demo(args) -> int:
     source = _repo_file("analysis_plans/demo.yaml")
     if not plan_path.exists() or plan_path.read_text() != source.read_text():
         plan_path.write_text(source.read_text(encoding="utf-8"), encoding="utf-8")
-    loaded = load_plan(plan_path)
-    try:
-        check_lock(loaded)
-    except InputError:
-        lock_plan(loaded, by="demo", reason="demo: plan frozen before the first data cut")
-    console.print(f"  locked plan {plan_path}")
+    from trialcut.demo_trust import approve_and_check_final, lock_demo_plan
+
+    console.print(f"  {lock_demo_plan(load_plan(plan_path), out)}: {plan_path}")
     folders = {}
     for label in ("interim", "final"):
         started = time.perf_counter()
@@ -555,6 +551,7 @@ def command_demo(args) -> int:
     compared = record_comparison(folders["interim"], folders["final"], out / "registry.sqlite")
     _print_chain_head(compared.row)
     comparison = {name: compared.folder / name for name in ("comparison.html", "comparison.pdf")}
+    trust = approve_and_check_final(out, folders["final"], paths["final"])
     console.print("\n[bold]Reports[/bold]")
     for label, folder in folders.items():
         console.print(f"  {label:8s} report:  {folder / 'report.html'}")
@@ -562,6 +559,9 @@ def command_demo(args) -> int:
         console.print(f"  {label:8s} results: {folder / 'results.json'}")
     console.print(f"  comparison:       {comparison.get('comparison.html')}")
     console.print(f"  comparison PDF:   {comparison.get('comparison.pdf')}")
+    console.print("\n[bold]Trust chain[/bold] (demo keys in " + str(out / "demo" / "keys") + ")")
+    for line in trust:
+        console.print(f"  {line}", markup=False)
     return 0
 
 

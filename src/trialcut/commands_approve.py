@@ -53,12 +53,15 @@ def verify_signoff(args, registry: Path, run_id: str | None = None) -> None:
     bad signatures fail (exit 1)."""
     from trialcut.commands import console
     from trialcut.errors import VerificationFailed
-    from trialcut.record.signing import keyring_path, read_keyring
+    from trialcut.record.signing import NOT_CHECKED, keyring_path, read_keyring
     from trialcut.record.signoff import check_signoff
 
     keyring = read_keyring(keyring_path(args.keyring), required=args.keyring is not None)
     report = check_signoff(registry, keyring, run_id=run_id)
     for line in signoff_lines(report):
         console.print(line, markup=False)
+    if keyring.path is None and report.count(NOT_CHECKED):
+        console.print(f"[bold red]SIGNATURES NOT CHECKED[/bold red]: no keyring at {keyring_path(args.keyring)}; "
+                      "pass --keyring FILE (the project's reviewed keyring) to check who signed")
     if report.problems:
         raise VerificationFailed(f"signatures: {report.summary}", report.problems)

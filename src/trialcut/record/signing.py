@@ -58,6 +58,7 @@ SIGNATURE_FIELDS = ("algorithm", "key", "fingerprint", "signed_utc", "signature"
 
 # Signature statuses, as verify names them.
 VALID, UNSIGNED, UNKNOWN_KEY, BAD_SIGNATURE = "valid", "unsigned", "unknown key", "bad signature"
+NOT_CHECKED = "not checked"   # no keyring was given: nothing can be said about the signer
 
 
 class SigningError(InputError):

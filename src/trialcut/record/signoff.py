@@ -32,7 +32,7 @@ from trialcut.record.manifest import sha256_file
 from trialcut.record.registry import RegistryRow, list_records, utc_now
 from trialcut.record.runfolder import new_run_id
 from trialcut.record.seal import RecordedFolder, record_folder
-from trialcut.record.signing import (BAD_SIGNATURE, UNKNOWN_KEY, UNSIGNED, VALID, Keyring,
+from trialcut.record.signing import (BAD_SIGNATURE, NOT_CHECKED, UNKNOWN_KEY, UNSIGNED, VALID, Keyring,
                                      SignatureCheck, Signer, check_signature, checked_role,
                                      require_in_keyring)
 
@@ -120,7 +120,8 @@ class SignOffReport:
     @property
     def summary(self) -> str:
         counts = ", ".join(f"{self.count(status)} {status}"
-                           for status in (VALID, UNSIGNED, UNKNOWN_KEY, BAD_SIGNATURE))
+                           for status in (VALID, UNSIGNED, UNKNOWN_KEY, BAD_SIGNATURE, NOT_CHECKED)
+                           if status != NOT_CHECKED or self.count(status))
         final = sum(run.state == "final" for run in self.runs)
         return (f"{len(self.items)} signable record(s): {counts}; "
                 f"{final} of {len(self.runs)} run(s) final")
@@ -159,10 +160,6 @@ def check_signoff(registry_path: Path, keyring: Keyring, run_id: str | None = No
 
 
 def _signature_problem(item: SignedItem, keyring: Keyring) -> Problem:
-    if item.check.status == UNKNOWN_KEY and keyring.path is None:
-        return Problem(code="signature.no_keyring", field=item.what,
-                       message=f"signed by {item.check.key}, but no keyring was given to check it",
-                       hint="pass --keyring FILE (the project's keyring), or set TRIALCUT_KEYRING")
     if item.check.status == UNKNOWN_KEY:
         return Problem(code="signature.unknown_key", file=str(keyring.path), field=item.what,
                        message=f"signed by a key that is not in the keyring "
@@ -191,7 +188,7 @@ def _lock_items(folder: Path, run_id: str, keyring: Keyring) -> tuple[list[Signe
 
 def _lock_item(record: LockRecord, index: int, lock_file: Path, run_id: str,
                keyring: Keyring) -> SignedItem:
-    check = check_signature(record.signature, LOCK_PURPOSE, record.record_sha256, keyring)
+    check = _checked(record.signature, LOCK_PURPOSE, record.record_sha256, keyring)
     return SignedItem(what=f"{lock_file.parent.parent.name}/plan/{lock_file.name} records[{index}] "
                            f"(plan version {record.plan_version})", run_id=run_id, check=check)
 
@@ -214,7 +211,7 @@ def _approval_item(row: RegistryRow, registry_path: Path,
         # A changed approval keeps no valid signature, whatever its signature block says.
         check = SignatureCheck(BAD_SIGNATURE, content.get("key"), None, None)
     else:
-        check = check_signature(content.get("signature"), APPROVAL_PURPOSE, digest, keyring)
+        check = _checked(content.get("signature"), APPROVAL_PURPOSE, digest, keyring)
     problems = []
     entry = keyring.by_fingerprint(check.fingerprint or "")
     role = content.get("role")
@@ -224,6 +221,14 @@ def _approval_item(row: RegistryRow, registry_path: Path,
                                 expected=" or ".join(entry.roles), got=str(role),
                                 hint="the approval does not count; approve again in an allowed role"))
     return SignedItem(what, run_id, check, role=role if isinstance(role, str) else None), problems
+
+
+def _checked(block: Any, purpose: str, sha256: str, keyring: Keyring) -> SignatureCheck:
+    """Without any keyring a signature cannot be judged: said as 'not checked', not as forged."""
+    if block is not None and keyring.path is None:
+        found = check_signature(block, purpose, sha256, keyring)
+        return SignatureCheck(NOT_CHECKED, found.key, found.fingerprint, found.signed_utc)
+    return check_signature(block, purpose, sha256, keyring)
 
 
 def _run_state(row: RegistryRow, registry_path: Path, lock_items: list[SignedItem],
