@@ -51,3 +51,25 @@ def test_terms_in_words():
     assert term_text("arm_by_visit") == "Arm by visit"
     assert term_text("BASE_by_visit") == "BASE by visit"
     assert term_text("BASE") == "BASE"
+
+
+def test_formula_style_coefficient_names_read_as_words():
+    # Issue 9: no "arm[Level]:visit[Week 4]" label reaches a reader, whatever the engine names.
+    assert term_text("arm[Lorvatide 10 mg]:visit[Week 4]") == "Arm by visit: Lorvatide 10 mg, Week 4"
+    assert term_text("STRAT1R[Severe]") == "STRAT1R: Severe"
+    assert term_text("visit[Week 12]") == "Visit: Week 12"
+    assert term_text("BASE:visit") == "BASE by visit"
+    # Names already in words pass unchanged (a colon followed by words is not formula syntax).
+    assert term_text("STRAT1R: Severe vs Mild") == "STRAT1R: Severe vs Mild"
+
+
+def test_slopes_keep_three_significant_digits_and_ordered_p_values_stay_exact():
+    rule = NumberFormat(raw=0)
+    # A slope of -0.163 per point would read -0.2 if rounded like a mean (1 decimal here).
+    assert rule.cell(-0.16343, "coefficient") == "-0.163"
+    assert rule.cell(-1.893, "coefficient") == "-1.89"
+    assert rule.cell(0.03314, "coefficient") == "0.0331"
+    # Two p-values below 0.001 keep their order instead of both reading "<0.001".
+    assert rule.cell(1.2877e-13, "p_exact") == "1.29 × 10⁻¹³"
+    assert rule.cell(6.543e-5, "p_exact") == "6.54 × 10⁻⁵"
+    assert rule.cell(0.0123, "p_exact") == "0.012"

@@ -115,6 +115,8 @@ def _draw(draw, *args, width=6.4, height=3.4, layout="constrained", **kwargs) ->
         figure = _new_figure(width, height, layout)
         if layout is None:
             figure.subplots_adjust(left=0.1, right=0.97, top=0.9, bottom=0.2, wspace=0.28)
+        if layout == "constrained":   # a little more room than the default, so descenders stay inside
+            figure.get_layout_engine().set(w_pad=6 / 72, h_pad=6 / 72)
         draw(figure, *args, **kwargs)
         if layout is None:
             make_room(figure)
@@ -132,13 +134,26 @@ def text_extents(figure) -> list[tuple[str, tuple[float, float, float, float]]]:
     """Every visible text of ``figure`` (axis titles, tick labels, titles, legends, annotations)
     with its drawn extent in figure pixels (x0, y0, x1, y1), from matplotlib's renderer."""
     renderer = figure._get_renderer()   # the figure's own (Agg) renderer, as savefig would use
-    found = []
+    found, undrawn = [], _ticks_outside_view(figure)
     for artist in figure.findobj(lambda a: hasattr(a, "get_text") and hasattr(a, "get_window_extent")):
-        if not artist.get_visible() or not str(artist.get_text()).strip():
+        if not artist.get_visible() or not str(artist.get_text()).strip() or id(artist) in undrawn:
             continue
         box = artist.get_window_extent(renderer)
         found.append((str(artist.get_text()), (box.x0, box.y0, box.x1, box.y1)))
     return found
+
+
+def _ticks_outside_view(figure) -> set[int]:
+    """Tick labels matplotlib keeps but does not draw (their tick lies outside the axis' limits)."""
+    hidden = set()
+    for axes in figure.axes:
+        for axis in (axes.xaxis, axes.yaxis):
+            low, high = sorted(axis.get_view_interval())
+            margin = 1e-9 * max(1.0, abs(high - low))
+            for tick in [*axis.get_major_ticks(), *axis.get_minor_ticks()]:
+                if not low - margin <= tick.get_loc() <= high + margin:
+                    hidden.update({id(tick.label1), id(tick.label2)})
+    return hidden
 
 
 def clipped_texts(figure, tolerance: float = 0.5) -> list[str]:
@@ -159,17 +174,18 @@ def make_room(figure, pad: float = 4.0) -> None:
         extents = [box for _, box in text_extents(figure)]
         if not extents:
             return
-        left = max(0.0, max(-x0 for x0, _, _, _ in extents) + pad)
-        bottom = max(0.0, max(-y0 for _, y0, _, _ in extents) + pad)
-        right = max(0.0, max(x1 - width for _, _, x1, _ in extents) + pad)
-        top = max(0.0, max(y1 - height for _, _, _, y1 in extents) + pad)
-        if left <= pad and bottom <= pad and right <= pad and top <= pad:
+        # How far the texts stick out on each side (0 when inside); move the axes in by that plus a pad.
+        left = max(0.0, max(-x0 for x0, _, _, _ in extents))
+        bottom = max(0.0, max(-y0 for _, y0, _, _ in extents))
+        right = max(0.0, max(x1 - width for _, _, x1, _ in extents))
+        top = max(0.0, max(y1 - height for _, _, _, y1 in extents))
+        if not (left or bottom or right or top):
             return
         params = figure.subplotpars
-        figure.subplots_adjust(left=min(0.45, params.left + (left if left > pad else 0) / width),
-                               bottom=min(0.45, params.bottom + (bottom if bottom > pad else 0) / height),
-                               right=max(0.55, params.right - (right if right > pad else 0) / width),
-                               top=max(0.55, params.top - (top if top > pad else 0) / height))
+        figure.subplots_adjust(left=min(0.45, params.left + (left + pad if left else 0) / width),
+                               bottom=min(0.45, params.bottom + (bottom + pad if bottom else 0) / height),
+                               right=max(0.55, params.right - (right + pad if right else 0) / width),
+                               top=max(0.55, params.top - (top + pad if top else 0) / height))
 
 
 def arm_style(arms: Sequence[str], arm: str) -> dict[str, Any]:
@@ -365,7 +381,10 @@ def forest_chart(rows: Sequence[Mapping[str, Any]], *, arms: Sequence[str], x_la
     primary = {r["label"] for r in rows if r.get("primary")}
     shown_arms = [a for a in arms if any(_arm_of(r) == a for r in rows)] or list(dict.fromkeys(_arm_of(r) for r in rows))
     band = 0.7 / max(1, len(shown_arms))
-    height = max(2.4, 0.42 * len(labels) * max(1, len(shown_arms)) ** 0.5 + 1.5)
+    wrapped = {l: textwrap.fill(("Primary: " if l in primary else "") + str(l), 40) for l in labels}
+    # Each band is as tall as its label's lines (or its arms' lines, if more), so labels never overlap.
+    lines = [max(wrapped[l].count("\n") + 1, len(shown_arms)) for l in labels]
+    height = max(2.4, 0.15 * sum(lines) + 0.12 * len(labels) + 1.3)
 
     def draw(figure):
         axes = figure.subplots()
@@ -383,19 +402,22 @@ def forest_chart(rows: Sequence[Mapping[str, Any]], *, arms: Sequence[str], x_la
             axes.text(1.02, y, numbers, transform=axes.get_yaxis_transform(), va="center", ha="left",
                       fontsize=7, color=style["color"], fontweight="bold" if row["label"] in primary else "normal")
         axes.axvline(0, color=INK, linewidth=0.8, linestyle=(0, (4, 3)))
-        axes.set_yticks(range(len(labels)), [textwrap.fill(("Primary: " if l in primary else "") + str(l), 34)
-                                             for l in labels], fontsize=7.5)
+        axes.set_yticks(range(len(labels)), [wrapped[l] for l in labels], fontsize=7.5)
         for tick, text in zip(axes.get_yticklabels(), labels):
             if text in primary:
                 tick.set_fontweight("bold")
         axes.set_ylim(len(labels) - 0.5, -0.5)
-        axes.set_xlabel(x_label if not favours else f"{x_label}\n← {favours[0]}    {favours[1]} →")
+        axes.set_xlabel(x_label)
+        if favours:     # under the axis title, one at each end of the axis
+            for x, text, align in ((0.0, f"← {favours[0]}", "left"), (1.0, f"{favours[1]} →", "right")):
+                axes.annotate(text, xy=(x, 0), xycoords="axes fraction", xytext=(0, -34),
+                              textcoords="offset points", ha=align, va="top", fontsize=7.5, color=INK)
         axes.grid(axis="y", visible=False)
         handles, names = axes.get_legend_handles_labels()
         unique = dict(zip(names, handles))
         axes.legend(unique.values(), unique.keys(), loc="lower center", bbox_to_anchor=(0.5, 1.0),
                     ncols=len(unique), fontsize=8)
-        figure.subplots_adjust(left=0.36, right=0.76, top=1 - 0.45 / height, bottom=0.9 / height)
+        figure.subplots_adjust(left=0.4, right=0.76, top=1 - 0.45 / height, bottom=0.85 / height)
 
     return _draw(draw, height=height, layout=None)
 
