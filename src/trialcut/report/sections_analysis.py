@@ -13,6 +13,7 @@ from trialcut.report.blocks import Section
 from trialcut.report.context import EndpointContext
 from trialcut.report.figures import FigureImage
 from trialcut.report.formatting import NumberFormat, describe_rules, term_text
+from trialcut.report.sections_estimand import imputation_guard_words
 from trialcut.report.sections_front import facts_table
 from trialcut.report.tables import from_records, from_results_table, rows_as_dicts
 
@@ -76,7 +77,7 @@ def endpoint(section: Section, results, endpoint: Mapping[str, Any], number_form
     primary_analysis(section.child("primary", f"Primary analysis: {primary.get('label') or primary.get('id')}"),
                      context, primary)
     others = [a for a in analyses if a is not primary]
-    sensitivity(section.child("sensitivity", "Sensitivity analyses"), context, primary, others)
+    sensitivity(section.child("sensitivity", "Sensitivity and supplementary analyses"), context, primary, others)
 
 
 # --------------------------------------------------------------------------- missing data
@@ -569,7 +570,7 @@ def sensitivity(section: Section, context: EndpointContext, primary, others: Seq
             "of participants in the analysis' population. The tipping-point analysis is shown at no shift, "
             "where it is a multiple imputation under missing at random.")
         columns = ("label", "scope", "arm", "estimate", "se", "df", "lower", "upper", "p")
-        labels = {"label": "Analysis", "scope": "Estimand; population", "arm": "Arm (N)"}
+        labels = {"label": "Analysis", "scope": "Role; estimand; population", "arm": "Arm (N)"}
         summary = from_results_table({"columns": list(columns), "data": [[r[c] for c in columns] for r in rows]},
                                      slug=f"{context.slug}_estimates_summary", number_format=context.number_format,
                                      wide=True,
@@ -620,7 +621,8 @@ def _estimates_at_primary_visit(context: EndpointContext, analyses) -> list[dict
             if row.get("visit") in (context.primary_visit, None) and row.get("estimate") is not None:
                 n = counts.get(row.get("arm"))
                 rows.append({"label": label, "primary": analysis.get("role") == "primary",
-                             "scope": "; ".join([_short_label(context.estimand_label(analysis.get("estimand"))),
+                             "scope": "; ".join([str(analysis.get("role") or "sensitivity").capitalize(),
+                                                 _short_label(context.estimand_label(analysis.get("estimand"))),
                                                  context.population_label(analysis.get("population"))]),
                              "arm": f"{row.get('arm')} (N = {n})" if n is not None else row.get("arm"),
                              "arm_code": row.get("arm"), "estimate": row.get("estimate"), "se": row.get("se"),
@@ -760,7 +762,9 @@ def _imputation_words(context: EndpointContext, analysis: Mapping[str, Any]) -> 
                   else "the arms sharing one covariance matrix, with a mean for each arm and visit")
     words = [
         f"Imputation model: the outcome at all {len(context.visits)} scheduled visits is multivariate normal given "
-        f"the arm and the covariates ({covariates}, each with its own effect at each visit), {own_matrix}; "
+        f"the arm and the covariates ({covariates}, "
+        f"{'one effect common to all visits' if options.get('covariate_effects') == 'common' else 'each with its own effect at each visit'}"
+        f"), {own_matrix}; "
         f"parameters are drawn from their posterior by data augmentation ({options.get('chains', '?')} independent "
         f"chains, {options.get('burn_in', '?')} burn-in iterations, {options.get('thinning', '?')} iterations between "
         f"imputations), giving {options.get('imputations', '?')} completed datasets. Values missing at or after "
@@ -770,6 +774,7 @@ def _imputation_words(context: EndpointContext, analysis: Mapping[str, Any]) -> 
         arms = ", ".join(options.get("delta_arms") or []) or "the active arms"
         words[0] += (f" Imputed values in {arms} are then shifted by {options['delta']:g}"
                      + (" at each later visit, cumulatively." if options.get("delta_cumulative") else "."))
+    words.extend(imputation_guard_words(options, fit))
     model = options.get("analysis_model") or "ancova"
     model_words = ("an analysis of covariance at each visit (outcome on arm and the covariates "
                    f"{covariates})" if model == "ancova" else
