@@ -115,7 +115,8 @@ def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: P
     from trialcut.record.runfolder import new_run_id
     from trialcut.run.context import RunContext
     from trialcut.run.participant_records import participant_records
-    from trialcut.run.runner import StepTimer, participant_hashes, run_plan
+    from trialcut.record.participants import participant_hashes
+    from trialcut.run.runner import StepTimer, run_plan
 
     started = started or _utc_now()
     timer = StepTimer()

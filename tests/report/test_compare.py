@@ -11,7 +11,7 @@ from tests.open_data import beat_the_blues_long
 from trialcut.report import compare_data_manifests, compare_results, render_comparison
 from trialcut.report.compare import compare_decisions, compare_tipping_points
 from trialcut.run.participant_records import participant_records
-from trialcut.run.runner import participant_hashes
+from trialcut.record.participants import participant_hashes
 
 COLUMNS = SimpleNamespace(subject="USUBJID", arm="TRT01P", visit="AVISIT", study_day=None, parameter=None)
 

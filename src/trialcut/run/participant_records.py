@@ -1,6 +1,6 @@
 """Each participant's records as text, carried in results.json so two cuts can be compared.
 
-The participant hashes (runner.participant_hashes) say *whether* a participant's records
+The participant hashes (record.participants.participant_hashes) say *whether* a participant's records
 changed between two data cuts; these records say *what* changed: which visit is new, which
 value was edited (participant, visit, field, old and new value) and which record went away,
 without the data files, which a comparison made later may no longer reach.

@@ -7,7 +7,6 @@ record layer writes what comes back.  Run metadata (ids, times) sits only under
 """
 from __future__ import annotations
 
-import hashlib
 import time
 import warnings
 from dataclasses import dataclass, field
@@ -238,16 +237,6 @@ def _find_p_value(plan, results, hypothesis) -> float | None:
             if len(row) == 1 and row["p"].notna().all():
                 return float(row["p"].iloc[0])
     return None
-
-
-def participant_hashes(frame: pd.DataFrame, subject: str) -> dict[str, str]:
-    """SHA-256 of each participant's records (sorted, as CSV) so that two cuts can be compared."""
-    hashes = {}
-    text = frame.astype(str)
-    for subject_id, rows in text.groupby(subject, sort=True):
-        body = rows.sort_values(list(rows.columns)).to_csv(index=False, lineterminator="\n")
-        hashes[str(subject_id)] = hashlib.sha256(body.encode("utf-8")).hexdigest()
-    return hashes
 
 
 IMPUTING_METHODS = ("multiple_imputation", "tipping_point")
