@@ -2,7 +2,7 @@
 
 Exit statuses: 0 ok; 1 a verification found a difference; 2 bad input or usage;
 3 an internal fault (the traceback goes to a log file whose path is printed);
-130 interrupted.  ``--debug`` shows tracebacks instead.
+4 a run was recorded but a primary analysis failed; 130 interrupted.  ``--debug`` shows tracebacks instead.
 """
 from __future__ import annotations
 
@@ -42,6 +42,21 @@ def _iso_date(text: str) -> date:
         return date.fromisoformat(text)
     except ValueError:
         raise argparse.ArgumentTypeError(f"expected a date as YYYY-MM-DD, got {text!r}") from None
+
+
+def _whole_number(least: int):
+    """An argparse type: a whole number of at least ``least`` (numpy seeds cannot be negative)."""
+    def parse(text: str) -> int:
+        try:
+            value = int(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+        if value < least:
+            raise argparse.ArgumentTypeError(f"expected a whole number of at least {least}, got {value}")
+        return value
+
+    parse.__name__ = "whole number"
+    return parse
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -87,10 +102,11 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("--cut", required=True, help="label of the data cut, e.g. 'interim-1'")
     run.add_argument("--out", type=Path, default=Path("outputs"), help="output root (default: outputs)")
     run.add_argument("--unlocked", action="store_true", help="rehearse with a plan that is not locked")
-    run.add_argument("--dummy-arms", type=int, metavar="SEED", help="blinded dry run: permute arm codes with SEED")
+    run.add_argument("--dummy-arms", type=_whole_number(0), metavar="SEED",
+                     help="blinded dry run: permute arm codes with SEED (a whole number, 0 or more)")
     run.add_argument("--cut-off", type=_iso_date, metavar="DATE",
                      help="database cut-off date, YYYY-MM-DD (default: the latest date in the data)")
-    run.add_argument("--workers", type=int, default=1, help="local worker processes for imputation work")
+    run.add_argument("--workers", type=_whole_number(1), default=1, help="local worker processes for imputation work")
     run.add_argument("--scheduler", metavar="ADDRESS",
                      help="Dask scheduler address, or 'local' for a local cluster")
 

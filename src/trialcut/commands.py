@@ -27,13 +27,19 @@ def command_check(args) -> int:
 
     loaded = load_plan(args.plan)
     plan = loaded.plan
+    check_names(plan)
     console.print(f"[green]ok[/green] {args.plan}: plan {plan.version} of study {plan.study.id}")
     console.print(f"  canonical hash {loaded.canonical_hash}")
-    console.print(f"  lock: {_lock_line(loaded)}")
+    line, lock_error = _lock_line(loaded)
+    console.print(f"  lock: {line}")
     for endpoint in plan.endpoints:
         names = [endpoint.analyses.primary.id] + [a.id for a in endpoint.analyses.sensitivity]
         console.print(f"  endpoint {endpoint.id}: {len(names)} analyses ({', '.join(names)})")
     _print_estimand_findings(loaded)
+    if lock_error is not None:
+        # The plan reads, but 'run' would refuse it: exit as 'run' would, and say why on stderr.
+        print(f"error: {lock_error.render()}", file=sys.stderr)
+        return lock_error.exit_status
     return 0
 
 
@@ -53,16 +59,49 @@ def _print_estimand_findings(loaded) -> None:
                       soft_wrap=True)
 
 
-def _lock_line(loaded) -> str:
+def _lock_line(loaded):
+    """The lock line of 'check', and the lock error that would stop a locked run (None when a
+    locked run can go ahead, or when the plan is simply not locked yet)."""
     from trialcut.errors import LockError
     from trialcut.plan.lock import check_lock
 
     try:
         summary = check_lock(loaded).summary()
     except LockError as error:
-        return f"not usable for a locked run — {error}"
+        if [p.code for p in error.problems] == ["lock.missing"]:
+            return "not locked yet: lock it ('trialcut lock') before a locked run", None
+        return f"not usable for a locked run — {error}", error
     return (f"locked at {summary['locked_utc']} by {summary['locked_by']} ({summary['reason']}); "
-            f"{len(summary['amendments'])} lock record(s)")
+            f"{len(summary['amendments'])} lock record(s)"), None
+
+
+def check_names(plan, cut_label: str | None = None, out_root: Path | None = None) -> None:
+    """Refuse, before any data is read, every name that would stop the run at its end: the
+    study id and the cut label become folder names; the output root must be a writable folder."""
+    from trialcut.record.runfolder import safe_folder_name
+
+    safe_folder_name(plan.study.id, "study id")
+    if cut_label is not None:
+        safe_folder_name(cut_label, "cut")
+    if out_root is not None:
+        _check_out_root(Path(out_root))
+
+
+def _check_out_root(out_root: Path) -> None:
+    import os
+
+    existing = out_root
+    while not existing.exists() and existing != existing.parent:
+        existing = existing.parent
+    problem = None
+    if existing.exists() and not existing.is_dir():
+        problem = ("is a file, not a folder" if existing == out_root else f"lies under the file {existing}")
+    elif existing.exists() and not os.access(existing, os.W_OK | os.X_OK):
+        problem = f"cannot be written ({existing} is not writable)"
+    if problem:
+        raise InputError(f"the output root {out_root} {problem}", [Problem(
+            code="run.bad_output_root", message=f"the output root {problem}", file=str(out_root), field="--out",
+            expected="a folder trialcut may create and write to", hint="pass --out with another folder")])
 
 
 def command_schema(args) -> int:
@@ -77,6 +116,7 @@ def command_lock(args) -> int:
     from trialcut.plan.lock import lock_plan
 
     loaded = load_plan(args.plan)
+    check_names(loaded.plan)
     from trialcut.commands_key import lock_signer
 
     record = lock_plan(loaded, by=args.by, reason=args.reason, sign=lock_signer(args))
@@ -100,6 +140,25 @@ def command_run(args) -> int:
     )
     console.print(f"run folder: {run_folder}")
     console.print(f"report:     {report}")
+    return _primary_failures(run_folder)
+
+
+PRIMARY_FAILED = 4      # README: the run is recorded, but a primary analysis failed
+
+
+def _primary_failures(run_folder: Path) -> int:
+    """Say on the console which primary analyses failed; exit 4 if any did."""
+    results = json.loads((run_folder / "results.json").read_text(encoding="utf-8"))
+    failed = [(endpoint["id"], analysis) for endpoint in results.get("endpoints", [])
+              for analysis in endpoint.get("analyses", [])
+              if analysis.get("role") == "primary" and analysis.get("status") == "failed"]
+    for endpoint_id, analysis in failed:
+        reason = (analysis.get("error") or "no reason recorded").splitlines()[0]
+        print(f"primary analysis failed: {analysis['id']} of endpoint {endpoint_id}: {reason}", file=sys.stderr)
+    if failed:
+        print("the run is recorded with the failure (see the report); its primary results are missing",
+              file=sys.stderr)
+        return PRIMARY_FAILED
     return 0
 
 
@@ -124,6 +183,9 @@ def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: P
         loaded = load_plan(plan_path)
         lock = _lock_state(loaded, unlocked)
     plan = loaded.plan
+    check_names(plan, cut_label, out_root)
+    if scheduler is not None:
+        _check_scheduler(scheduler)
     check_registry(out_root)   # a locked or unwritable registry is said now, not after the analysis
     with timer.time("read data"):
         raw = read_cut(data_path)
@@ -269,15 +331,53 @@ def _executor(workers: int, scheduler: str | None):
     from trialcut.run.executor import make_executor
 
     if scheduler is not None:
+        import dask
+
         # A local cluster gets at least two workers; --workers raises that.
         made = make_executor("dask", workers=max(workers, 2), address=None if scheduler == "local" else scheduler)
-        # Import the imputation code on every worker now, not inside the first timed batch.
-        made.preload("trialcut.stats.imputation", "trialcut.stats.tipping")
+        try:
+            # Import the imputation code on every worker now, not inside the first timed batch.
+            with dask.config.set({"distributed.comm.timeouts.connect": f"{SCHEDULER_TIMEOUT:g}s"}):
+                made.preload("trialcut.stats.imputation", "trialcut.stats.tipping")
+        except (OSError, TimeoutError) as error:      # something answers, but it is no Dask scheduler
+            made.close()
+            raise InputError(f"cannot work with the Dask scheduler at {scheduler}", [Problem(
+                code="run.no_scheduler", message="the scheduler did not accept a connection", field="--scheduler",
+                got=str(error), hint="check that the address is the Dask scheduler's, or use --scheduler local")]) \
+                from error
     elif workers > 1:
         made = make_executor("processes", workers=workers)
     else:
         made = make_executor("inline")
     return made, getattr(made, "close", lambda: None)
+
+
+def _check_scheduler(address: str) -> None:
+    """A malformed address or one where nothing listens is a mistake on the command line:
+    say so in seconds, before the data are read (Dask itself would wait 30 s, then fail)."""
+    import re
+    import socket
+
+    if address == "local":
+        return
+    found = re.fullmatch(r"(?:(tcp|tls)://)?(\[[0-9A-Fa-f:.]+\]|[A-Za-z0-9.-]+):(\d{1,5})", address)
+    port = int(found.group(3)) if found else 0
+    if not found or not 0 < port < 65536:
+        raise InputError(f"the scheduler address {address!r} is not valid", [Problem(
+            code="run.bad_scheduler", message="the scheduler address is not valid", field="--scheduler",
+            expected="'local', or HOST:PORT such as tcp://10.0.0.5:8786", got=repr(address),
+            hint="copy the address the Dask scheduler printed when it started")])
+    host = found.group(2).strip("[]")
+    try:
+        socket.create_connection((host, port), timeout=SCHEDULER_TIMEOUT).close()
+    except OSError as error:
+        raise InputError(f"no Dask scheduler answers at {address}", [Problem(
+            code="run.no_scheduler", message=f"nothing answers at {host}:{port} within {SCHEDULER_TIMEOUT:g} s",
+            field="--scheduler", got=error.strerror or type(error).__name__,
+            hint="start the scheduler first, check the address and port, or use --scheduler local")]) from error
+
+
+SCHEDULER_TIMEOUT = 5.0
 
 
 def _progress_printer():

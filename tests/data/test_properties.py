@@ -97,3 +97,62 @@ def test_read_cut_raises_only_data_errors_on_arbitrary_bytes(tmp_path_factory, s
         assert error.problems and error.problems[0].file == str(path)
         return
     assert raw.manifest["rows"] == len(raw.frame) > 0
+
+
+# --------------------------------------------------------------------------- issue 10: the command line
+# Whatever bytes a data file holds, 'trialcut run' ends with exit 2 and a message naming the
+# file, never with exit 3 (an internal fault).  Run through trialcut.cli.main, as a user would.
+_BASE_PLAN = __import__("pathlib").Path(__file__).resolve().parents[1] / "cases" / "_base" / "plan.yaml"
+_CSV_HEADER = "USUBJID,TRT01P,AVISIT,ADY,ABLFL,AVAL,BASE,CHG,FASFL,PARAMCD,STRAT1R,DISCDY\n"
+
+
+def _run_main(path, out, capsys) -> tuple[int, str]:
+    from trialcut.cli import main
+
+    capsys.readouterr()
+    status = main(["run", str(_BASE_PLAN), "--data", str(path), "--cut", "c1", "--out", str(out), "--unlocked"])
+    return status, capsys.readouterr().err
+
+
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(st.sampled_from([".csv", ".json", ".parquet"]),
+       st.one_of(st.binary(max_size=300),
+                 st.text(alphabet='USBJIDAVL,;\t\n"{}[]:0123456789.-eE \u00e9', max_size=300).map(str.encode),
+                 st.text(max_size=200).map(lambda t: (_CSV_HEADER + t).encode("utf-8", "surrogatepass"))))
+def test_run_on_arbitrary_bytes_never_exits_3(tmp_path_factory, capsys, suffix, content):
+    folder = tmp_path_factory.mktemp("bytes")
+    path = folder / f"cut{suffix}"
+    path.write_bytes(content)
+    status, err = _run_main(path, folder / "out", capsys)
+    assert status == 2, f"exit {status} on {content[:80]!r}: {err}"
+    assert str(path) in err and "Traceback" not in err
+
+
+_JSON_VALUES = st.recursive(
+    st.one_of(st.none(), st.booleans(), st.integers(), st.floats(allow_nan=False), st.text(max_size=8)),
+    lambda inner: st.one_of(st.lists(inner, max_size=4), st.dictionaries(st.text(max_size=6), inner, max_size=4)),
+    max_leaves=12)
+
+
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(st.sampled_from(["name", "dataType", "itemOID", "rows", "records", "columns", "cell"]), _JSON_VALUES)
+def test_dataset_json_with_any_value_in_any_place_never_exits_3(tmp_path_factory, capsys, place, value):
+    """A valid Dataset-JSON file with one attribute or one cell replaced by any JSON value."""
+    import json
+
+    from trialcut.data.readers import write_dataset_json
+
+    folder = tmp_path_factory.mktemp("json")
+    path = write_dataset_json(BASE.infer_objects(), folder / "cut.json", created="2026-01-01T00:00:00Z")
+    document = json.loads(path.read_text(encoding="utf-8"))
+    if place in ("name", "dataType", "itemOID"):
+        document["columns"][1][place] = value
+    elif place == "cell":
+        document["rows"][2][5] = value
+    else:
+        document[place] = value
+    path.write_text(json.dumps(document), encoding="utf-8")
+    status, err = _run_main(path, folder / "out", capsys)
+    # The base plan needs columns this small cut lacks, so even an intact cell ends in exit 2.
+    assert status == 2, f"exit {status} with {place} = {value!r}: {err}"
+    assert str(path) in err and "Traceback" not in err

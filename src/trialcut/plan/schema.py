@@ -868,6 +868,23 @@ def _analysis_references(plan: PlanSections, path, analysis) -> Iterator[RuleIss
                                 code="plan.unknown_visit")
     if isinstance(analysis, ImputationAnalysis):
         yield from _delta_references(plan, path, analysis.options)
+    if isinstance(analysis, MMRMAnalysis):
+        yield from _timed_structures(plan, path, analysis.options)
+
+
+def _timed_structures(plan: PlanSections, path, options) -> Iterator[RuleIssue]:
+    """A structure whose correlation decays with time needs every visit's planned day; the
+    other structures use the visits' order only (issue 10: such a plan passed check and lock,
+    then failed inside the fit)."""
+    undated = [v.label for v in plan.visits.schedule if v.day is None]
+    for position, name in enumerate(options.covariance):
+        if name == "spatial_exponential" and undated:
+            yield RuleIssue(path + ("options", "covariance", position),
+                            "covariance structure 'spatial_exponential' needs every visit's planned day",
+                            expected="a 'day' for every visit of the schedule", got="no day for " + ", ".join(
+                                map(repr, undated)), hint="give the visits their planned days, or choose a "
+                            "structure that uses the visits' order (ar1, toeplitz, unstructured…)",
+                            code="plan.visit_day_needed")
 
 
 def _role_and_assumption_references(plan: PlanSections) -> Iterator[RuleIssue]:

@@ -18,19 +18,22 @@ from __future__ import annotations
 import math
 import re
 from dataclasses import dataclass
-from decimal import ROUND_HALF_UP, Decimal
+from decimal import ROUND_HALF_UP, Context, Decimal
 from typing import Any, Mapping
 
 STATISTIC_DECIMALS = 2
 CORRELATION_DECIMALS = 3
 CRITERION_DECIMALS = 2
 MISSING_TEXT = "–"   # en dash: a cell with no value
+_WIDE = Context(prec=340, rounding=ROUND_HALF_UP)
 
 
 def round_half_away(value: float, decimals: int) -> str:
     """``value`` rounded to ``decimals`` places, as text without a spurious "-0"."""
     quantum = Decimal(1).scaleb(-decimals)
-    rounded = Decimal(repr(float(value))).quantize(quantum, rounding=ROUND_HALF_UP)
+    # The default context keeps 28 digits, so quantize fails from about 1e26 on; a double
+    # has at most 309 digits before the point.
+    rounded = Decimal(repr(float(value))).quantize(quantum, context=_WIDE)
     if rounded == 0:
         rounded = abs(rounded)
     return f"{rounded:.{decimals}f}"

@@ -9,8 +9,12 @@ there and here, and nowhere else.
 """
 from __future__ import annotations
 
+import functools
 from typing import Any, Protocol
 
+import numpy as np
+
+from trialcut.errors import FitError, Problem
 from trialcut.run.context import RunContext
 from trialcut.run.tables import plain, table
 
@@ -33,7 +37,7 @@ def run_mmrm(data, analysis, context: RunContext) -> dict[str, Any]:
         covariance_by=options.covariance_by,
         method=options.method, df=options.df, second_derivatives=options.second_derivatives,
         robust=options.robust,
-        visit_times=dict(data.visit_days),
+        visit_times=_visit_times(data.visit_days),
     )
     level = options.confidence_level
     tables = {
@@ -50,6 +54,15 @@ def run_mmrm(data, analysis, context: RunContext) -> dict[str, Any]:
         "fit": _fit_summary(fit_record),
         "diagnostics": {"residuals": table(residuals, "Residuals and fitted values")},
     }
+
+
+def _visit_times(visit_days: dict[str, float | None]) -> dict[str, float] | None:
+    """The planned days when every visit has one; else None, and the fit uses the visits'
+    order (1, 2, …), which is all a structure other than spatial_exponential needs (the plan
+    check refuses spatial_exponential without days)."""
+    if visit_days and all(day is not None for day in visit_days.values()):
+        return dict(visit_days)
+    return None
 
 
 def _covariance_tables(fit) -> dict[str, Any]:
@@ -109,9 +122,30 @@ def run_tipping_point(data, analysis, context: RunContext) -> dict[str, Any]:
     return run(data, analysis, context)
 
 
+def _failing_on_numbers(method: AnalysisMethod) -> AnalysisMethod:
+    """Arithmetic that breaks on the data (a singular or indefinite matrix, an overflow) is a
+    failed analysis with its reason, recorded while the other analyses go on; it is never an
+    internal fault, because it comes from the data cut (an outcome or covariate that does not
+    vary, very few participants per arm, values of absurd size)."""
+
+    @functools.wraps(method)
+    def run(data, analysis, context: RunContext) -> dict[str, Any]:
+        try:
+            return method(data, analysis, context)
+        except (np.linalg.LinAlgError, FloatingPointError, OverflowError, ZeroDivisionError) as error:
+            reason = str(error) or type(error).__name__
+            raise FitError(f"the analysis could not be computed on this data cut ({reason})", [Problem(
+                code="run.numerical_failure", message="the arithmetic of the analysis broke down on the data",
+                field=analysis.id, got=f"{type(error).__name__}: {reason}",
+                hint="look for an outcome or covariate that does not vary, arms with very few participants "
+                     "or values of absurd size (declare the endpoint's range in the plan)")]) from error
+
+    return run
+
+
 METHODS: dict[str, AnalysisMethod] = {
-    "mmrm": run_mmrm,
-    "ancova": run_ancova,
-    "multiple_imputation": run_multiple_imputation,
-    "tipping_point": run_tipping_point,
+    "mmrm": _failing_on_numbers(run_mmrm),
+    "ancova": _failing_on_numbers(run_ancova),
+    "multiple_imputation": _failing_on_numbers(run_multiple_imputation),
+    "tipping_point": _failing_on_numbers(run_tipping_point),
 }

@@ -91,12 +91,21 @@ def ancova_difference(
     return AncovaDifference(coefficients[arm_rows], std_error, residual_df)
 
 
+def full_rank(r: np.ndarray, design: np.ndarray, tolerance: float = 1e-10) -> bool:
+    """Whether every column of ``design`` adds a direction: |r_jj| (the part of column j not
+    explained by the columns before it) is compared with the column's own length, so the answer
+    does not depend on the unit of a covariate (a baseline in units of 1e-12 is as good as one
+    in points)."""
+    lengths = np.linalg.norm(design, axis=0)
+    diagonal = np.abs(np.diag(r))
+    return bool(np.all(lengths > 0) and np.all(diagonal > tolerance * lengths))
+
+
 def _qr_solve(design: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """β̂ = R⁻¹Qᵀy and (XᵀX)⁻¹ = R⁻¹R⁻ᵀ; refuses a rank-deficient or saturated design."""
     n, p = design.shape
     q, r = np.linalg.qr(design)
-    diagonal = np.abs(np.diag(r))
-    if n <= p or diagonal.min() <= 1e-10 * max(diagonal.max(), 1.0):
+    if n <= p or not full_rank(r, design):
         raise FitError(
             "the analysis of covariance design cannot be estimated",
             [Problem(code="stats.ancova_rank", message="the design matrix is rank deficient or "
@@ -178,6 +187,11 @@ def ancova_by_visit(
     _check_arguments(frame, outcome, subject, arm, visit, reference, covariates, confidence_level)
     visits = tuple(pd.unique(frame[visit].dropna())) if visits is None else tuple(visits)
     arms = (reference, *[a for a in pd.unique(frame[arm].dropna()) if a != reference])
+    if len(arms) < 2:
+        raise FitError("an analysis of covariance needs a second arm to compare with the reference", [Problem(
+            code="stats.ancova_one_arm", message="the data hold one arm only", field=arm,
+            expected="participants in the reference arm and at least one other arm", got=repr(arms[0]),
+            hint="check the population and the arm codes of the data cut")])
     differences, means, fits = [], [], []
     for visit_level in visits:
         rows = frame[(frame[visit] == visit_level)].dropna(subset=[outcome, arm, *covariates])
@@ -211,6 +225,11 @@ def _fit_visit(rows, outcome, arm, arms, covariates, visit_level) -> _VisitFit:
         )
     indicators = np.column_stack([(rows[arm] == a).to_numpy(float) for a in arms[1:]])
     covariate_block = _covariate_block(rows, covariates)
+    # Covariates in their largest value's units: the OLS fit's rank and pseudo-inverse are
+    # absolute, so a baseline in units of 1e26 (or 1e-12) would be dropped; the arm effects
+    # and adjusted means do not depend on a covariate's units.
+    largest = np.abs(covariate_block).max(axis=0, initial=0.0)
+    covariate_block = covariate_block / np.where(largest > 0, largest, 1.0)
     design = np.column_stack([np.ones(len(rows)), indicators, covariate_block])
     outcomes = rows[outcome].to_numpy(float)
     _qr_solve(design, outcomes)  # refuses a rank-deficient design, which OLS's pinv would hide

@@ -382,6 +382,13 @@ class _Sampler:
             indicators = (data.arm_index[:, None] == np.arange(n_arms)[None, :]).astype(float)
             designs = [np.column_stack([indicators, data.covariates])]
         self.designs = designs
+        for x in designs:
+            if x.shape[0] <= x.shape[1] or not _full_rank(np.linalg.qr(x)[1], x):
+                raise ModelSpecificationError("the imputation model cannot be estimated", [Problem(
+                    code="stats.imputation_rank", message="the imputation model's design is rank deficient "
+                    "or has no more participants than columns (a covariate that does not vary, or too few "
+                    "participants in an arm)", expected=f"more than {x.shape[1]} participants per group "
+                    "and covariates that vary", got=f"{x.shape[0]} participants")])
         self.unscaled = [np.linalg.inv(x.T @ x) for x in designs]
         self.unscaled_roots = [np.linalg.cholesky(u) for u in self.unscaled]
         self.i_step = _BatchedConditional(data.missing, data.arm_index)
@@ -642,6 +649,13 @@ class RepeatedMeasuresAnalysis:
         return estimate, variance, df
 
 
+def _full_rank(r: np.ndarray, design: np.ndarray, tolerance: float = 1e-10) -> bool:
+    """|r_jj| against the length of column j: a test that does not depend on the columns'
+    units (the same rule as the per-visit analysis of covariance)."""
+    lengths = np.linalg.norm(design, axis=0)
+    return bool(np.all(lengths > 0) and np.all(np.abs(np.diag(r)) > tolerance * lengths))
+
+
 class AncovaCore:
     """Least squares of many outcome columns on one design: intercept, one indicator per
     non-reference arm, covariates (Snedecor & Cochran's analysis of covariance, fitted per
@@ -654,8 +668,7 @@ class AncovaCore:
         indicators = (arm_index[:, None] == np.arange(1, n_arms)[None, :]).astype(float)
         design = np.column_stack([np.ones(n), indicators, covariates])
         q, r = np.linalg.qr(design)
-        diagonal = np.abs(np.diag(r))
-        if n <= design.shape[1] or diagonal.min() <= 1e-10 * max(diagonal.max(), 1.0):
+        if n <= design.shape[1] or not _full_rank(r, design):
             raise ModelSpecificationError("the analysis model cannot be estimated", [
                 Problem(code="stats.ancova_rank", message="the analysis design is rank deficient or saturated",
                         expected=f"more than {design.shape[1]} participants and independent columns",
