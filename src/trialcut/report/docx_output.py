@@ -4,8 +4,9 @@ A medical writer pastes its tables into a clinical study report, so every table 
 word-processor table (not a picture) with its numbered title above it, the participants per
 arm in a first header row when the report has them, and its notes and footnotes below; the
 header rows repeat on every page.  Figures are PNG pictures drawn by the same drawing calls
-as the SVGs of the HTML and PDF (see ``figures.png_of``).  Fonts, colours and table rules
-follow the PDF's stylesheet (templates/report.css): DejaVu Sans, deep ink, a teal accent.
+as the SVGs of the HTML and PDF (``figures.png_of``; drawing.py draws them beside the SVGs).
+Fonts, colours and table rules follow the PDF's stylesheet (templates/report.css): DejaVu
+Sans, deep ink, a teal accent.
 
 Same input, same bytes: python-docx stamps the package's parts with the time of writing, so
 the document's own dates are set from the run (started, finished) and the ZIP entries are
@@ -356,14 +357,15 @@ class _Writer:
     def _header_row(self, row, last: bool = False) -> None:
         from docx.oxml import OxmlElement
 
-        properties = row._tr.get_or_add_trPr()
-        properties.append(OxmlElement("w:tblHeader"))     # repeated at the top of every page
+        # Children in the order the format's schema requires (cantSplit before tblHeader,
+        # tcBorders before shd): word processors reject a file that breaks it.
         _keep_row_whole(row)
+        row._tr.get_or_add_trPr().append(OxmlElement("w:tblHeader"))     # repeated at the top of every page
         for cell in row.cells:
             cell_properties = cell._tc.get_or_add_tcPr()
-            _shade(cell_properties, ACCENT_SOFT)
             if last:
                 _border(cell_properties, {"bottom": (ACCENT, 12)}, "w:tcBorders")
+            _shade(cell_properties, ACCENT_SOFT)
 
     def _new_page_section(self, *, landscape: bool) -> None:
         from docx.enum.section import WD_SECTION
@@ -495,21 +497,4 @@ def table_titles(path: Path) -> list[str]:
     return titles
 
 
-def pictures_of(figures, jobs: Mapping[str, Any]) -> dict[str, bytes]:
-    """PNG of every drawn figure, from its drawing job (slug -> job); one that fails is left out
-    (the copy then shows the figure's title and note in words, as the HTML does)."""
-    from trialcut.report.figures import png_of
-
-    pictures = {}
-    for figure in figures:
-        job = jobs.get(figure.slug)
-        if job is None or figure.svg is None:
-            continue
-        try:
-            pictures[figure.slug] = png_of(job)
-        except Exception:  # noqa: BLE001 - the SVG of this figure was drawn; its picture is a copy
-            continue
-    return pictures
-
-
-__all__ = ["pictures_of", "table_titles", "write_docx"]
+__all__ = ["table_titles", "write_docx"]

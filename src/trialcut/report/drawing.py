@@ -4,7 +4,9 @@ The PDF engine asks for an image only when it builds that image's box, after it 
 the HTML and computed the styles; matplotlib (import and drawing) takes about as long.  So the
 PDF's HTML names each figure by a ``trialcut-figure:<slug>`` URL, a forked child draws the
 figures in reading order, and the engine's URL fetcher waits for the one it needs.  The child
-runs the same drawing calls as the parent would, so the bytes are the same either way.
+runs the same drawing calls as the parent would, so the bytes are the same either way.  Asked
+for pictures too (the DOCX copy's PNGs), the child draws them after the SVGs, still while the
+engine lays out the text.
 
 Forking is used only where it is safe and cheap: a platform that has it, a parent with no
 other threads (forking a threaded process can copy a held lock) and not itself a daemonic
@@ -18,7 +20,7 @@ import sys
 import threading
 from typing import Sequence
 
-from trialcut.report.figures import FigureImage
+from trialcut.report.figures import FigureImage, png_of
 
 SCHEME = "trialcut-figure:"
 
@@ -34,9 +36,12 @@ class FigureDrawing:
     drawn (a failed one carries its note, exactly as drawing it here would).
     """
 
-    def __init__(self, figures: Sequence[FigureImage]):
+    def __init__(self, figures: Sequence[FigureImage], *, pictures: bool = False):
         self._waiting = [f for f in figures if f.job is not None]
         self._drawn: dict[str, FigureImage] = {f.slug: f for f in figures if f.job is None}
+        self._jobs = {f.slug: f.job for f in self._waiting}
+        self._want_pictures = pictures
+        self._pictures: dict[str, bytes] = {}
         self._child = self._connection = None
         if self._waiting and _can_fork():
             self._start_child()
@@ -52,13 +57,17 @@ class FigureDrawing:
     def _start_child(self) -> None:
         context = multiprocessing.get_context("fork")
         receiving, sending = context.Pipe(duplex=False)
-        figures = self._waiting
+        figures, pictures = self._waiting, self._want_pictures
 
         def draw_all() -> None:
             receiving.close()
+            drawn = []
             for figure in figures:
                 done = figure.drawn()
-                sending.send((figure.slug, done.svg, done.note))
+                sending.send(("svg", figure.slug, done.svg, done.note))
+                drawn.append((figure, done.svg is not None))
+            for figure, shown in drawn if pictures else ():
+                sending.send(("png", figure.slug, _picture(figure.job) if shown else None))
             sending.close()
 
         self._child = context.Process(target=draw_all, name="trialcut-figures", daemon=True)
@@ -74,16 +83,22 @@ class FigureDrawing:
         by_slug = {f.slug: f for f in self._waiting}
         while self._connection is not None and (slug is None or slug not in self._drawn):
             try:
-                got, svg, note = self._connection.recv()
-            except EOFError:      # the child died: draw what is missing here
+                kind, got, *answer = self._connection.recv()
+            except EOFError:      # the child is done (or died: draw what is missing here)
                 self._close()
                 self._waiting = [f for f in self._waiting if f.slug not in self._drawn]
                 self._draw_here()
                 return
+            if kind == "png":
+                if answer[0] is not None:
+                    self._pictures[got] = answer[0]
+                continue
+            svg, note = answer
             waiting = by_slug[got]
             self._drawn[got] = FigureImage(waiting.slug, waiting.title, waiting.alt, svg, note=note or waiting.note,
                                            number=waiting.number, anchor=waiting.anchor)
-        if self._connection is not None and all(f.slug in self._drawn for f in self._waiting):
+        if self._connection is not None and not self._want_pictures and all(f.slug in self._drawn
+                                                                             for f in self._waiting):
             self._close()
 
     def _close(self, wait: float = 5.0) -> None:
@@ -126,6 +141,17 @@ class FigureDrawing:
         self._receive_until(figure.slug)
         return self._drawn[figure.slug]
 
+    def pictures(self) -> dict[str, bytes]:
+        """PNG of every figure drawn, by slug (for the DOCX copy): the child's, else drawn here."""
+        self._receive_until(None)
+        for slug, job in self._jobs.items():
+            figure = self._drawn.get(slug)
+            if slug not in self._pictures and figure is not None and figure.svg is not None:
+                picture = _picture(job)
+                if picture is not None:
+                    self._pictures[slug] = picture
+        return dict(self._pictures)
+
     def all_drawn(self) -> bool:
         """Whether every figure came out; False means one failed and carries a note instead."""
         self._receive_until(None)
@@ -134,6 +160,15 @@ class FigureDrawing:
     def close(self) -> None:
         """Stop the child; one still drawing (the PDF failed before it needed the figures) is killed."""
         self._close(wait=0.0 if self._connection is not None else 5.0)
+
+
+def _picture(job) -> bytes | None:
+    """The PNG of a figure whose SVG was drawn; None if the picture fails (the copy then names
+    the figure in words instead of failing the whole rendering)."""
+    try:
+        return png_of(job)
+    except Exception:  # noqa: BLE001 - a picture is a copy of an SVG already drawn
+        return None
 
 
 def _can_fork() -> bool:

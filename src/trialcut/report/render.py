@@ -154,13 +154,13 @@ def _older_objects_left_alone():
 def _render_documents(results: Mapping[str, Any], run_folder: Path,
                       audit: Mapping[str, Any] | None) -> dict[str, Path]:
     document = build_document(results, audit, draw=False)
-    jobs = {f.slug: f.job for f in document.figures if f.job is not None}    # drawn again as PNG for the DOCX
-    drawing = FigureDrawing(document.figures)
+    drawing = FigureDrawing(document.figures, pictures=True)      # PNGs too, for the DOCX copy
     try:
         pdf_html = render_html(map_figures(document, lambda f: replace(f, link=figure_link(f))))
         run_folder.mkdir(parents=True, exist_ok=True)
         html_to_pdf(pdf_html, run_folder / "report.pdf", drawing.fetcher())
         complete = drawing.all_drawn()
+        pictures = drawing.pictures()
         links = {f.link: f for f in document.figures}
         map_figures(document, lambda f: replace(drawing.drawn(replace(f, link="")), link=""))
     finally:
@@ -168,22 +168,22 @@ def _render_documents(results: Mapping[str, Any], run_folder: Path,
     if not complete:
         document = build_document(results, audit)
         html = render_html(document)
-        return _with_docx(write_outputs(document, html, run_folder), document, results, run_folder, jobs)
+        return _with_docx(write_outputs(document, html, run_folder), document, results, run_folder, pictures)
     # The reader's HTML is the PDF's with each figure inlined (the template's own data URI).
     html = pdf_html
     for link, figure in links.items():
         html = html.replace(f'src="{link}"', f'src="{data_uri(drawing.svg(figure.slug), "image/svg+xml")}"')
     return _with_docx(write_outputs(document, html, run_folder, pdf_html=pdf_html), document, results, run_folder,
-                      jobs)
+                      pictures)
 
 
 def _with_docx(written: dict[str, Path], document: Document, results: Mapping[str, Any], folder: Path,
-               jobs: Mapping[str, Any]) -> dict[str, Path]:
+               pictures: Mapping[str, bytes]) -> dict[str, Path]:
     """The editable copy (report.docx) beside the PDF, dated by the run so a re-render gives the same bytes."""
-    from trialcut.report.docx_output import pictures_of, write_docx
+    from trialcut.report.docx_output import write_docx
 
     run = results.get("run") or {}
-    written["report.docx"] = write_docx(document, folder / "report.docx", pictures=pictures_of(document.figures, jobs),
+    written["report.docx"] = write_docx(document, folder / "report.docx", pictures=pictures,
                                         created=run.get("started_utc"), modified=run.get("finished_utc"))
     return written
 
