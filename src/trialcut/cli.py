@@ -20,12 +20,13 @@ from pathlib import Path
 from typing import Sequence
 
 from trialcut import __version__
+from trialcut.commands_bundle import add_bundle_parser
 from trialcut.commands_key import add_key_arguments, add_signing_arguments
 from trialcut.commands_qc import add_qc_parser
 from trialcut.errors import TrialcutError
 
 OWN_MODULES = {"key": "trialcut.commands_key", "approve": "trialcut.commands_approve",
-               "qc": "trialcut.commands_qc"}
+               "qc": "trialcut.commands_qc", "bundle": "trialcut.commands_bundle"}
 
 
 class UsageError(TrialcutError):
@@ -95,6 +96,7 @@ def build_parser() -> argparse.ArgumentParser:
     approve.add_argument("--registry", type=Path, help="registry file (default: the run's output root's)")
 
     add_qc_parser(commands)
+    add_bundle_parser(commands)
 
     run = commands.add_parser("run", help="check a data cut and run the locked plan on it")
     run.add_argument("plan", type=Path)

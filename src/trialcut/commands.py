@@ -448,6 +448,10 @@ def _print_leftovers(leftovers) -> None:
 def command_verify(args) -> int:
     from trialcut.record.verify import registry_beside, verify_all, verify_folder
 
+    if args.run_folder is not None and Path(args.run_folder).is_file():
+        from trialcut.commands_bundle import verify_bundle_command
+
+        return verify_bundle_command(args)
     if args.run_folder is None:
         report = verify_all(args.out, args.registry or args.out / "registry.sqlite", head=args.head)
     else:
