@@ -151,12 +151,19 @@ def _text_width(section) -> int:
 
 
 def _running_texts(section, document) -> None:
+    # A copy has no watermark: the marks of state (unlocked plan, dummy codes) lead the header
+    # of every page in the warning colour; a document without marks names its banners there.
     header = section.header.paragraphs[0]
-    header.text = document.header_text
-    for banner in document.banners:
-        run = header.add_run(f"  ·  {banner}")
+    marks = list(getattr(document, "marks", None) or [])
+    text = document.header_text
+    prefix = " · ".join(marks) + " · "
+    if marks and text.startswith(prefix):
+        text = text[len(prefix):]
+    for mark in marks or document.banners:
+        run = header.add_run(f"{mark} · ")
         run.bold = True
         _colour(run, WARN)
+    header.add_run(text)
     footer = section.footer.paragraphs[0]
     footer.add_run(f"Run {document.run_id}    Page ")
     _field(footer, "PAGE")
