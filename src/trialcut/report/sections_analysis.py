@@ -757,6 +757,8 @@ def _imputation_words(context: EndpointContext, analysis: Mapping[str, Any]) -> 
     """The imputation model, the analysis model run on each completed dataset, and what was imputed."""
     options, fit = analysis.get("options") or {}, analysis.get("fit") or {}
     assumption = ASSUMPTION_WORDS.get(options.get("assumption"), options.get("assumption") or "an unrecorded assumption")
+    if (fit.get("assumption_rules") or {}).get("rules"):
+        assumption = "the assumption their event and reason call for (below)"
     covariates = ", ".join(options.get("covariates") or []) or "no covariates"
     own_matrix = ("each arm with its own regression and covariance matrix" if options.get("covariance_by_arm")
                   else "the arms sharing one covariance matrix, with a mean for each arm and visit")
