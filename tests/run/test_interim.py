@@ -116,3 +116,18 @@ def test_without_due_dates_information_counts_observed_participants():
     out = interim_multiplicity(_plan(), cut, {"run": {"cut": "interim"}}, _hypotheses(0.5, 0.5))
     assert out["sequential"]["information_reached"] == pytest.approx(0.6)
     assert any("no due dates" in c for c in out["sequential"]["cautions"])
+
+
+def test_calendar_information_is_days_to_the_cut_off_over_planned_days():
+    import datetime as dt
+
+    plan = _plan(information_by="calendar", planned_participants=None, calendar_start="2026-01-01",
+                 calendar_end="2026-12-27")
+    cut = _cut(n_due=10)
+    cut.cut_off = SimpleNamespace(date=dt.date(2026, 6, 1))
+    out = interim_multiplicity(plan, cut, {"run": {"cut": "interim"}}, _hypotheses(0.5, 0.5))
+    assert out["sequential"]["information_reached"] == pytest.approx(151 / 360)
+    assert out["sequential"]["fractions_used"] == pytest.approx([151 / 360])
+    no_date = _cut(n_due=10)
+    out = interim_multiplicity(plan, no_date, {"run": {"cut": "interim"}}, _hypotheses(0.5, 0.5))
+    assert out["hypotheses"]["columns"][-1] == "p"     # nothing to measure: no decision
