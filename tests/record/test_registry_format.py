@@ -113,3 +113,13 @@ def test_history_shows_every_id_whole_in_80_columns(tmp_path, monkeypatch):
     record_lines = [line for line in lines if not line.startswith("Records in")]
     assert max(len(line) for line in record_lines) <= 80, screen.getvalue()
     assert "dummy treatment codes" in screen.getvalue() and "locked plan" in screen.getvalue()
+
+
+def test_an_unsealed_comparison_from_before_format_2_is_named_as_such(tmp_path, capsys):
+    out = tmp_path / "out"
+    record_small_run(out, "r1")
+    old = out / "S" / "comparisons" / "interim-vs-final"
+    old.mkdir(parents=True)
+    (old / "comparison.html").write_text("<html></html>\n")
+    assert main(["verify", "--out", str(out)]) == 1
+    assert "an unsealed comparison (no manifest)" in capsys.readouterr().err

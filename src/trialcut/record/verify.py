@@ -361,6 +361,15 @@ def _unregistered_problems(out_root: Path, rows: list[RegistryRow],
     registered = {row.folder_path(registry_path).resolve() for row in rows}
     return [Problem(code="verify.folder_unregistered", file=str(folder),
                     message=f"this folder has no row in the registry {registry_path}",
-                    hint="its row was deleted, it was added by hand, or it was copied here from "
-                         "another output folder; do not use it until its origin is known")
+                    hint=_unregistered_hint(folder))
             for folder in list_run_folders(out_root) if folder.resolve() not in registered]
+
+
+def _unregistered_hint(folder: Path) -> str:
+    if folder.parent.name == "comparisons" and not (folder / MANIFEST_NAME).exists():
+        # trialcut before registry format 2 wrote comparisons without sealing them.
+        return ("an unsealed comparison (no manifest), as trialcut wrote them before comparisons "
+                "were recorded: it was never part of the record; move it out of the output "
+                "folder, and run 'trialcut compare' again for a recorded one")
+    return ("its row was deleted, it was added by hand, or it was copied here from another "
+            "output folder; do not use it until its origin is known")
