@@ -230,7 +230,10 @@ def test_a_broken_count_is_caught():
     cut = prepare_cut(plan, raw_from_frame(frame), cut_off=cut_off, today=dt.date(2026, 12, 2))
     results = runner.run_plan(plan, cut, RunContext(root_seed=1), plan_block={}, data_block={}, run_block={})
     results["endpoints"][0]["analyses"][0]["fit"]["n_obs"] += 1
-    results["endpoints"][0]["descriptive"]["data"][1][3] += 1
+    descriptive = results["endpoints"][0]["descriptive"]
+    columns = descriptive["columns"]
+    first_change = next(row for row in descriptive["data"] if row[columns.index("variable")] == "CHG")
+    first_change[columns.index("n")] += 1
     assert len(reconciliation_problems(results)) == 2
 
 
