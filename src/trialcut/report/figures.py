@@ -380,19 +380,21 @@ def forest_chart(rows: Sequence[Mapping[str, Any]], *, arms: Sequence[str], x_la
     labels = list(dict.fromkeys(r["label"] for r in rows))
     primary = {r["label"] for r in rows if r.get("primary")}
     shown_arms = [a for a in arms if any(_arm_of(r) == a for r in rows)] or list(dict.fromkeys(_arm_of(r) for r in rows))
-    band = 0.7 / max(1, len(shown_arms))
     wrapped = {l: textwrap.fill(("Primary: " if l in primary else "") + str(l), 40) for l in labels}
-    # Each band is as tall as its label's lines (or its arms' lines, if more), so labels never overlap.
-    lines = [max(wrapped[l].count("\n") + 1, len(shown_arms)) for l in labels]
-    height = max(2.4, 0.15 * sum(lines) + 0.12 * len(labels) + 1.3)
+    # Each band is as tall as its label's lines (or its arms' lines, if more), plus a gap, in
+    # units of one text line: a long label never runs into the next one.
+    lines = [max(wrapped[l].count("\n") + 1, len(shown_arms)) + 0.8 for l in labels]
+    centres = [sum(lines[:i]) + lines[i] / 2 for i in range(len(labels))]
+    step = 0.9      # text lines between the arms' lines inside a band
+    height = max(2.4, 0.17 * sum(lines) + 1.3)     # about 0.15 inch per line of 7.5-point text
 
     def draw(figure):
         axes = figure.subplots()
         for row in rows:
             arm = _arm_of(row)
             style = arm_style(arms, arm)
-            offset = (shown_arms.index(arm) - (len(shown_arms) - 1) / 2) * band if arm in shown_arms else 0
-            y = labels.index(row["label"]) + offset
+            offset = (shown_arms.index(arm) - (len(shown_arms) - 1) / 2) * step if arm in shown_arms else 0
+            y = centres[labels.index(row["label"])] + offset
             if row.get("lower") is not None and row.get("upper") is not None:
                 axes.plot([row["lower"], row["upper"]], [y, y], color=style["color"], linewidth=1.6)
             axes.plot([row["estimate"]], [y], marker=style["marker"], color=style["color"], markersize=5,
@@ -402,11 +404,11 @@ def forest_chart(rows: Sequence[Mapping[str, Any]], *, arms: Sequence[str], x_la
             axes.text(1.02, y, numbers, transform=axes.get_yaxis_transform(), va="center", ha="left",
                       fontsize=7, color=style["color"], fontweight="bold" if row["label"] in primary else "normal")
         axes.axvline(0, color=INK, linewidth=0.8, linestyle=(0, (4, 3)))
-        axes.set_yticks(range(len(labels)), [wrapped[l] for l in labels], fontsize=7.5)
+        axes.set_yticks(centres, [wrapped[l] for l in labels], fontsize=7.5)
         for tick, text in zip(axes.get_yticklabels(), labels):
             if text in primary:
                 tick.set_fontweight("bold")
-        axes.set_ylim(len(labels) - 0.5, -0.5)
+        axes.set_ylim(sum(lines), 0)
         axes.set_xlabel(x_label)
         if favours:     # under the axis title, one at each end of the axis
             for x, text, align in ((0.0, f"← {favours[0]}", "left"), (1.0, f"{favours[1]} →", "right")):

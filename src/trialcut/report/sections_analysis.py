@@ -222,7 +222,7 @@ def _trajectories_figure(context: EndpointContext) -> FigureImage:
 
 def _trajectories_note(context: EndpointContext, source: Mapping[str, Any], shown: int, in_table: int) -> str:
     """Say which participants are drawn: the run draws a random sample of the population first."""
-    population = context.population_label(context.population)
+    population = _lower_first_word(context.population_label(context.population))
     in_population = sum(context.population_counts(context.population).values())
     drawn = re.search(r"(\d+) participants drawn at random", str(source.get("title") or ""))
     if drawn and in_population and int(drawn.group(1)) < in_population:
