@@ -30,14 +30,22 @@ def multiplicity_by_look(section: Section, results: Mapping[str, Any], number_fo
         return
     final = facts.get("planned_look") and facts.get("look") == facts.get("looks")
     decision = "Rejected" if final else "Boundary crossed (interim)"
+    # The analysis, arm and visit name each hypothesis; its plan id is for the CSV file. Equal
+    # weights (the usual Holm set-up) say nothing, so their column is left out (issue 9).
+    rows = hypotheses.get("data") or []
+    columns = list(hypotheses.get("columns") or [])
+    weights = {row[columns.index("weight")] for row in rows} if "weight" in columns else set()
+    hidden = ("tested", "id", *(("weight",) if len(weights) <= 1 else ()))
     section.table(from_results_table(
         hypotheses, slug="multiplicity", title=hypotheses.get("title") or "Tests of the hypotheses",
-        number_format=number_format, hide=("tested",),
+        number_format=number_format, hide=hidden,
         labels={"id": "Hypothesis", "analysis": "Analysis", "weight": "Weight", "p": "Nominal p-value",
                 "local_alpha": "Alpha held", "boundary_z": "Boundary |z|", "boundary_p": "Boundary p-value",
                 "crossed_alone": "Crosses at its own initial alpha", "crossed_adjusted": decision},
         kinds={"p": "p_exact", "local_alpha": "general", "boundary_z": "general", "boundary_p": "general",
                "crossed_alone": "flag", "crossed_adjusted": "flag", "weight": "general"}))
+    if facts.get("planned_look") and "crossed_adjusted" in columns:
+        section.paragraph(_conclusion(rows, columns, final, f"{record.get('alpha', 0.05):g}"))
     if facts.get("boundaries"):
         section.table(from_results_table(
             facts["boundaries"], slug="multiplicity_boundaries", number_format=number_format,
@@ -68,6 +76,24 @@ def _look_sentence(record: Mapping[str, Any], facts: Mapping[str, Any]) -> str:
             f"fractions {', '.join(f'{t:.3f}' for t in used)} with {spending} spending of a two-sided "
             f"{alpha}; boundary at this look at the full alpha: {boundary}. Hypotheses go through the "
             f"{method} procedure with group-sequential boundaries for the alpha each holds.")
+
+
+def _conclusion(rows: list, columns: list, final: bool, alpha: str) -> str:
+    """One sentence a reviewer can quote: which comparisons crossed, at the final or an interim look."""
+    def name(row) -> str:
+        parts = [str(row[columns.index(c)]) for c in ("arm", "visit") if c in columns and row[columns.index(c)]]
+        return " at ".join(parts) or (str(row[columns.index("id")]) if "id" in columns else "a hypothesis")
+
+    crossed = [name(r) for r in rows if r[columns.index("crossed_adjusted")]]
+    if final:
+        if not crossed:
+            return f"Conclusion: no hypothesis is rejected at the overall two-sided level {alpha}."
+        return (f"Conclusion: {len(crossed)} of {len(rows)} hypotheses rejected at the overall two-sided level "
+                f"{alpha} ({'; '.join(crossed)}).")
+    if not crossed:
+        return "At this interim look no boundary is crossed."
+    return (f"At this interim look the boundary is crossed for {'; '.join(crossed)}; this is not a final "
+            "decision, which the plan's stopping rules and the committee's review govern.")
 
 
 def _boundary_at_look(facts: Mapping[str, Any]) -> str:
