@@ -49,3 +49,13 @@ def test_without_dates_the_report_says_due_ness_could_not_be_judged():
     section = _flow_section(_results(with_dates=False))
     notices = [b.content for b in section.blocks if b.kind == "notice"]
     assert any("could not be judged" in n for n in notices)
+
+
+def test_the_pattern_figure_draws_visits_not_yet_due_apart():
+    from trialcut.report.figures import NOT_YET_DUE_COLOUR, pattern_chart
+
+    rows = [{"arm": "A", "pattern": "XX--", "count": 3}, {"arm": "A", "pattern": "X...", "count": 1}]
+    drawn = pattern_chart(rows, arms=["A"], visits=["V1", "V2", "V3", "V4"]).decode("utf-8")
+    assert NOT_YET_DUE_COLOUR in drawn and "not yet due" in drawn
+    plain = pattern_chart(rows[1:], arms=["A"], visits=["V1", "V2", "V3", "V4"]).decode("utf-8")
+    assert NOT_YET_DUE_COLOUR not in plain and "not yet due" not in plain

@@ -265,6 +265,9 @@ def trajectories_chart(series: Mapping[str, Mapping[str, list[tuple[str, float]]
 
 
 # --------------------------------------------------------------------------- missing data
+NOT_YET_DUE_MARK, NOT_YET_DUE_COLOUR = "-", "#dddddd"
+
+
 def pattern_chart(rows: Sequence[Mapping[str, Any]], *, arms, visits) -> bytes:
     """Tiles: one row per arm and pattern, a filled tile per observed visit, the count beside it."""
     ordered = [r for arm in arms for r in rows if r.get("arm") == arm]
@@ -277,7 +280,10 @@ def pattern_chart(rows: Sequence[Mapping[str, Any]], *, arms, visits) -> bytes:
             style = arm_style(arms, row.get("arm"))
             pattern = str(row.get("pattern") or "")
             for x, mark in enumerate(pattern[: len(visits)]):
-                observed = mark not in (".", "-", " ", "0")
+                if mark == NOT_YET_DUE_MARK:   # neither observed nor missing: a category of its own
+                    axes.add_patch(_tile(x, y, NOT_YET_DUE_COLOUR, True))
+                    continue
+                observed = mark not in (".", " ", "0")
                 axes.add_patch(_tile(x, y, style["color"] if observed else "#ffffff", observed))
             axes.text(len(visits) + 0.15, y, f"{row.get('count', '')}", va="center", fontsize=8, color=INK)
         axes.set_xlim(-0.6, len(visits) + 0.9)
@@ -287,7 +293,9 @@ def pattern_chart(rows: Sequence[Mapping[str, Any]], *, arms, visits) -> bytes:
         axes.xaxis.tick_top()
         axes.spines[:].set_visible(False)
         axes.tick_params(length=0)
-        axes.set_xlabel("Filled: value observed; open: missing. Number at right: participants.")
+        not_due = any(NOT_YET_DUE_MARK in str(r.get("pattern") or "") for r in ordered)
+        axes.set_xlabel("Filled: value observed; open: missing" + ("; light grey: visit not yet due at the cut-off"
+                        if not_due else "") + ". Number at right: participants.")
 
     return _draw(draw, height=height)
 
