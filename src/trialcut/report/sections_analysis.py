@@ -94,8 +94,9 @@ def missing_data(section: Section, context: EndpointContext) -> None:
     if patterns:
         section.paragraph(
             f"A pattern has one mark per scheduled visit in time order, drawn as in Figure 1: {OBSERVED_MARK} "
-            f"where a value was observed, {MISSING_MARK} where it is missing. A monotone pattern has no "
-            "observed value after a missing one.")
+            f"where a value was observed, {MISSING_MARK} where it is missing (or set aside by the strategy), "
+            "- where the visit was not yet due at the cut-off (neither observed nor missing). A monotone "
+            "pattern has no observed value after a missing one.")
         shown = _with_pattern_marks(patterns)
         section.table(context.standalone(from_results_table(
             shown, slug=f"{context.slug}_missing_patterns", number_format=number_format,
