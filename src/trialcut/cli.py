@@ -23,10 +23,12 @@ from trialcut import __version__
 from trialcut.commands_bundle import add_bundle_parser
 from trialcut.commands_key import add_key_arguments, add_signing_arguments
 from trialcut.commands_qc import add_qc_parser
+from trialcut.commands_reproduce import add_reproduce_parser
 from trialcut.errors import TrialcutError
 
 OWN_MODULES = {"key": "trialcut.commands_key", "approve": "trialcut.commands_approve",
-               "qc": "trialcut.commands_qc", "bundle": "trialcut.commands_bundle"}
+               "qc": "trialcut.commands_qc", "bundle": "trialcut.commands_bundle",
+               "reproduce": "trialcut.commands_reproduce"}
 
 
 class UsageError(TrialcutError):
@@ -97,6 +99,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     add_qc_parser(commands)
     add_bundle_parser(commands)
+    add_reproduce_parser(commands)
 
     run = commands.add_parser("run", help="check a data cut and run the locked plan on it")
     run.add_argument("plan", type=Path)

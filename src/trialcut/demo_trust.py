@@ -66,8 +66,9 @@ def lock_demo_plan(loaded, out: Path) -> str:
 
 def approve_and_check_final(out: Path, final_folder: Path, final_data: Path) -> list[str]:
     """Approve the final run (demo reviewer), QC it against the second programmer's numbers,
-    and say whether it is final.  A QC difference stops the demo (exit 1)."""
+    bundle it with its data, and say whether it is final.  A QC difference stops the demo (exit 1)."""
     from trialcut.demo_qc import write_qc_file
+    from trialcut.record.bundle import build_bundle
     from trialcut.record.qc import compare, read_qc_file, record_qc, run_values, tolerances_of
     from trialcut.record.registry import find_record
     from trialcut.record.signing import read_keyring
@@ -87,8 +88,11 @@ def approve_and_check_final(out: Path, final_folder: Path, final_data: Path) -> 
         raise VerificationFailed(f"demo QC of the final run found differences: {outcome.summary}; "
                                  f"see {qc.folder / 'qc.html'}")
     state = next(run for run in check_signoff(registry, keyring, run_id=row.record_id).runs)
+    bundle = build_bundle(final_folder, row, registry, keyring_file(out), final_data)
+    archive = bundle.folder / bundle.row.details_dict()["archive"]
     return [f"approval:         {approval.folder} (demo reviewer, signed)",
             f"QC (double programming): {outcome.summary}: {qc.folder / 'qc.html'}",
+            f"handover bundle:  {archive} (check: trialcut verify {archive} --keyring {keyring_file(out)})",
             f"final run is:     {state.state}" + (f" (lacks {'; '.join(state.lacking)})" if state.lacking else ""),
             f"check signatures: trialcut verify --out {out} --keyring {keyring_file(out)}"]
 
