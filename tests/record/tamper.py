@@ -8,6 +8,9 @@
 - ``add_file: <relative path>``       add a file that the manifest does not list
 - ``edit_registry_row: <column>``     change one column of the run's registry row
 - ``delete_registry_row: true``       delete the run's registry row
+- ``edit_registry_row_rehashed: <column>``  change one column and recompute the whole chain
+- ``forge_file: <relative path>``     change a file and write a fresh manifest for it
+- ``remove_registry: true``           take the registry away (a run folder copied alone)
 - ``untouched: true``                 leave the run as it is (cases about commands that take a
                                       good run, e.g. qc with a bad QC file)
 
@@ -24,7 +27,8 @@ import sqlite3
 from pathlib import Path, PurePosixPath
 
 TAMPER_ACTIONS = ("edit_file", "delete_file", "add_file", "edit_registry_row",
-                  "delete_registry_row", "untouched")
+                  "delete_registry_row", "untouched", "edit_registry_row_rehashed", "forge_file",
+                  "remove_registry")
 
 
 def apply_tamper(run_folder: Path, registry_path: Path, setup: dict) -> None:
@@ -41,13 +45,18 @@ def apply_tamper(run_folder: Path, registry_path: Path, setup: dict) -> None:
         _add_file(_inside(run_folder, argument))
     elif action == "edit_registry_row":
         _edit_row(registry_path, run_folder.name, argument)
-    elif action == "untouched":
-        if argument is not True:
-            raise ValueError(f"untouched takes true; got {argument!r}")
-    else:
-        if argument is not True:
-            raise ValueError(f"delete_registry_row takes true; got {argument!r}")
+    elif action == "edit_registry_row_rehashed":
+        _edit_row(registry_path, run_folder.name, argument)
+        rehash_chain(registry_path)
+    elif action == "forge_file":
+        _edit_file(_inside(run_folder, argument))
+        regenerate_manifest(run_folder)
+    elif argument is not True:
+        raise ValueError(f"{action} takes true; got {argument!r}")
+    elif action == "delete_registry_row":
         _change_registry(registry_path, "DELETE FROM records WHERE record_id = ?", [run_folder.name])
+    elif action == "remove_registry":
+        _existing(registry_path).unlink()
 
 
 def _inside(run_folder: Path, relative: object) -> Path:
@@ -98,6 +107,8 @@ def _edit_row(registry_path: Path, run_id: str, column: object) -> None:
 
 
 def _changed_value(value: object) -> object:
+    if value in ("locked", "unlocked"):   # a rehearsal relabelled as locked, or the reverse
+        return {"locked": "unlocked", "unlocked": "locked"}[value]
     if isinstance(value, int):
         return 1 - value if value in (0, 1) else value + 1000
     text = str(value)

@@ -38,7 +38,7 @@ def test_verification_case(case_file: Path, tmp_path: Path, capsys):
         assert set(spec["setup"]) <= set(TAMPER_ACTIONS)
         tokens["run"] = record_small_run(out, "r1").folder
         # The untampered run verifies, so the failure below is the tamper's doing.
-        assert main(_expand(spec["argv"], tokens)) == 0
+        assert main(["verify", str(tokens["run"]), "--registry", str(out / "registry.sqlite")]) == 0
         apply_tamper(tokens["run"], out / "registry.sqlite", spec["setup"])
     capsys.readouterr()
     status = main(_expand(spec["argv"], tokens))
