@@ -237,10 +237,19 @@ def build_issue10() -> None:
     post = full["ABLFL"] != "Y"
     json_run = [a.replace("{case}/data.csv", "{case}/data.json") for a in RUN]
 
-    _case("data_one_participant", "A cut with a single participant: both analyses fail and say why; the run "
-          "is recorded and exits 4 because the primary analysis failed.",
+    _case("data_one_participant", "A cut with a single participant: every analysis fails and says why; the "
+          "run is recorded and exits 4 because the primary analysis failed.",
           "primary analysis failed: mmrm_primary", frame=full[full["USUBJID"] == subjects.iloc[0]], exit=4,
-          recorded=True, failed={"mmrm_primary": "only the reference arm", "ancova_observed": "one arm only"})
+          recorded=True, argv=CASE_RUN, files={"plan.yaml": _plan_edit(_WITH_IMPUTATION)},
+          failed={"mmrm_primary": "only the reference arm", "ancova_observed": "one arm only",
+                  "mi_jump_to_reference": "one arm only"})
+
+    _case("data_reference_arm_only", "Every participant is on placebo, the reference arm: nothing to compare "
+          "(the imputation once ended in an internal fault here).", "primary analysis failed: mmrm_primary",
+          frame=full[full["TRT01P"] == "Placebo"], exit=4, recorded=True, argv=CASE_RUN,
+          files={"plan.yaml": _plan_edit(_WITH_IMPUTATION)},
+          failed={"mmrm_primary": "only the reference arm", "ancova_observed": "one arm only",
+                  "mi_jump_to_reference": "one arm only"})
 
     frame = full[full["TRT01P"] == "Lorvatide 10 mg"]
     _case("data_one_arm_only", "Every participant is on one active arm: no reference arm to compare with.",
@@ -391,6 +400,13 @@ def build_issue10() -> None:
     _case("lock_study_id_not_a_folder_name", "'lock' refuses a study id that can never run.",
           "the study id 'LVT/201' cannot be used", argv=["lock", "{case}/plan.yaml", "--by", "tester", "--reason",
                                                           "case"], files={"plan.yaml": unsafe_study})
+
+    _case("check_plan_edited_after_lock", "'check' on a plan edited after locking: it still shows what the plan "
+          "declares, and exits 2 as 'run' would, naming the change.", "changed since it was locked",
+          argv=["check", "{case}/plan.yaml"], files={"plan.yaml": _plan_edit()}, lock_first=True,
+          edit_after_lock=[{"file": "plan.yaml", "old": "seed: 7", "new": "seed: 8"}])
+    _case("check_plan_not_locked_yet", "'check' on a valid plan that is simply not locked yet exits 0.", "",
+          argv=["check", "{case}/plan.yaml"], exit=0, files={"plan.yaml": _plan_edit()})
 
     absent_data = [a.replace("{case}/data.csv", "{case}/absent.csv") for a in RUN]
     _case("run_unsafe_cut_label", "A cut label with '..' is refused before the data are read (the data "

@@ -171,3 +171,35 @@ def test_dataset_json_version_1_0_layout_is_named(tmp_path):
     with pytest.raises(DataError) as caught:
         read_cut(path)
     assert caught.value.problems[0].code == "data.dataset_json_version"
+
+
+def test_a_data_file_beyond_the_size_limit_is_refused_before_reading(tmp_path, monkeypatch, capsys):
+    # issue 10: size limits with a clear message; the limit is lowered here so the test stays small.
+    from trialcut.cli import main
+    from trialcut.data import readers
+
+    monkeypatch.setattr(readers, "MAX_DATA_BYTES", 1 << 20)
+    path = tmp_path / "cut.csv"
+    path.write_bytes(b"USUBJID,AVAL\n" + b"S1,1\n" * 300_000)
+    plan = readers.Path(__file__).resolve().parents[1] / "cases" / "_base" / "plan.yaml"
+    status = main(["run", str(plan), "--data", str(path), "--cut", "c1", "--out", str(tmp_path / "out"), "--unlocked"])
+    err = capsys.readouterr().err
+    assert status == 2
+    assert "the data file is larger than trialcut reads; expected at most 1 MB; got 1.4 MB" in err
+
+
+def test_a_tab_separated_file_gets_a_delimiter_hint(tmp_path):
+    path = tmp_path / "cut.csv"
+    path.write_text("USUBJID\tAVAL\nS1\t1\n", encoding="utf-8")
+    with pytest.raises(DataError) as caught:
+        read_cut(path)
+    assert "separates its fields with tabs" in caught.value.render()
+
+
+def test_non_utf8_dataset_json_is_located(tmp_path):
+    path = tmp_path / "cut.json"
+    path.write_bytes(b'{\n  "name": "caf\xe9"\n}')
+    with pytest.raises(DataError) as caught:
+        read_cut(path)
+    problem = caught.value.problems[0]
+    assert (problem.code, problem.line, problem.column) == ("data.encoding", 2, 15)

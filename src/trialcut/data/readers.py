@@ -95,7 +95,7 @@ def read_cut(path: str | Path) -> RawCut:
     size = path.stat().st_size
     if size > MAX_DATA_BYTES:
         raise _error(path, "data.too_large", "the data file is larger than trialcut reads",
-                     expected=f"at most {MAX_DATA_BYTES // (1 << 20)} MB", got=f"{size / (1 << 20):.0f} MB",
+                     expected=f"at most {MAX_DATA_BYTES // (1 << 20)} MB", got=f"{size / (1 << 20):.1f} MB",
                      hint="check that this is the analysis dataset; export only the parameters the plan analyses")
     try:
         content = path.read_bytes()

@@ -823,6 +823,10 @@ def _check_settings(data, assumption, n_imputations, burn_in, thinning, chains, 
 def _identifiability(data: ImputationData, by_arm: bool) -> list[Problem]:
     """Every arm needs observed values at every visit, and enough participants for Σ."""
     problems = []
+    if len(data.arms) < 2:
+        problems.append(Problem(code="stats.one_arm", message="the data hold one arm only: there is no "
+                                "comparison to impute for", expected="the reference arm and at least one other",
+                                got=", ".join(map(str, data.arms)) or "no arm"))
     t, p = len(data.visits), data.covariates.shape[1]
     for k, arm in enumerate(data.arms):
         rows = data.arm_index == k
