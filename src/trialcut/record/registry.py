@@ -49,9 +49,10 @@ SCHEMA_VERSION = 2
 REGISTRY_NAME = "registry.sqlite"
 RECORD_KINDS = ("run", "comparison", "rendering", "approval", "qc", "bundle")
 LOCK_STATUSES = ("locked", "unlocked")
-# How long a writer waits for another writer's lock: briefly before an analysis starts
-# (so a busy registry is said at once), longer once a finished analysis waits to be recorded.
-EARLY_PATIENCE_SECONDS = 30.0
+# How long a writer waits for another writer's lock: before an analysis starts, long enough
+# for another run to finish rendering and recording (writers hold the lock while they fill
+# their folder); longer once a finished analysis waits to be recorded.
+EARLY_PATIENCE_SECONDS = 120.0
 RECORD_PATIENCE_SECONDS = 600.0
 _POLL_SECONDS = 0.5
 
