@@ -86,3 +86,31 @@ def test_the_early_check_says_what_is_wrong_and_writes_nothing(tmp_path, held):
     with pytest.raises(registry_module.InputError) as caught:
         check_writable(blocked / "registry.sqlite")
     assert caught.value.problems[0].code == "record.registry_unwritable"
+
+
+def record_in_child(out: str, run_id: str, start) -> None:
+    start.wait(timeout=60)   # all writers begin together, so they contend for the lock
+    record_small_run(Path(out), run_id, cut=f"cut-{run_id}")
+
+
+def test_three_writers_at_once_are_recorded_one_after_another(tmp_path):
+    import multiprocessing
+
+    from trialcut.record.registry import verify_chain
+    from trialcut.record.verify import verify_all
+
+    out = tmp_path / "out"
+    context = multiprocessing.get_context("fork")
+    start = context.Event()
+    writers = [context.Process(target=record_in_child, args=(str(out), f"r{number}", start))
+               for number in range(3)]
+    for writer in writers:
+        writer.start()
+    start.set()
+    for writer in writers:
+        writer.join(timeout=120)
+    assert [writer.exitcode for writer in writers] == [0, 0, 0]
+    rows = list_records(out / "registry.sqlite")
+    assert sorted(row.record_id for row in rows) == ["r0", "r1", "r2"]
+    assert verify_chain(out / "registry.sqlite") == []
+    assert verify_all(out, out / "registry.sqlite").ok
