@@ -114,3 +114,9 @@ def test_three_writers_at_once_are_recorded_one_after_another(tmp_path):
     assert sorted(row.record_id for row in rows) == ["r0", "r1", "r2"]
     assert verify_chain(out / "registry.sqlite") == []
     assert verify_all(out, out / "registry.sqlite").ok
+    # Each folder was filled knowing the exact chain head its row would follow.
+    import json
+
+    for row in rows:
+        audit = json.loads((out / row.folder / "audit.json").read_text())
+        assert audit["registry_follows"] == row.previous_hash
