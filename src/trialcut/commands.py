@@ -633,6 +633,7 @@ def command_demo(args) -> int:
     data_dir.mkdir(parents=True, exist_ok=True)
     plan_dir.mkdir(parents=True, exist_ok=True)
     console.print("[bold]trialcut demo[/bold]: an invented trial (study LVT-201), two data cuts")
+    _remove_unsealed_demo_comparisons(out / "LVT-201" / "comparisons")
     cuts = demo_cuts(seed=args.seed)
     paths = {}
     for label, frame in cuts.items():
@@ -668,6 +669,14 @@ def command_demo(args) -> int:
     for line in trust:
         console.print(f"  {line}", markup=False)
     return 0
+
+
+def _remove_unsealed_demo_comparisons(folder: Path) -> None:
+    """Earlier demos wrote their comparison unsealed and unrecorded; verify would flag it now."""
+    for leftover in sorted(folder.glob("interim-vs-final*")) if folder.is_dir() else []:
+        if leftover.is_dir() and not (leftover / "MANIFEST.sha256").exists():
+            shutil.rmtree(leftover)
+            console.print(f"  removed {leftover}: an unrecorded comparison left by an earlier demo")
 
 
 # --------------------------------------------------------------------------- helpers
