@@ -21,9 +21,11 @@ def flow_section(results: Mapping[str, Any], number_format: NumberFormat) -> Sec
     section = Section("flow", "Cut-off, visits due and participant flow")
     cut_off(section, results)
     visit_assignment(section, results, number_format)
-    for position, endpoint in enumerate(results.get("endpoints") or []):
+    endpoints = results.get("endpoints") or []
+    for position, endpoint in enumerate(endpoints):
         for index, entry in enumerate(endpoint.get("flow") or []):
-            _flow_table(section, endpoint, entry, f"flow_{position + 1}_{index + 1}", number_format)
+            _flow_table(section, results, endpoint, entry, f"flow_{position + 1}_{index + 1}", number_format,
+                        name_endpoint=len(endpoints) > 1)
     if not any(e.get("flow") for e in results.get("endpoints") or []):
         section.notice("The results carry no participant-flow tables (a run made before they existed).")
     return section
@@ -52,7 +54,16 @@ def cut_off(section: Section, results: Mapping[str, Any]) -> None:
             section.paragraph(note)
 
 
-def _flow_table(section: Section, endpoint, entry, slug: str, number_format: NumberFormat) -> None:
+def _label(results: Mapping[str, Any], kind: str, item_id: str | None) -> str:
+    """The plan's label of an estimand or population (its id when the results lack it)."""
+    for item in (results.get("plan") or {}).get(kind) or []:
+        if isinstance(item, Mapping) and item.get("id") == item_id:
+            return str(item.get("label") or item_id)
+    return str(item_id)
+
+
+def _flow_table(section: Section, results, endpoint, entry, slug: str, number_format: NumberFormat,
+                name_endpoint: bool = False) -> None:
     source = entry.get("table") or {}
     columns = list(source.get("columns") or [])
     arms = [c for c in columns if c not in ("visit", "step", "label")]
@@ -62,10 +73,10 @@ def _flow_table(section: Section, endpoint, entry, slug: str, number_format: Num
         if str(row[step_at]).startswith(_DUE_PARTS_PREFIXES) or row[step_at] in _LEFT_OUT_STEPS:
             row[label_at] = f"– {row[label_at]}"
     shown = {"title": source.get("title") or "", "columns": columns, "data": rows}
-    estimand = entry.get("estimand")
-    who = f"estimand {estimand}, population {entry.get('population')}" if estimand else \
-        f"population {entry.get('population')}, no estimand"
-    part = section.child(slug, f"{endpoint.get('label') or endpoint.get('id')}: {who}")
+    estimand, population = entry.get("estimand"), _label(results, "populations", entry.get("population"))
+    who = f"{_label(results, 'estimands', estimand)}; {population}" if estimand else f"{population}, no estimand"
+    title = f"{endpoint.get('id')}: {who}" if name_endpoint else who
+    part = section.child(slug, title)
     part.paragraph("Each visit's rows add up: the randomised participants split into those in and out of the "
                    "population, the population into visits due and not yet due, and the due visits into the "
                    "indented rows. The rows marked All visits count participants: those with at least one value "
