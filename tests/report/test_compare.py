@@ -93,6 +93,27 @@ def test_render_comparison_writes_html_pdf_and_csv(runs, tmp_path):
     assert "The plan is the same in both runs" in html
     assert "New participants: LVT-201-9999." in html
     assert any(k.endswith("estimates_compared.csv") for k in written)
+    # No page nearly empty: each holds more than its running header and footer and a stray line.
+    lines = [len(page.extract_text().splitlines()) for page in pypdf.PdfReader(written["comparison.pdf"]).pages]
+    assert min(lines) >= 8, lines
+    assert_words_inside_the_margins(written["comparison.pdf"])
+
+
+def assert_words_inside_the_margins(pdf):
+    """Every word (hashes above all) ends inside the right margin: the stylesheet's 15 mm, in points
+    (1 pt = 1/72 in, 25.4 mm to the inch).  Word boxes from poppler's pdftotext."""
+    import re
+    import shutil
+    import subprocess
+
+    if shutil.which("pdftotext") is None:
+        pytest.skip("poppler-utils (pdftotext) is not installed")
+    boxes = subprocess.run(["pdftotext", "-bbox", str(pdf), "-"], capture_output=True, text=True, check=True).stdout
+    page_width = float(re.search(r'<page width="([0-9.]+)"', boxes).group(1))
+    limit = page_width - 15 * 72 / 25.4 + 0.5
+    outside = [(word, float(x_max)) for x_max, word in re.findall(r'xMax="([0-9.]+)"[^>]*>([^<]*)</word>', boxes)
+               if float(x_max) > limit]
+    assert not outside, outside
 
 
 def test_plan_changes_are_named_by_item_ids(runs):

@@ -304,13 +304,23 @@ def compare_decisions(results_a: Mapping[str, Any], results_b: Mapping[str, Any]
             "alpha_a": record_a.get("alpha"), "alpha_b": record_b.get("alpha"), "hypotheses": rows}
 
 
+def late_amendments(results: Mapping[str, Any]) -> list[dict[str, Any]]:
+    """Amendments in a run's lock chain that were locked after cuts had been run with an
+    earlier plan version (``runs_before`` as the record layer flags them)."""
+    lock = (results.get("plan") or {}).get("lock") or {}
+    return [{"version": entry.get("version"), "locked_utc": entry.get("locked_utc"),
+             "runs_before": list(entry.get("runs_before") or [])}
+            for entry in lock.get("amendments") or [] if isinstance(entry, Mapping) and entry.get("runs_before")]
+
+
 def compare_results(results_a: Mapping[str, Any], results_b: Mapping[str, Any]) -> dict[str, Any]:
     """Plan, data and result changes between run A (earlier) and run B (later)."""
     keys = ("id", "study_id", "cut", "started_utc", "tool_version")
     run_a, run_b = results_a.get("run") or {}, results_b.get("run") or {}
     return {
         "runs": {"a": {k: run_a.get(k) for k in keys}, "b": {k: run_b.get(k) for k in keys}},
-        "plan": compare_plans(results_a.get("plan") or {}, results_b.get("plan") or {}),
+        "plan": {**compare_plans(results_a.get("plan") or {}, results_b.get("plan") or {}),
+                 "late_amendments": late_amendments(results_b)},
         "data": compare_data_manifests(results_a.get("data") or {}, results_b.get("data") or {}),
         "estimates": compare_estimates(results_a, results_b),
         "tipping_points": compare_tipping_points(results_a, results_b),
@@ -399,6 +409,11 @@ def _runs_section(comparison, results_a, results_b, number_format: NumberFormat)
 
 def _plan_section(plan: Mapping[str, Any], number_format: NumberFormat) -> Section:
     section = Section("plan", "Analysis plan")
+    for late in plan.get("late_amendments") or []:
+        cuts = ", ".join(f"{run.get('cut')} (plan version {run.get('plan_version')})" for run in late["runs_before"])
+        section.notice(f"Plan version {late['version']} was locked at {late['locked_utc']}, after these data cuts "
+                       f"had been analysed with an earlier version: {cuts}. Check that the amendment did not "
+                       "depend on their results.")
     if not plan["changed"]:
         section.paragraph(f"The plan is the same in both runs (hash {short_hash(plan['sha256_a'], 16)}).")
         return section
@@ -538,8 +553,9 @@ def _estimates_section(rows: Sequence[Mapping[str, Any]], endpoint_format: Numbe
                     ReportColumn((f"df_{side}",), f"DF {upper}", "df"),
                     ReportColumn((f"lower_{side}", f"upper_{side}"), f"Confidence interval {upper}", "mean")]
     display = [ReportColumn(("label",), "Analysis", "text", row_header=True), ReportColumn(("arm",), "Arm", "text"),
-               *display, ReportColumn(("change",), "Change (B − A)", "mean")]
-    section.table(_replace_display(table, display, note="Abbreviations: DF: degrees of freedom; N: participants "
+               *display, ReportColumn(("change",), "B\u00a0−\u00a0A", "mean")]
+    section.table(_replace_display(table, display, note="B − A: the estimate of run B minus that of run A. "
+                                                        "Abbreviations: DF: degrees of freedom; N: participants "
                                                         "in the arm / in the reference arm."))
     return section
 
@@ -572,10 +588,11 @@ def _tipping_section(rows: Sequence[Mapping[str, Any]], endpoint_format: NumberF
                                number_format=endpoint_format,
                                labels={"label": "Analysis", "arm": "Arm", "reference_shift": "Shift in reference arm",
                                        "tipping_shift_a": "Tipping shift A", "tipping_shift_b": "Tipping shift B",
-                                       "change": "Change (B − A)"},
+                                       "change": "B\u00a0−\u00a0A"},
                                kinds={"label": "text", "arm": "text", "reference_shift": "shift",
                                       "tipping_shift_a": "mean", "tipping_shift_b": "mean", "change": "mean"},
-                               note="A dash: the conclusion did not change within the shifts tried."))
+                               note="B − A: the tipping shift of run B minus that of run A. A dash: the "
+                                    "conclusion did not change within the shifts tried."))
     return section
 
 
