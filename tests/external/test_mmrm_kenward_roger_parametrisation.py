@@ -15,6 +15,13 @@ Identities checked (Kenward & Roger 1997, Biometrics 53:983-997, section 2, and 
   changes with the parametrisation, because d2Sigma/deta2 picks up dSigma/dtheta g''(eta).
 - Where Sigma is linear in its parameters (unstructured, compound symmetry, Toeplitz in their
   variances and covariances) d2Sigma = 0, so leaving the term out changes nothing.
+- Kenward & Roger (2009) trace the lack of invariance to a missing term of the Taylor expansion:
+  the bias of the REML estimates of theta.  With that term (``second_derivatives="bias_corrected"``;
+  the bias from Cox & Snell 1968, derived and checked against dense matrices in
+  tests/stats/test_mmrm_kenward_roger.py) the second-derivative term keeps only the part of
+  d2Sigma that no change of the parameters can produce, and the adjustment is again the same in
+  every parametrisation, as the paper states; where Sigma is linear it equals the 1997
+  adjustment (no bias, no second derivatives).
 
 The second parametrisation is written here, independently of the engine's: the structure's
 log standard deviations become variances, inverse hyperbolic tangents of a correlation become
@@ -148,12 +155,34 @@ def test_second_derivative_term_depends_on_the_parametrisation(long_frame, name)
     assert record["second_derivative_term"] == "included" and "log standard deviation" in record["parameters"]
 
 
+@pytest.mark.parametrize("name", NONLINEAR)
+def test_bias_corrected_adjustment_does_not_depend_on_the_parametrisation(long_frame, name):
+    engine, other = _two_parametrisations(long_frame, name, second_derivatives="bias_corrected")
+    for table in ("differences", "marginal_means"):
+        ours, theirs = getattr(engine, table)(), getattr(other, table)()
+        np.testing.assert_allclose(theirs[["se", "df"]].to_numpy(float), ours[["se", "df"]].to_numpy(float),
+                                   **SAME_MAXIMUM, err_msg=f"{name} {table}")
+    np.testing.assert_allclose(other.joint_tests()[["den_df", "F"]].to_numpy(float),
+                               engine.joint_tests()[["den_df", "F"]].to_numpy(float), **SAME_MAXIMUM)
+    np.testing.assert_allclose(other.coefficient_covariance, engine.coefficient_covariance, **SAME_MAXIMUM)
+    assert engine.kenward_roger_parametrisation[0]["second_derivative_term"] == "bias corrected"
+
+
+def test_bias_correction_is_not_the_first_order_adjustment(long_frame):
+    # The correlation parameter of AR(1) has curvature no reparametrisation removes, so the
+    # corrected term is not zero: the option is not a second name for second_derivatives=False.
+    corrected = tc.fit_mmrm(long_frame, covariance="ar1", second_derivatives="bias_corrected", **ROLES)
+    first_order = tc.fit_mmrm(long_frame, covariance="ar1", second_derivatives=False, **ROLES)
+    assert np.max(np.abs(corrected.differences().se / first_order.differences().se - 1)) > 1e-4
+
+
 @pytest.mark.parametrize("name", ["unstructured", "compound_symmetry", "toeplitz"])
 def test_linear_structures_have_no_second_derivative_term(long_frame, name):
     with_term = tc.fit_mmrm(long_frame, covariance=name, **ROLES)
-    without = tc.fit_mmrm(long_frame, covariance=name, second_derivatives=False, **ROLES)
-    pd.testing.assert_frame_equal(without.differences(), with_term.differences(), rtol=1e-10)
-    pd.testing.assert_frame_equal(without.joint_tests(), with_term.joint_tests(), rtol=1e-10)
+    for setting in (False, "bias_corrected"):
+        other = tc.fit_mmrm(long_frame, covariance=name, second_derivatives=setting, **ROLES)
+        pd.testing.assert_frame_equal(other.differences(), with_term.differences(), rtol=1e-10)
+        pd.testing.assert_frame_equal(other.joint_tests(), with_term.joint_tests(), rtol=1e-10)
     assert with_term.kenward_roger_parametrisation[0]["second_derivative_term"] == "zero"
 
 

@@ -244,7 +244,7 @@ def _edit(frame, **changes):
     (lambda d: d, {"method": "ml", "df": "kenward_roger"}, ["'kenward_roger' needs method 'reml'"]),
     (lambda d: d, {"method": "ml", "df": "kenward_roger", "second_derivatives": False}, ["needs method 'reml'"]),
     (lambda d: d, {"df": "between_within"}, ["unknown degrees-of-freedom method", "participant_split"]),
-    (lambda d: d, {"second_derivatives": "no"}, ["second_derivatives must be True or False"]),
+    (lambda d: d, {"second_derivatives": "no"}, ["second_derivatives must be True, False or 'bias_corrected'"]),
     (lambda d: d, {"covariance": "unstructred"}, ["unknown structure 'unstructred'", "unstructured"]),
     (lambda d: d, {"df": "containment"}, ["unknown degrees-of-freedom method"]),
     (lambda d: d, {"covariance": "spatial_exponential", "visit_times": {"2m": 2}}, ["no time for visit(s) 4m"]),

@@ -153,3 +153,51 @@ def test_scaled_f_of_the_interaction(long_frame):
     assert row.num_df == 3
     assert row.F == pytest.approx(f_value, rel=1e-7)
     assert row.den_df == pytest.approx(den_df, rel=1e-7)
+
+
+# --------------------------------------------------------------------------- bias of the covariance parameters
+def _reml_parameter_bias(x, v, v_i, v_ij):
+    """First-order bias of the REML estimates of theta (Cox & Snell 1968, JRSS B 30:248-275,
+    b^s = 1/2 I^sr I^tu (k_rtu + 2 k_rt,u)), written out for the Gaussian error contrasts:
+    the third-derivative terms cancel and b = -1/4 W s, s_r = sum_tu W_tu tr(P V_tu P V_r)
+    (derived here; W the inverse expected REML information)."""
+    v_inv = np.linalg.inv(v)
+    phi = np.linalg.inv(x.T @ v_inv @ x)
+    projection = v_inv - v_inv @ x @ phi @ x.T @ v_inv
+    q = len(v_i)
+    information = np.array([[0.5 * np.trace(projection @ v_i[i] @ projection @ v_i[j]) for j in range(q)]
+                            for i in range(q)])
+    w = np.linalg.inv(information)
+    s = np.array([sum(w[t, u] * np.trace(projection @ v_ij[t][u] @ projection @ v_i[r])
+                      for t in range(q) for u in range(q)) for r in range(q)])
+    return -0.25 * w @ s
+
+
+def test_parameter_bias_of_a_log_standard_deviation():
+    # n independent N(mu, sigma^2), theta = log sigma: the REML estimate is log s, and
+    # E[log s^2] - log sigma^2 = psi((n-1)/2) + log(2/(n-1)) = -1/(n-1) + O(n^-2) (the digamma
+    # expansion psi(x) = log x - 1/(2x) - ...; Abramowitz & Stegun 6.3.18), so b = -1/(2(n-1)).
+    from scipy.special import digamma
+    n, sigma = 40, 1.7
+    x, v = np.ones((n, 1)), sigma ** 2 * np.eye(n)
+    bias = _reml_parameter_bias(x, v, [2 * v], [[4 * v]])
+    assert bias[0] == pytest.approx(-1 / (2 * (n - 1)), rel=1e-12)
+    exact = 0.5 * (digamma((n - 1) / 2) + np.log(2 / (n - 1)))
+    assert abs(bias[0] - exact) < 1 / (n - 1) ** 2
+
+
+def test_bias_corrected_second_derivative_term(long_frame):
+    # Kenward & Roger (2009): the Taylor expansion of E[Phi(theta_hat)] also holds the bias b of
+    # theta_hat, sum_i b_i dPhi/dtheta_i = -Phi (sum_i b_i P_i) Phi, which the 1997 adjustment leaves
+    # out; adding it back gives Phi_A + Phi (sum_i b_i P_i) Phi.  Dense route, AR(1) in its own theta.
+    fit = tc.fit_mmrm(long_frame, covariance="ar1", second_derivatives="bias_corrected", **ROLES)
+    structure = make_structure("ar1", len(VISITS))
+    dense = _dense(long_frame, structure.derivatives(np.array(fit.covariance_parameters), order=2))
+    phi, phi_a, w, p_i = _kenward_roger(*dense)
+    bias = _reml_parameter_bias(*dense)
+    corrected = phi_a + phi @ sum(b * p for b, p in zip(bias, p_i)) @ phi
+    np.testing.assert_allclose(fit.coefficient_covariance, corrected, **SAME_ALGEBRA)
+    assert not np.allclose(corrected, phi_a, rtol=1e-6)       # the term matters for AR(1)
+    for k, row in enumerate(fit.fixed_effects.itertuples()):
+        contrast = np.eye(len(phi))[k]
+        assert row.df == pytest.approx(_one_df(contrast, phi, corrected, w, p_i), rel=1e-7), row.term

@@ -334,9 +334,11 @@ class MMRMOptions(Strict):
     covariates_by_visit: tuple[str, ...] = ()
     method: EstimationMethod = "reml"
     df: DfMethod = "kenward_roger"
-    second_derivatives: bool = Field(default=True, description=(
+    second_derivatives: bool | Literal["bias_corrected"] = Field(default=True, description=(
         "Kenward-Roger only: false leaves out the second-derivative term (which is zero for structures "
-        "linear in their variances and covariances, and depends on the parametrisation for the others)."))
+        "linear in their variances and covariances, and depends on the parametrisation for the others); "
+        "bias_corrected corrects it for the bias of the covariance-parameter estimates (Kenward & Roger "
+        "2009), which makes the adjustment independent of the parametrisation."))
     robust: bool = False
     confidence_level: float = Field(default=0.95, gt=0, lt=1)
 

@@ -340,6 +340,9 @@ def _model_description(context: EndpointContext, analysis) -> str:
     df_words = DF_WORDS.get(df, df)
     if df == "kenward_roger" and fit.get("second_derivatives") is False:
         df_words += " without its second-derivative term"
+    elif df == "kenward_roger" and fit.get("second_derivatives") == "bias_corrected":
+        df_words += (" with its second-derivative term corrected for the bias of the covariance-parameter "
+                     "estimates (Kenward & Roger 2009)")
     parametrisation = " ".join(
         f"Kenward–Roger adjustment of the {STRUCTURE_WORDS.get(record['structure'], record['structure'])} matrix"
         + (f" ({record['group']})" if record.get("group") is not None else "") + f": {record['description']}."

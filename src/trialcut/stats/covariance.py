@@ -36,7 +36,9 @@ linear parametrisation (Sigma = sum_a psi_a G_a).  The engine computes Kenward-R
 d2Sigma = 0 and the second-derivative term vanishes (the usual results: with complete balanced
 data the adjustment reproduces the exact tests).  For the other structures Sigma is not linear in
 any of the usual parametrisations and Kenward-Roger is computed in the theta documented here, its
-second-derivative term included unless the caller leaves it out (``second_derivatives=False``).
+second-derivative term included unless the caller leaves it out (``second_derivatives=False``)
+or corrects it for the bias of the parameter estimates (``second_derivatives="bias_corrected"``);
+both alternatives make the result independent of the parametrisation.
 Each structure states its choice in words (``inference_parameters``) for the report.
 
 Adding a structure: write a class with the :class:`CovarianceStructure` members below and add it

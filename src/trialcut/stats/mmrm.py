@@ -51,6 +51,9 @@ FIXED_EFFECT_COLUMNS = ("term", "estimate", "se", "df", "t", "p")
 MEAN_COLUMNS = ("arm", "visit", "estimate", "se", "df", "lower", "upper")
 DIFFERENCE_COLUMNS = ("arm", "reference", "visit", "estimate", "se", "df", "t", "p", "lower", "upper")
 JOINT_COLUMNS = ("term", "num_df", "den_df", "F", "p")
+# Kenward-Roger's second-derivative term corrected for the bias of the covariance-parameter
+# estimates (Kenward & Roger 2009; see trialcut.stats.mmrm_inference).
+BIAS_CORRECTED = "bias_corrected"
 # Earlier names of the degrees-of-freedom methods, so that an old call is told what to write now.
 RENAMED_DF_METHODS = {
     "kenward_roger_linear": "write df='kenward_roger', second_derivatives=False",
@@ -73,7 +76,7 @@ class MMRMFit:
     structure: str                  # the covariance structure used
     method: str
     df_method: str
-    second_derivatives: bool        # Kenward-Roger: whether the second-derivative term was asked for
+    second_derivatives: bool | str  # Kenward-Roger's second-derivative term: True, False or "bias_corrected"
     kenward_roger_parametrisation: tuple   # per covariance group: how the adjustment was computed
     robust: bool
     converged: bool
@@ -247,7 +250,7 @@ def fit_mmrm(data: pd.DataFrame, *, outcome: str = "CHG", subject: str = "USUBJI
              arm: str = "TRT01P", reference: Any, visits: Sequence | None = None,
              covariates: Sequence[str] = (), covariates_by_visit: Sequence[str] = (),
              covariance: str | Sequence[str] = "unstructured", covariance_by: str | None = None,
-             method: str = "reml", df: str = "kenward_roger", second_derivatives: bool = True,
+             method: str = "reml", df: str = "kenward_roger", second_derivatives: bool | str = True,
              robust: bool = False,
              visit_times: Mapping[Any, float] | None = None, max_iterations: int = 100,
              tolerance: float = 1e-8) -> MMRMFit:
@@ -272,9 +275,15 @@ def fit_mmrm(data: pd.DataFrame, *, outcome: str = "CHG", subject: str = "USUBJI
                               visits=visits, covariates=covariates, covariates_by_visit=covariates_by_visit,
                               covariance_by=covariance_by, visit_times=visit_times)
         name, likelihood, maximum, attempts = _fit_first_converging(design, names, method, max_iterations, tolerance)
-        inference = Inference(likelihood, maximum.evaluation, design, df, robust, second_derivatives)
+        inference = Inference(likelihood, maximum.evaluation, design, df, robust,
+                              second_derivatives=second_derivatives is not False and second_derivatives != np.False_,
+                              bias_correction=_bias_corrected(second_derivatives))
         fit = _assemble(design, settings, name, likelihood, maximum, inference, attempts, caught)
     return fit
+
+
+def _bias_corrected(second_derivatives) -> bool:
+    return isinstance(second_derivatives, str) and second_derivatives == BIAS_CORRECTED
 
 
 def _one_blas_thread():
@@ -304,8 +313,9 @@ def _check_arguments(covariance, method, df, second_derivatives, robust, max_ite
         problems.append(Problem("mmrm.kenward_roger_needs_reml", f"df {df!r} needs method 'reml'",
                                 field="df", got=f"method {method!r}",
                                 hint="use method='reml' or df='satterthwaite'"))
-    if not isinstance(second_derivatives, (bool, np.bool_)):
-        problems.append(Problem("mmrm.second_derivatives_not_bool", "second_derivatives must be True or False",
+    if not (isinstance(second_derivatives, (bool, np.bool_)) or _bias_corrected(second_derivatives)):
+        problems.append(Problem("mmrm.second_derivatives_not_bool",
+                                f"second_derivatives must be True, False or {BIAS_CORRECTED!r}",
                                 field="second_derivatives", got=repr(second_derivatives)))
     if not isinstance(robust, (bool, np.bool_)):
         problems.append(Problem("mmrm.robust_not_bool", "robust must be True or False", field="robust",
@@ -431,7 +441,8 @@ def _assemble(design: Design, settings, name, likelihood: Likelihood, maximum: M
                         for g, s in zip(design.groups, structures) for n in s.parameter_names([str(v) for v in design.visits]))
     fields_ = dict(
         settings=settings, structure=name, method="reml" if likelihood.reml else "ml", df_method=inference.df_method,
-        second_derivatives=bool(settings["second_derivatives"]),
+        second_derivatives=(BIAS_CORRECTED if _bias_corrected(settings["second_derivatives"])
+                            else bool(settings["second_derivatives"])),
         kenward_roger_parametrisation=_kenward_roger_parametrisation(design, structures, inference),
         robust=bool(inference.robust), converged=maximum.converged, iterations=maximum.iterations,
         gradient_norm=maximum.gradient_norm, scaled_gradient=maximum.decrement, tolerance=settings["tolerance"],
@@ -462,6 +473,11 @@ def _kenward_roger_parametrisation(design: Design, structures, inference: Infere
             sentence = (f"computed in {structure.inference_parameters}, in which the structure "
                         "is linear, so the second-derivative term is zero and the result does not depend on "
                         "the parametrisation")
+        elif inference.bias_correction:
+            term = "bias corrected"
+            sentence = (f"the second-derivative term is taken in {structure.inference_parameters} and corrected "
+                        "for the bias of the REML estimates of these parameters (Kenward & Roger 2009), so the "
+                        "adjustment does not depend on the parametrisation")
         elif inference.second_derivatives:
             term = "included"
             sentence = (f"the second-derivative term is taken in {structure.inference_parameters}; "

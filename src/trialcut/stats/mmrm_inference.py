@@ -20,7 +20,21 @@ J = dpsi/dtheta, and d2Sigma/dpsi2 = 0), otherwise in the optimisation parameter
   linear in psi, so the switch changes nothing there; for the others it is taken in theta.  Without
   R_ij the adjustment uses only first derivatives and W, which change together under any smooth
   one-to-one reparametrisation, so its standard errors and df do not depend on the parametrisation;
-  with R_ij they do (see :func:`kenward_roger_parametrisation`).
+  with R_ij they do.
+  ``second_derivatives="bias_corrected"`` adds the term the 1997 expansion leaves out, following
+  Kenward, M. G. & Roger, J. H. (2009), An improved approximation to the precision of fixed effects
+  from restricted maximum likelihood, Computational Statistics & Data Analysis 53:2583-2595: the
+  bias b of the REML estimate of theta, E[Phi(theta_hat)] ~ Phi + sum_i b_i dPhi/dtheta_i +
+  1/2 sum_ij W_ij d2Phi/dtheta_i dtheta_j.  b is the first-order bias of Cox & Snell (1968, JRSS B
+  30:248-275); for the Gaussian error contrasts of REML its third-derivative terms cancel and
+  b = -1/2 W h, h_r = 1/2 tr(P D P V_r), D = sum_ij W_ij V_ij (our derivation; checked against
+  dense matrices and a textbook case in tests/stats/test_mmrm_kenward_roger.py).  Since
+  dPhi/dtheta_i = -Phi P_i Phi with KR's P_i, the correction replaces D in R by
+  D - sum_k c_k V_k, c = W h: D less its projection on the first derivatives in the metric
+  1/2 tr(P A P B).  What remains of d2Sigma cannot be produced by any change of parameters, so
+  the adjustment is the same in every parametrisation
+  (tests/external/test_mmrm_kenward_roger_parametrisation.py); for linear structures it equals the
+  1997 adjustment.
 * ``satterthwaite``: variance Phi; one-df df = 2 (L Phi L')^2 / (g' W g), g_i = L dPhi/dtheta_i L';
   for l > 1 the contrast is rotated to the eigenvectors of L Phi L', each row gets its one-df value
   nu_m and the denominator df is 2E/(E - l) with E = sum_m nu_m / (nu_m - 2) (rows with nu_m <= 2
@@ -47,10 +61,11 @@ from trialcut.stats.mmrm_likelihood import Evaluation, Likelihood
 
 class Inference:
     def __init__(self, likelihood: Likelihood, evaluation: Evaluation, design: Design, df_method: str,
-                 robust: bool, second_derivatives: bool = True):
+                 robust: bool, second_derivatives: bool = True, bias_correction: bool = False):
         self.df_method = df_method
         self.robust = robust
         self.second_derivatives = bool(second_derivatives)
+        self.bias_correction = bool(bias_correction)
         self.beta = evaluation.beta
         self.phi = evaluation.xvx_inverse
         self.weights_theta = np.linalg.inv(evaluation.information)            # W in theta
@@ -85,18 +100,51 @@ class Inference:
     def _kenward_roger_lambda(self, likelihood: Likelihood, evaluation: Evaluation, include_second: bool):
         p = len(self.beta)
         total = np.zeros((p, p))
+        second = (self._second_derivative_sums(likelihood, evaluation)
+                  if include_second and not any(self.linear) else None)
         for pattern, terms in zip(likelihood.patterns, evaluation.terms):
             block = slice(likelihood.offsets[pattern.group], likelihood.offsets[pattern.group + 1])
             w = self.weights[block, block]
             m_d = np.einsum("rjk,ra->ajk", terms.m_d, self.to_psi[pattern.group])
             inner = np.einsum("ij,iab,jbc->ac", w, m_d, m_d) @ terms.inverse     # sum W_ij M D_i M D_j M
-            if include_second and not self.linear[pattern.group]:
-                inner -= 0.25 * terms.inverse @ np.einsum("ij,ijab->ab", w, terms.d2) @ terms.inverse
+            if second is not None:
+                index = np.ix_(pattern.visits, pattern.visits)
+                inner -= 0.25 * terms.inverse @ second[pattern.group][index] @ terms.inverse
             total += np.tensordot(inner, pattern.t_xx, axes=([0, 1], [0, 1]))
         q_mats = self.q_matrices
         total -= np.einsum("ij,iab,bc,jcd->ad", self.weights, q_mats, self.phi, q_mats, optimize=True)
         lam = self.phi @ total @ self.phi
         return 0.5 * (lam + lam.T)
+
+    def _second_derivative_sums(self, likelihood: Likelihood, evaluation: Evaluation) -> list[np.ndarray]:
+        """Per covariance group, sum_ij W_ij d2Sigma/dtheta_i dtheta_j (k x k); with the bias
+        correction, less its projection on the first derivatives (see the module docstring)."""
+        parts = [s.derivatives(t, order=2) for s, t in zip(likelihood.structures, likelihood.slices(evaluation.theta))]
+        offsets = likelihood.offsets
+        sums = [np.einsum("ij,ijab->ab", self.weights[offsets[g]:offsets[g + 1], offsets[g]:offsets[g + 1]], part[2])
+                for g, part in enumerate(parts)]
+        if not self.bias_correction:
+            return sums
+        coefficients = self.weights @ self._metric_with_first_derivatives(likelihood, evaluation, sums)
+        return [total - np.einsum("r,rab->ab", coefficients[offsets[g]:offsets[g + 1]], part[1])
+                for g, (total, part) in enumerate(zip(sums, parts))]
+
+    def _metric_with_first_derivatives(self, likelihood: Likelihood, evaluation: Evaluation, sums) -> np.ndarray:
+        """h_r = 1/2 tr(P D P V_r), D the block-diagonal matrix of the groups' ``sums``, from the
+        pattern sums as the information is: tr(PAPB) = sum_S [n tr(MAMB) - 2 tr(MAMBMG_S)] + tr(Phi Q_A Phi Q_B)
+        with G_S = sum_i X_i Phi X_i' over the pattern's participants and Q_A = X'V^-1 A V^-1 X."""
+        p = len(self.beta)
+        h = np.zeros(likelihood.n_parameters)
+        q_a = np.zeros((p, p))
+        for pattern, terms in zip(likelihood.patterns, evaluation.terms):
+            block = slice(likelihood.offsets[pattern.group], likelihood.offsets[pattern.group + 1])
+            m_a = terms.inverse @ sums[pattern.group][np.ix_(pattern.visits, pattern.visits)]
+            m_g = terms.inverse @ np.einsum("ab,jkba->jk", self.phi, pattern.t_xx)
+            h[block] += 0.5 * (pattern.n * np.einsum("ab,rba->r", m_a, terms.m_d)
+                               - 2 * np.einsum("ab,rbc,ca->r", m_a, terms.m_d, m_g))
+            q_a += np.tensordot(m_a @ terms.inverse, pattern.t_xx, axes=([0, 1], [0, 1]))
+        h += 0.5 * np.einsum("ab,rba->r", self.phi @ q_a, self.phi @ evaluation.q_matrices)
+        return h
 
     # ----------------------------------------------------------------- one-df contrasts
     def contrasts(self, contrast: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
