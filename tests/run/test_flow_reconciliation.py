@@ -30,15 +30,22 @@ ROOT = Path(__file__).resolve().parents[2]
 
 
 # --------------------------------------------------------------------------- the checks
-def reconciliation_problems(results: dict, imputations: bool = True) -> list[str]:
-    """Every count of ``results`` that does not follow from its flow tables (empty: all reconcile)."""
+def reconciliation_problems(results: dict, imputations: bool = True,
+                            population_labels: dict[str, str] | None = None) -> list[str]:
+    """Every count of ``results`` that does not follow from its flow tables (empty: all reconcile).
+
+    ``population_labels`` (id -> label) also checks the population and disposition tables, whose
+    rows are named by label: the N per arm that table headers print comes from them.
+    """
     problems: list[str] = []
-    for endpoint in results["endpoints"]:
+    for position, endpoint in enumerate(results["endpoints"]):
         flows = {(f["estimand"], f["population"]): frame_of(f["table"]) for f in endpoint["flow"]}
         arms = [c for c in next(iter(flows.values())).columns if c not in ("visit", "step", "label", "Total")]
         for key, table in flows.items():
             problems += [f"{endpoint['id']} {key}: {p}" for p in _identities(table, arms)]
         primary = next(iter(flows.values()))
+        if population_labels and position == 0:
+            problems += _population_tables(results, endpoint, flows, arms, population_labels)
         problems += _descriptive(endpoint, primary, arms)
         problems += _missing_tables(endpoint, primary, arms)
         for analysis in endpoint["analyses"]:
@@ -73,6 +80,26 @@ def _identities(table: pd.DataFrame, arms: list[str]) -> list[str]:
         every = lambda step: _count(table, flow.ALL_VISITS, step, arm)  # noqa: E731
         if every("in_population") != every("with_value_used") + sum(every(r) for r in flow.LEFT_OUT_REASONS):
             problems.append(f"{arm}: participants do not split into used and left out")
+    return problems
+
+
+def _population_tables(results, endpoint, flows, arms, labels) -> list[str]:
+    problems = []
+    populations = {row[0]: row for row in results["populations"]["data"]}
+    columns = results["populations"]["columns"]
+    disposition = {row[0]: row for row in results["disposition"]["data"]}
+    for (estimand, population), table in flows.items():
+        row = populations[labels[population]]
+        for arm in arms:
+            if row[columns.index(arm)] != _count(table, flow.ALL_VISITS, "in_population", arm):
+                problems.append(f"population table N of {arm} in {population} is not the flow's")
+            if disposition["Randomised"][columns.index(arm)] != _count(table, flow.ALL_VISITS, "randomised", arm):
+                problems.append(f"disposition's randomised {arm} is not the flow's")
+    primary_key, primary = next(iter(flows.items()))
+    observed = next(row for name, row in disposition.items() if name.startswith("Observed at"))
+    for arm in arms:
+        if observed[columns.index(arm)] != _recorded(primary, endpoint["primary_visit"], arm):
+            problems.append(f"disposition's observed at {endpoint['primary_visit']} for {arm} is not the flow's")
     return problems
 
 
@@ -204,7 +231,8 @@ def test_counts_reconcile_on_random_cuts(seed):
     frame, cut_off = _random_cut(seed)
     cut = prepare_cut(plan, raw_from_frame(frame), cut_off=cut_off, today=dt.date(2026, 12, 2))
     results = runner.run_plan(plan, cut, RunContext(root_seed=seed), plan_block={}, data_block={}, run_block={})
-    assert reconciliation_problems(results) == [], f"seed {seed}"
+    labels = {p.id: p.label for p in plan.populations}
+    assert reconciliation_problems(results, population_labels=labels) == [], f"seed {seed}"
     not_yet_due = frame_of(results["endpoints"][0]["flow"][0]["table"]).query("step == 'not_yet_due'")["Total"].sum()
     assert not_yet_due > 0, f"seed {seed}: the random cut should leave some visits not yet due"
 
@@ -275,7 +303,8 @@ def test_the_interim_imputations_fill_only_due_values():
 @pytest.mark.parametrize("label", ["interim", "final"])
 def test_counts_reconcile_on_the_demo_cuts(label):
     results = _demo_results(label)
-    assert reconciliation_problems(results, imputations=label == "final") == []
+    labels = {p.id: p.label for p in _demo_plan_quick().populations}
+    assert reconciliation_problems(results, imputations=label == "final", population_labels=labels) == []
     primary = frame_of(results["endpoints"][0]["flow"][0]["table"])
     not_yet_due = _count(primary, "Week 12", "not_yet_due")
     if label == "interim":
