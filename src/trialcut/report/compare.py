@@ -553,7 +553,7 @@ def _estimates_section(rows: Sequence[Mapping[str, Any]], endpoint_format: Numbe
                     ReportColumn((f"df_{side}",), f"DF {upper}", "df"),
                     ReportColumn((f"lower_{side}", f"upper_{side}"), f"Confidence interval {upper}", "mean")]
     display = [ReportColumn(("label",), "Analysis", "text", row_header=True), ReportColumn(("arm",), "Arm", "text"),
-               *display, ReportColumn(("change",), "B\u00a0−\u00a0A", "mean")]
+               *display, ReportColumn(("change",), "B − A", "mean")]
     section.table(_replace_display(table, display, note="B − A: the estimate of run B minus that of run A. "
                                                         "Abbreviations: DF: degrees of freedom; N: participants "
                                                         "in the arm / in the reference arm."))
@@ -588,7 +588,7 @@ def _tipping_section(rows: Sequence[Mapping[str, Any]], endpoint_format: NumberF
                                number_format=endpoint_format,
                                labels={"label": "Analysis", "arm": "Arm", "reference_shift": "Shift in reference arm",
                                        "tipping_shift_a": "Tipping shift A", "tipping_shift_b": "Tipping shift B",
-                                       "change": "B\u00a0−\u00a0A"},
+                                       "change": "B − A"},
                                kinds={"label": "text", "arm": "text", "reference_shift": "shift",
                                       "tipping_shift_a": "mean", "tipping_shift_b": "mean", "change": "mean"},
                                note="B − A: the tipping shift of run B minus that of run A. A dash: the "
