@@ -120,3 +120,19 @@ def test_three_writers_at_once_are_recorded_one_after_another(tmp_path):
     for row in rows:
         audit = json.loads((out / row.folder / "audit.json").read_text())
         assert audit["registry_follows"] == row.previous_hash
+
+
+def test_a_read_only_registry_is_an_input_error_not_a_fault(tmp_path, monkeypatch):
+    # Tests may run as root, which ignores file permissions: open the file read-only instead.
+    out = tmp_path / "out"
+    record_small_run(out, "r1")
+    real_connect = registry_module._connect
+
+    def read_only(target, uri=False, timeout=60.0):
+        return real_connect(f"{Path(target).resolve().as_uri()}?mode=ro", uri=True, timeout=timeout)
+
+    monkeypatch.setattr(registry_module, "_connect", read_only)
+    with pytest.raises(registry_module.InputError) as caught:
+        record_small_run(out, "r2", cut="c2")
+    assert caught.value.problems[0].code == "record.registry_unwritable"
+    assert not find_temporaries(out) and [f.name for f in list_run_folders(out)] == ["r1"]

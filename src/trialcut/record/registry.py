@@ -213,6 +213,10 @@ def registry_writer(registry_path: Path, *, patience: float | None = None,
         try:
             _prepare_schema(connection, path)
             yield writer
+        except sqlite3.OperationalError as error:
+            if "readonly" in str(error) or "read-only" in str(error):
+                raise _unwritable(path, error) from error
+            raise
         finally:
             if connection.in_transaction:
                 connection.execute("ROLLBACK")
@@ -230,6 +234,8 @@ def check_writable(registry_path: Path, *, patience: float | None = None,
     if not path.exists():
         _require_writable_folder(path)
         return
+    if not os.access(path, os.W_OK):
+        raise _unwritable(path, PermissionError(f"{path} is read-only"))
     with closing(_connect(path, timeout=_POLL_SECONDS)) as connection:
         _begin_write(connection, path, patience, on_wait)
         try:
