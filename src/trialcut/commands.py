@@ -182,6 +182,9 @@ def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: P
     with timer.time("load plan"):
         loaded = load_plan(plan_path)
         lock = _lock_state(loaded, unlocked)
+        from trialcut.record.amendments import flag_lock_state
+
+        lock = flag_lock_state(lock, out_root, loaded.plan.study.id)
     plan = loaded.plan
     check_names(plan, cut_label, out_root)
     if scheduler is not None:

@@ -91,8 +91,18 @@ class LockStatus:
             "tool_version": latest.tool_version,
             "amendments": [{"version": r.plan_version, "sha256": r.plan_sha256, "locked_utc": r.locked_utc,
                             "by": r.by, "reason": r.reason, "record_sha256": r.record_sha256,
-                            "previous": r.previous, "signed_by": _signed_by(r)} for r in self.chain],
+                            "previous": r.previous, "signed_by": _signed_by(r),
+                            "changes": amendment_changes(self.chain[index - 1], r) if index else []}
+                           for index, r in enumerate(self.chain)],
         }
+
+
+def amendment_changes(before: LockRecord, after: LockRecord) -> list[dict[str, str]]:
+    """What an amendment changed, by plan item ids and field: [{item, old, new}], old -> new.
+
+    Values are shown as short JSON text; "(absent)" marks an item added or removed."""
+    return [{"item": where or "plan", "old": _show(old), "new": _show(new)}
+            for where, old, new in _differences(before.plan, after.plan, "")]
 
 
 def _signed_by(record: LockRecord) -> dict[str, Any] | None:

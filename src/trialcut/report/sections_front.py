@@ -127,12 +127,20 @@ def run_record(section: Section, results: Mapping[str, Any], number_format: Numb
                               number_format=number_format))
     history = amendment_history(plan)
     if history:
-        section.table(from_records(history, ("version", "sha256", "locked_utc", "by", "reason"),
+        section.table(from_records(history, ("version", "sha256", "locked_utc", "by", "reason", "changes",
+                                             "after_runs"),
                                    slug="plan_history", title="Plan versions and amendments",
                                    number_format=number_format,
                                    labels={"version": "Plan version", "sha256": "Hash (first 16 characters)",
-                                           "locked_utc": "Locked (UTC)", "by": "Locked by", "reason": "Reason"},
-                                   kinds={"version": "text"}))
+                                           "locked_utc": "Locked (UTC)", "by": "Locked by", "reason": "Reason",
+                                           "changes": "What changed (plan item: before → after)",
+                                           "after_runs": "Locked after runs of an earlier version"},
+                                   kinds={"version": "text", "changes": "text", "after_runs": "text"}))
+        for row in history:
+            if row["after_runs"] != "no":
+                section.notice(f"Plan version {row['version']} was locked after data cuts had already been "
+                               f"analysed with an earlier version ({row['after_runs']}). A reviewer should "
+                               "check that the amendment did not depend on those results.")
     elif _lock(plan, run) is not None:
         section.paragraph("The lock record lists no amendments: this is the first locked version of the plan.")
 
@@ -146,8 +154,25 @@ def amendment_history(plan: Mapping[str, Any]) -> list[dict[str, Any]]:
             out.append({"version": entry.get("version"), "sha256": short_hash(entry.get("sha256"), 16),
                         "locked_utc": entry.get("locked_utc") or entry.get("when"),
                         "by": entry.get("by") or entry.get("locked_by"),
-                        "reason": entry.get("reason") or entry.get("why")})
+                        "reason": entry.get("reason") or entry.get("why"),
+                        "changes": _changes_text(entry.get("changes")),
+                        "after_runs": _runs_before_text(entry.get("runs_before"))})
     return out
+
+
+def _changes_text(changes: Any) -> str:
+    if not changes:
+        return "first lock" if changes == [] else ""
+    shown = [f"{c.get('item')}: {c.get('old')} → {c.get('new')}" for c in changes[:12] if isinstance(c, Mapping)]
+    more = f"; and {len(changes) - 12} more" if len(changes) > 12 else ""
+    return "; ".join(shown) + more
+
+
+def _runs_before_text(runs: Any) -> str:
+    if not runs:
+        return "no"
+    return ", ".join(f"cut {r.get('cut')} (run {r.get('run_id')}, plan version {r.get('plan_version')})"
+                     for r in runs if isinstance(r, Mapping))
 
 
 # --------------------------------------------------------------------------- estimands
