@@ -111,8 +111,8 @@ def long_frame() -> pd.DataFrame:
     return beat_the_blues_long()
 
 
-def _two_parametrisations(long_frame, name, second_derivatives):
-    engine = tc.fit_mmrm(long_frame, covariance=name, second_derivatives=second_derivatives, **ROLES)
+def _two_parametrisations(long_frame, name, second_derivatives, **options):
+    engine = tc.fit_mmrm(long_frame, covariance=name, second_derivatives=second_derivatives, **ROLES, **options)
     original = covariance.STRUCTURES[name]
 
     def factory(n_visits, visit_times):
@@ -121,7 +121,7 @@ def _two_parametrisations(long_frame, name, second_derivatives):
 
     with pytest.MonkeyPatch.context() as patch:
         patch.setitem(covariance.STRUCTURES, name, factory)
-        other = tc.fit_mmrm(long_frame, covariance=name, second_derivatives=second_derivatives, **ROLES)
+        other = tc.fit_mmrm(long_frame, covariance=name, second_derivatives=second_derivatives, **ROLES, **options)
     # The maximum itself does not depend on the parametrisation.
     np.testing.assert_allclose(other.loglik, engine.loglik, rtol=1e-10)
     np.testing.assert_allclose(other.coefficients, engine.coefficients, **SAME_MAXIMUM)
@@ -166,6 +166,14 @@ def test_bias_corrected_adjustment_does_not_depend_on_the_parametrisation(long_f
                                engine.joint_tests()[["den_df", "F"]].to_numpy(float), **SAME_MAXIMUM)
     np.testing.assert_allclose(other.coefficient_covariance, engine.coefficient_covariance, **SAME_MAXIMUM)
     assert engine.kenward_roger_parametrisation[0]["second_derivative_term"] == "bias corrected"
+
+
+def test_bias_corrected_adjustment_with_a_matrix_per_arm(long_frame):
+    # The bias of one group's parameters reaches the other's through P: the check covers the coupling.
+    engine, other = _two_parametrisations(long_frame, "heterogeneous_ar1", "bias_corrected", covariance_by="TRT01P")
+    assert len(engine.kenward_roger_parametrisation) == 2
+    np.testing.assert_allclose(other.differences().se, engine.differences().se, **SAME_MAXIMUM)
+    np.testing.assert_allclose(other.differences().df, engine.differences().df, **SAME_MAXIMUM)
 
 
 def test_bias_correction_is_not_the_first_order_adjustment(long_frame):
