@@ -110,3 +110,42 @@ def test_cuts_conform_to_the_demo_plan(cuts):
         data = cut.analysis_data("fbs_change", "primary")
         assert data.frame["outcome_set_missing"].any(), name     # hypothetical after discontinuation
         assert any(e["step"] == "visit_window" and e["visit"] for e in cut.derivations), name
+
+
+def test_randomisation_dates_stagger_enrolment_and_the_interim_cut_off_bounds_the_data(cuts):
+    from trialcut.data.simulate import TREATMENT_REASONS, demo_cut_offs
+
+    cut_offs = demo_cut_offs()
+    for seed, pair in cuts.items():
+        final, interim = pair["final"], pair["interim"]
+        per_participant = final.groupby("USUBJID")["RANDDT"].nunique()
+        assert (per_participant == 1).all(), f"seed {seed}: one randomisation date per participant"
+        dates = pd.to_datetime(final.drop_duplicates("USUBJID")["RANDDT"])
+        assert (dates.max() - dates.min()).days > 180, f"seed {seed}: enrolment is staggered over months"
+        # Record date = randomisation date + study day - 1 (CDISC ADaM study-day convention).
+        recorded = pd.to_datetime(interim["RANDDT"]) + pd.to_timedelta(interim["ADY"] - 1, unit="D")
+        assert recorded.max() <= pd.Timestamp(cut_offs["interim"]), f"seed {seed}"
+        assert pd.to_datetime(interim["RANDDT"]).max() <= pd.Timestamp(cut_offs["interim"]), f"seed {seed}"
+        assert pd.Timestamp(cut_offs["final"]) >= (pd.to_datetime(final["RANDDT"])
+                                                   + pd.to_timedelta(final["ADY"] - 1, unit="D")).max()
+        # Why treatment stopped: given exactly for those who stopped (by the cut), from a short list.
+        subjects = final.drop_duplicates("USUBJID")
+        assert (subjects["DCTREAS"].notna() == subjects["DISCDY"].notna()).all(), f"seed {seed}"
+        assert set(subjects["DCTREAS"].dropna()) <= set(TREATMENT_REASONS)
+        early = interim.drop_duplicates("USUBJID")
+        assert (early["DCTREAS"].notna() == early["DISCDY"].notna()).all(), f"seed {seed}"
+
+
+def test_the_interim_cut_has_week_12_visits_not_yet_due(cuts):
+    import datetime as dt
+
+    from trialcut.data.simulate import demo_cut_offs
+
+    plan = AnalysisPlan.model_validate(yaml.safe_load(DEMO_PLAN.read_text(encoding="utf-8")))
+    for seed, pair in cuts.items():
+        cut = prepare_cut(plan, raw_from_frame(pair["interim"]), cut_off=demo_cut_offs()["interim"],
+                          today=dt.date(2026, 12, 2))
+        frame = cut.analysis_data("fbs_change", "primary").frame
+        week12 = frame[frame["AVISIT"] == "Week 12"]
+        assert (~week12["due"]).sum() > 0.2 * len(week12), f"seed {seed}"
+        assert not week12.loc[~week12["due"], "outcome_observed"].any(), f"seed {seed}"
