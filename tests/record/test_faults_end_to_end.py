@@ -26,6 +26,12 @@ BASE = Path(__file__).resolve().parents[1] / "cases" / "_base"
 pytestmark = pytest.mark.slow
 
 
+def _sigint_as_usual() -> None:
+    # A shell running the tests in the background may ignore SIGINT, and a child inherits
+    # that; give the child the usual disposition so Ctrl-C reaches it.
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+
+
 @pytest.fixture(scope="module")
 def recorded(tmp_path_factory) -> tuple[Path, Path]:
     out = tmp_path_factory.mktemp("out")
@@ -71,7 +77,8 @@ def test_a_run_stopped_at_a_random_moment_is_recorded_whole_or_not_at_all(tmp_pa
     out = tmp_path / "out"
     command = [sys.executable, "-m", "trialcut", "run", str(BASE / "plan.yaml"), "--data",
                str(BASE / "data.csv"), "--cut", "c1", "--out", str(out), "--unlocked"]
-    child = subprocess.Popen(command, stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    child = subprocess.Popen(command, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+                             preexec_fn=_sigint_as_usual)
     time.sleep(random.Random(seed).uniform(1.0, 12.0))
     child.send_signal(signal_number)
     _, error = child.communicate(timeout=300)

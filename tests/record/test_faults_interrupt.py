@@ -69,13 +69,20 @@ STEPS = ("writing", "before append", "after append", "after commit")
 SIGNALS = {"SIGKILL": signal.SIGKILL, "SIGTERM": signal.SIGTERM, "SIGINT": signal.SIGINT}
 
 
+def _sigint_as_usual() -> None:
+    # A shell running the tests in the background may ignore SIGINT, and a child inherits
+    # that; give the child the usual disposition so Ctrl-C reaches it.
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+
+
 def start_child(tmp_path: Path, out: Path, step: str, pages: int = 5,
                 pause: float = 60) -> tuple[subprocess.Popen, Path]:
     """The child pauses ``pause`` seconds at ``step`` (a held-back signal waits that long)."""
     script, marker = tmp_path / "child.py", tmp_path / "reached"
     script.write_text(CHILD)
     child = subprocess.Popen([sys.executable, str(script), str(out), step, str(marker), str(ROOT),
-                              str(pages), str(pause)], stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+                              str(pages), str(pause)], stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+                              preexec_fn=_sigint_as_usual)
     return child, marker
 
 
