@@ -62,3 +62,13 @@ def test_record_carries_the_lock_files_own_hash(tmp_path):
 def test_the_lock_file_is_found_from_the_source_tree_only(tmp_path):
     assert find_pins_file() == LOCK
     assert find_pins_file(tmp_path / "somewhere" / "module.py") is None
+
+
+def test_the_audit_appendix_names_each_package_that_differs_from_the_lock():
+    from trialcut.report.sections_audit import _pinned_text
+
+    compared = compare_with_pins({"scipy": "1.14.0", "wheel": "0.45.0"}, {"scipy": "1.13.1", "six": "1.16.0"})
+    text = _pinned_text({"file": "requirements/lock.txt", "sha256": "ab" * 32, **compared})
+    assert "scipy 1.13.1 installed, 1.14.0 locked" in text
+    assert "wheel locked but not installed" in text and "six installed but not locked" in text
+    assert "every installed package" in _pinned_text({"sha256": "ab" * 32, **compare_with_pins({}, {})})

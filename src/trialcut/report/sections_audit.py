@@ -191,7 +191,9 @@ def software(section: Section, results: Mapping[str, Any], environment: Mapping[
              ("trialcut version", version),
              ("Operating system", _system_text(environment)),
              ("Processors available", environment.get("processor_count")),
-             ("Thread limits set in the environment", _thread_text(environment.get("thread_settings")))]
+             ("Thread limits set in the environment", _thread_text(environment.get("thread_settings"))),
+             ("Pinned environment (requirements/lock.txt)", _pinned_text(environment.get("pinned"))),
+             ("Installed distributions", _distributions_text(environment.get("distributions")))]
     rows = [{"item": label, "value": str(value)} for label, value in pairs if value not in (None, "")]
     section.table(from_records(rows, ("item", "value"), slug="audit_environment", title="Software environment",
                                number_format=number_format, labels={"item": "Part", "value": "Version or setting"},
@@ -216,6 +218,29 @@ def software(section: Section, results: Mapping[str, Any], environment: Mapping[
                    "used_by": "text"},
             note="The number of threads can change the last digits of a result; the analyses that fit "
                  "repeated-measures models limit the linear-algebra library to one thread while they fit."))
+
+
+def _pinned_text(pinned: Any) -> str | None:
+    """How the installed packages compare with the project's lock file of exact versions."""
+    if not isinstance(pinned, Mapping):
+        return None
+    if not pinned.get("sha256"):
+        return "no lock file found (trialcut was not run from a checkout)"
+    lock = f"lock file SHA-256 {str(pinned['sha256'])[:16]}…"
+    if pinned.get("matches"):
+        return f"every installed package is the locked version ({lock})"
+    parts = [f"{d.get('package')} {d.get('installed')} installed, {d.get('locked')} locked"
+             for d in pinned.get("versions_differ") or [] if isinstance(d, Mapping)]
+    parts += [f"{name} locked but not installed" for name in pinned.get("locked_not_installed") or []]
+    parts += [f"{name} installed but not locked" for name in pinned.get("installed_not_locked") or []]
+    shown = "; ".join(parts[:8]) + (f"; and {len(parts) - 8} more" if len(parts) > 8 else "")
+    return f"differs from the lock ({lock}): {shown}"
+
+
+def _distributions_text(distributions: Any) -> str | None:
+    if not isinstance(distributions, Mapping) or not distributions:
+        return None
+    return f"{len(distributions)} (each with its version in audit.json)"
 
 
 def _python_text(python: Any) -> str | None:
