@@ -114,3 +114,16 @@ def test_the_composite_value_waits_for_a_due_visit():
     rows = data.frame[data.frame["USUBJID"] == "S2"]
     assert rows["outcome_set_composite"].tolist() == [True, False]   # Week 2 due, Week 4 not yet
     assert np.isnan(rows["CHG"].iloc[1])
+
+
+def test_without_a_planned_day_or_a_participant_date_the_visit_counts_as_due():
+    plan = make_plan(columns={"randomisation_date": "RANDDT"},
+                     visits={"windowing": False, "schedule": [{"label": "Week 2", "order": 1, "day": 15, "window": 4},
+                                                              {"label": "Week 4", "order": 2}]})
+    frame = _frame()
+    frame.loc[frame["USUBJID"] == "S2", "RANDDT"] = None
+    cut = prepare_cut(plan, raw(frame), cut_off=dt.date(2026, 1, 16), today=TODAY)
+    data = cut.analysis_data("score", "policy")
+    assert _due(data, "S1", "Week 4")                     # no planned day: cannot be judged
+    assert _due(data, "S2", "Week 2") and _due(data, "S2", "Week 4")   # no date for S2
+    assert any("have no RANDDT" in note for note in cut.cut_off.notes)

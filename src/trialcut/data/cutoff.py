@@ -188,12 +188,9 @@ def due_flags(frame: pd.DataFrame, *, subject: str, visit: str, observed: pd.Ser
     if cut_off is None or not cut_off.judged:
         return np.ones(len(frame), dtype=bool)
     last_day = {v.label: (None if v.day is None else float(v.day) - 1 + float(v.window or 0)) for v in schedule}
-    offsets = frame[visit].map(last_day)
-    starts = frame[subject].map(cut_off.randomisation)
-    due = np.ones(len(frame), dtype=bool)
-    limit = pd.Timestamp(cut_off.date)
-    for position, (start, offset) in enumerate(zip(starts, offsets)):
-        if start is None or (isinstance(start, float) and np.isnan(start)) or offset is None or pd.isna(offset):
-            continue
-        due[position] = pd.Timestamp(start) + pd.Timedelta(days=float(offset)) <= limit
+    offsets = pd.to_timedelta(frame[visit].map(last_day).astype(float), unit="D")
+    starts = pd.to_datetime(frame[subject].map(cut_off.randomisation))
+    closes = starts + offsets
+    # No date for the participant, or no planned day for the visit: due-ness cannot be judged, so due.
+    due = (closes.isna() | (closes <= pd.Timestamp(cut_off.date))).to_numpy(dtype=bool)
     return due | observed
