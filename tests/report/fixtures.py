@@ -204,13 +204,14 @@ def build_results(*, unlocked: bool = False, dummy_arms: bool = False, seed: int
             "differences": table("Differences from the reference arm", difference_columns, differences),
             "marginal_means": table("Model-estimated means by arm and visit",
                                     ["arm", "visit", "estimate", "se", "df", "lower", "upper"], means),
-            "joint_tests": table("Joint tests of model terms", ["term", "num_df", "den_df", "F", "p"], [
+            "joint_tests": table("Tests of each effect, all its coefficients at once",
+                                 ["term", "num_df", "den_df", "F", "p"], [
                 ["arm", 2, 176.3, 24.61, 1.9e-9], ["visit", 3, 171.9, 31.2, 2.2e-16],
                 ["arm_by_visit", 6, 177.4, 5.83, 1.6e-5], ["BASE", 1, 175.2, 0.41, 0.523],
                 ["BASE_by_visit", 3, 171.0, 1.12, 0.342]]),
-            "fixed_effects": table("Fixed-effect estimates", ["term", "estimate", "se", "df", "t", "p"], [
-                ["intercept", -0.112, 0.118, 176.1, -0.949, 0.344],
-                ["BASE", 0.021, 0.033, 175.2, 0.636, 0.526]]),
+            "fixed_effects": table("Estimated coefficients of the model", ["term", "estimate", "se", "df", "t", "p"], [
+                ["Intercept (Placebo at Week 2)", -0.112, 0.118, 176.1, -0.949, 0.344],
+                ["BASE (per unit) at Week 2", 0.021, 0.033, 175.2, 0.636, 0.526]]),
             "covariance": covariance,
             "correlation": correlation,
         },

@@ -43,8 +43,8 @@ def run_mmrm(data, analysis, context: RunContext) -> dict[str, Any]:
     tables = {
         "differences": table(fit.differences(confidence_level=level), "Differences from the reference arm"),
         "marginal_means": table(fit.marginal_means(confidence_level=level), "Model-estimated means by arm and visit"),
-        "joint_tests": table(fit.joint_tests(), "Joint tests of model terms"),
-        "fixed_effects": table(fit.fixed_effects, "Fixed-effect estimates"),
+        "joint_tests": table(fit.joint_tests(), "Tests of each effect, all its coefficients at once"),
+        "fixed_effects": table(fit.fixed_effects, "Estimated coefficients of the model"),
     }
     tables.update(_covariance_tables(fit))
     fit_record = plain(fit.to_dict())
