@@ -170,6 +170,13 @@ def test_participants_split_by_kind_of_change_with_every_edited_value_listed():
     expected_new_visits = sorted((in_a & later_visits) - {known["edited"], known["withdrawn"]})
     assert answer["participants_with_new_visits_only"] == expected_new_visits
     assert answer["participants_unchanged"] == len(in_a) - len(expected_new_visits) - 2
+    # Records added and removed, by kind of participant, counted from the two cuts directly.
+    def records_of(frame, ids):
+        return int(frame["USUBJID"].isin(ids).sum())
+    new_visits = records_of(later, expected_new_visits) - records_of(earlier, expected_new_visits)
+    assert answer["records_by_kind"]["new_visits"] == {"added": new_visits, "removed": 0}
+    withdrawn_added = records_of(later, [known["withdrawn"]]) - records_of(earlier, [known["withdrawn"]]) + 1
+    assert answer["records_by_kind"]["records_removed"] == {"added": withdrawn_added, "removed": 1}
     assert answer["edited_values"] == [
         {"participant": known["edited"], "visit": "2m", "field": "AVAL", "a": f"{known['old']:g}",
          "b": f"{known['old'] + 1:g}"},

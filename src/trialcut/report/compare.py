@@ -142,26 +142,27 @@ def compare_records(records_a: Mapping[str, Any], records_b: Mapping[str, Any],
     withheld = sorted(set(records_a.get("withheld") or []) | set(records_b.get("withheld") or []))
     kinds: dict[str, list[str]] = {"new_visits": [], "values_edited": [], "records_removed": []}
     listing: list[dict[str, Any]] = []
-    records_added = 0
+    counts = {kind: {"added": 0, "removed": 0} for kind in kinds}     # records, by kind of participant
     for participant in changed:
         first = records_a["participants"].get(participant, {})
         second = records_b["participants"].get(participant, {})
         gone = [name for name in first if name not in second]
         new = [name for name in second if name not in first]
         edits = _edits(participant, first, second, fields_a, fields_b)
-        records_added += len(new)
         if not (gone or edits or new):
             edits = [{"participant": participant, "visit": "all records", "field": ", ".join(withheld) or "unknown",
                       "a": WITHHELD_TEXT, "b": WITHHELD_TEXT}]
         kind = "records_removed" if gone else "values_edited" if edits else "new_visits"
         kinds[kind].append(participant)
+        counts[kind]["added"] += len(new)
+        counts[kind]["removed"] += len(gone)
         listing += edits
         listing += [{"participant": participant, "visit": name, "field": "whole record", "a": "present",
                      "b": "removed"} for name in gone]
     return {"participants_with_new_visits_only": kinds["new_visits"],
             "participants_with_edited_values": kinds["values_edited"],
             "participants_with_records_removed": kinds["records_removed"],
-            "records_added_to_earlier_participants": records_added,
+            "records_by_kind": counts,
             "edited_values": listing, "withheld_fields": withheld}
 
 
@@ -466,32 +467,36 @@ def _data_section(data: Mapping[str, Any], number_format: NumberFormat) -> Secti
 
 def _kinds_table(data: Mapping[str, Any], number_format: NumberFormat) -> ReportTable:
     added, removed = data.get("participants_added") or [], data.get("participants_removed") or []
-    rows = [{"kind": "New in run B", "participants": len(added), "records": data.get("records_of_added")},
-            {"kind": "Unchanged", "participants": data.get("participants_unchanged"), "records": None}]
+    by_kind = data.get("records_by_kind") or {}
+
+    def row(kind: str, participants: Any, key: str | None = None, *, new=None, gone=None) -> dict[str, Any]:
+        counted = by_kind.get(key, {}) if key else {}
+        return {"kind": kind, "participants": participants, "added": counted.get("added", new),
+                "removed": counted.get("removed", gone)}
+
+    rows = [row("New in run B", len(added), new=data.get("records_of_added"), gone=0),
+            row("Unchanged", data.get("participants_unchanged"), new=0, gone=0)]
     if data.get("record_level"):
-        rows += [{"kind": "New visits only (earlier records unchanged)",
-                  "participants": len(data.get("participants_with_new_visits_only") or []),
-                  "records": data.get("records_added_to_earlier_participants")},
-                 {"kind": "Values edited (with or without new visits)",
-                  "participants": len(data.get("participants_with_edited_values") or []),
-                  "records": None},
-                 {"kind": "Records removed (with or without other changes)",
-                  "participants": len(data.get("participants_with_records_removed") or []),
-                  "records": None}]
+        rows += [row("New visits only (earlier records unchanged)",
+                     len(data.get("participants_with_new_visits_only") or []), "new_visits"),
+                 row("Values edited (with or without new visits)",
+                     len(data.get("participants_with_edited_values") or []), "values_edited"),
+                 row("Records removed (with or without other changes)",
+                     len(data.get("participants_with_records_removed") or []), "records_removed")]
     else:
-        rows.append({"kind": "Records changed (kind not known)",
-                     "participants": len(data.get("participants_changed") or []), "records": None})
-    rows.append({"kind": "No longer in the data", "participants": len(removed), "records": data.get("records_of_removed")})
+        rows.append(row("Records changed (kind not known)", len(data.get("participants_changed") or [])))
+    rows.append(row("No longer in the data", len(removed), new=0, gone=data.get("records_of_removed")))
     note = ("Each participant of either run is counted once: one with a record removed under 'Records removed', "
-            "else one with an edited value under 'Values edited', else under 'New visits only'. Records: those "
-            "added (with new participants, as new visits) or gone with their participant; the listing below names "
-            "every edited value and removed record.")
-    return from_records(rows, ("kind", "participants", "records"), slug="participant_changes",
+            "else one with an edited value under 'Values edited', else under 'New visits only'. Records added and "
+            "removed are those of the participants in the row; the listing below names every edited value and "
+            "removed record.")
+    return from_records(rows, ("kind", "participants", "added", "removed"), slug="participant_changes",
                         title="Participants by how their records changed from run A to run B",
                         number_format=number_format,
                         labels={"kind": "How the records changed", "participants": "Participants",
-                                "records": "Records added or removed"},
-                        kinds={"kind": "text", "participants": "count", "records": "count"}, note=note)
+                                "added": "Records added", "removed": "Records removed"},
+                        kinds={"kind": "text", "participants": "count", "added": "count", "removed": "count"},
+                        note=note)
 
 
 def _id_list(ids: Sequence[str], shown: int = 30) -> str:
