@@ -292,8 +292,6 @@ def _demo_results(label: str) -> dict:
 
 
 @pytest.mark.slow
-@pytest.mark.xfail(strict=True, reason="the imputation still fills the cells of visits not yet due: "
-                   "stats/imputation.py rebuilds the full participants x visits grid (issue 8, imputation owner)")
 def test_the_interim_imputations_fill_only_due_values():
     problems = [p for p in reconciliation_problems(_demo_results("interim")) if "imputation fills" in p]
     assert problems == []

@@ -143,15 +143,29 @@ class ImputationData:
     covariates: np.ndarray       # (n, q), centred over all participants
     covariate_names: tuple[str, ...]
     deviation: np.ndarray        # (n,), first visit index affected by an intercurrent event; T if none
+    # (n, T): the frame has a row for this participant and visit, i.e. the visit was due at the
+    # cut-off.  A cell without a row is a visit not yet due: the sampler carries it as a latent
+    # value (ignorable, like any value the cut-off withholds), but it is never counted as
+    # imputed, never shifted and never analysed.  None: every visit is due.
+    scheduled: np.ndarray | None = None
 
     @property
     def missing(self) -> np.ndarray:
         return np.isnan(self.outcome)
 
     @property
+    def due(self) -> np.ndarray:
+        return np.ones(self.outcome.shape, dtype=bool) if self.scheduled is None else self.scheduled
+
+    @property
+    def imputed(self) -> np.ndarray:
+        """(n, T): values imputed and analysed: missing at a visit that was due."""
+        return self.missing & self.due
+
+    @property
     def after_event(self) -> np.ndarray:
-        """(n, T): the value is missing at or after the participant's first affected visit."""
-        return self.missing & (np.arange(len(self.visits))[None, :] >= self.deviation[:, None])
+        """(n, T): an imputed value at or after the participant's first affected visit."""
+        return self.imputed & (np.arange(len(self.visits))[None, :] >= self.deviation[:, None])
 
 
 def prepare_data(frame: pd.DataFrame, *, subject: str, arm: str, visit: str, outcome: str,
@@ -173,12 +187,15 @@ def prepare_data(frame: pd.DataFrame, *, subject: str, arm: str, visit: str, out
     arm_of = per_subject[arm].first()
     arm_order = _arm_order(arm_of, reference, arms)
     wide = long.pivot(index=subject, columns=visit, values=outcome).reindex(index=arm_of.index, columns=list(visits))
+    rows = long.assign(_row=1.0).pivot(index=subject, columns=visit, values="_row")
+    scheduled = rows.reindex(index=arm_of.index, columns=list(visits)).notna().to_numpy()
     design, names = _covariate_matrix(long, subject, covariates, arm_of.index)
     deviation = _deviation(long, subject, visit, visits, event, arm_of.index)
     return ImputationData(
         subjects=tuple(arm_of.index), visits=visits, arms=arm_order,
         outcome=wide.to_numpy(dtype=float), arm_index=arm_of.map({a: k for k, a in enumerate(arm_order)}).to_numpy(int),
         covariates=design - design.mean(axis=0), covariate_names=names, deviation=deviation,
+        scheduled=None if scheduled.all() else scheduled,
     )
 
 
@@ -559,7 +576,7 @@ def draw_completed(data: ImputationData, parameters: ModelParameters, assumption
 def shift_matrix(data: ImputationData, delta_by_arm: np.ndarray, cumulative: bool = False) -> np.ndarray:
     """(n, T) shift added to imputed values: δ[arm, visit] on every imputed cell, or, when
     cumulative, the running sum of δ over the participant's imputed visits so far."""
-    imputed = data.missing.astype(float)
+    imputed = data.imputed.astype(float)
     step = delta_by_arm[data.arm_index] * imputed
     return imputed * np.cumsum(step, axis=1) if cumulative else step
 
@@ -594,7 +611,7 @@ def run_chain(task: ChainTask) -> ChainOutput:
     y, parameters = sampler.start()
     shifts = np.stack([shift_matrix(task.data, s, task.cumulative) for s in task.scenarios])
     steps = imputation_steps(task.data, task.assumption)
-    core = AncovaCore(task.data.arm_index, task.data.covariates, len(task.data.arms))
+    core = VisitAncova(task.data)
     estimates, variances, dfs, traces = [], [], [], []
     for position, seed in enumerate(task.seeds):
         rng = np.random.default_rng(seed)
@@ -602,8 +619,8 @@ def run_chain(task: ChainTask) -> ChainOutput:
             parameters = sampler.step(y, parameters, rng)
         completed = draw_completed(task.data, parameters, task.assumption, rng, steps)
         if task.analysis is None:
-            estimate, variance = _analyse(core, completed, shifts)
-            df = np.full(estimate.shape, float(core.df))
+            estimate, variance = core.analyse(completed, shifts)
+            df = np.broadcast_to(core.df, estimate.shape).astype(float)
         else:
             estimate, variance, df = task.analysis.analyse(task.data, completed, shifts)
         estimates.append(estimate)
@@ -636,7 +653,9 @@ class RepeatedMeasuresAnalysis:
         shape = (shifts.shape[0], len(data.arms) - 1, t)
         estimate, variance, df = np.empty(shape), np.empty(shape), np.empty(shape)
         for s, shift in enumerate(shifts):
-            fit = fit_mmrm(base.assign(y=(completed + shift).ravel()), outcome="y", subject="subject",
+            # A visit not yet due has no value to analyse: its latent draw is left out of the fit.
+            values = np.where(data.due, completed + shift, np.nan)
+            fit = fit_mmrm(base.assign(y=values.ravel()), outcome="y", subject="subject",
                            visit="visit", arm="arm", reference=data.arms[0], visits=list(data.visits),
                            covariates=tuple(names), covariates_by_visit=tuple(names) if self.covariates_by_visit else (),
                            covariance=self.covariance,
@@ -695,6 +714,35 @@ def _analyse(core: AncovaCore, completed: np.ndarray, shifts: np.ndarray):
     estimate, variance = core.fit(outcomes)
     return (estimate.reshape(-1, n_scenarios, t).transpose(1, 0, 2),
             variance.reshape(-1, n_scenarios, t).transpose(1, 0, 2))
+
+
+class VisitAncova:
+    """ANCOVA at each visit on the participants whose visit was due: visits due for the same
+    participants share one :class:`AncovaCore` (all of them, when every visit is due)."""
+
+    def __init__(self, data: ImputationData):
+        due = data.due
+        groups: dict[bytes, list[int]] = {}
+        for j in range(due.shape[1]):
+            groups.setdefault(due[:, j].tobytes(), []).append(j)
+        self.parts = []
+        for visits in groups.values():
+            rows = np.flatnonzero(due[:, visits[0]])
+            core = AncovaCore(data.arm_index[rows], data.covariates[rows], len(data.arms))
+            self.parts.append((rows, np.array(visits), core))
+        self.df = np.empty(due.shape[1])
+        for _, visits, core in self.parts:
+            self.df[visits] = core.df
+
+    def analyse(self, completed: np.ndarray, shifts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """(S, K − 1, T) estimates and variances."""
+        n_scenarios, t = shifts.shape[0], completed.shape[1]
+        estimate = np.empty((n_scenarios, self.parts[0][2].n_arms - 1, t))
+        variance = np.empty_like(estimate)
+        for rows, visits, core in self.parts:
+            part = _analyse(core, completed[np.ix_(rows, visits)], shifts[:, rows][:, :, visits])
+            estimate[:, :, visits], variance[:, :, visits] = part
+        return estimate, variance
 
 
 def _trace(parameters: ModelParameters, by_arm: bool) -> np.ndarray:
@@ -786,9 +834,9 @@ def _diagnostics(data: ImputationData, outputs: list[ChainOutput], by_arm: bool)
         "draws_per_chain": [int(t.shape[0]) for t in traces],
         "lag1_autocorrelation": {name: lag1_autocorrelation([t[:, j] for t in traces])
                                  for j, name in enumerate(names)},
-        "imputed_values": int(data.missing.sum()),
+        "imputed_values": int(data.imputed.sum()),
         "imputed_after_event": int(after.sum()),
-        "imputed_other": int((data.missing & ~after).sum()),
+        "imputed_other": int((data.imputed & ~after).sum()),
         "participants": len(data.subjects),
     }
 
