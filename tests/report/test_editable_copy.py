@@ -84,6 +84,10 @@ def test_docx_has_the_figures_as_pictures_and_the_pdf_fonts(rendered, results):
     # PNG signature (ISO/IEC 15948 / RFC 2083): the pictures are real PNG files.
     assert all(part.blob[:8] == b"\x89PNG\r\n\x1a\n" for part in pictures)
     assert word.styles["Normal"].font.name == "DejaVu Sans"
+    # Cells and notes carry the copy's own styles (set by style id, so the ids must resolve).
+    assert {p.style.name for t in word.tables[1:] for row in t.rows for c in row.cells for p in c.paragraphs} \
+        == {"Table text"}
+    assert "Table note" in {p.style.name for p in word.paragraphs}
     header_rows = word.element.body.findall(".//" + docx.oxml.ns.qn("w:tblHeader"))
     assert len(header_rows) >= len(word.tables) - 1      # every report table repeats its header
     core = word.core_properties
