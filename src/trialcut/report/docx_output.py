@@ -288,12 +288,23 @@ def _contents_entries(word, section: Section, number: str, depth: int) -> None:
 class _Writer:
     def __init__(self, word, document, pictures: dict[str, bytes]):
         self.word, self.document, self.pictures = word, document, pictures
+        self.landscape = False      # the orientation of the page being filled
+        self.fresh_page = False     # a section break has just started a new page
+
+    def _orient(self, landscape: bool) -> None:
+        """Turn the page only when the orientation changes: consecutive wide tables share
+        landscape pages, as in the PDF, with no empty upright page between them."""
+        if landscape != self.landscape:
+            self._new_page_section(landscape=landscape)
+            self.landscape, self.fresh_page = landscape, True
 
     def section(self, section: Section, *, level: int, number: str) -> None:
         from docx.enum.text import WD_BREAK
 
-        if level == 1 and number != "1" and not getattr(self.document, "compact", False):
+        self._orient(False)
+        if level == 1 and number != "1" and not self.fresh_page and not getattr(self.document, "compact", False):
             self.word.add_paragraph().add_run().add_break(WD_BREAK.PAGE)
+        self.fresh_page = False
         heading = self.word.add_heading(level=min(level + 1, 5))
         run = heading.add_run(f"{number}  ")
         _colour(run, ACCENT)
@@ -304,6 +315,8 @@ class _Writer:
             self.section(child, level=level + 1, number=f"{number}.{position}")
 
     def block(self, block: Block) -> None:
+        self._orient(block.kind == "table" and bool(block.content.wide))
+        self.fresh_page = False
         if block.kind == "paragraph":
             self.word.add_paragraph(str(block.content))
         elif block.kind == "list":
@@ -325,9 +338,6 @@ class _Writer:
 
     # ------------------------------------------------------------------ tables
     def table(self, table: ReportTable) -> None:
-        landscape = bool(table.wide)
-        if landscape:
-            self._new_page_section(landscape=True)
         caption = self.word.add_paragraph(style="Caption")
         if table.number:
             number = caption.add_run(f"{table.number}  ")
@@ -358,8 +368,6 @@ class _Writer:
         for line in [table.note, *getattr(table, "footnotes", ())]:
             if line:
                 _paragraph(self.word, str(line), TABLE_NOTE_ID)
-        if landscape:
-            self._new_page_section(landscape=False)
 
     def _header_row(self, row, last: bool = False) -> None:
         from docx.oxml import OxmlElement
