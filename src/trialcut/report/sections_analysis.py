@@ -582,9 +582,9 @@ def sensitivity(section: Section, context: EndpointContext, primary, others: Seq
                                                          f"{context.primary_visit}, every analysis"),
                                      labels=labels, intervals={f"{level} confidence interval": ("lower", "upper")})
         section.table(context.standalone(summary, notes=[
-            f"Differences are each arm minus {context.reference}. Confidence level: {level} in every analysis "
-            "(the tipping-point analysis uses 1 − α). Models and degrees of freedom: see each analysis' section; "
-            "DF is each analysis' own (Kenward–Roger, residual or Barnard–Rubin)."]))
+            f"Differences are each arm minus {context.reference}. {_levels_sentence([primary, *others])} "
+            "Models and degrees of freedom: see each analysis' section; DF is each analysis' own "
+            "(Kenward–Roger, residual or Barnard–Rubin)."]))
         favours = context.favours_words()
         section.figure(_figure(
             "forest", f"Estimated difference from {context.reference} at {context.primary_visit} with {level} "
@@ -609,6 +609,21 @@ def sensitivity(section: Section, context: EndpointContext, primary, others: Seq
             mmrm_sensitivity(child, context, analysis)
         else:
             generic_analysis(child, context, analysis)
+
+
+def _levels_sentence(analyses: Sequence[Mapping[str, Any]]) -> str:
+    """The confidence level of every analysis in the summary, as the analyses record it."""
+    levels = {}
+    for analysis in analyses:
+        options = analysis.get("options") or {}
+        if analysis.get("method") == "tipping_point":
+            level = f"{100 * (1 - float(options.get('alpha') or 0.05)):g}%"
+        else:
+            level = _level_text(options)
+        levels.setdefault(level, []).append(str(analysis.get("label") or analysis.get("id")))
+    if len(levels) == 1:
+        return f"Confidence level: {next(iter(levels))} in every analysis."
+    return "Confidence levels: " + "; ".join(f"{level} in {', '.join(names)}" for level, names in levels.items()) + "."
 
 
 def _estimates_at_primary_visit(context: EndpointContext, analyses) -> list[dict[str, Any]]:
