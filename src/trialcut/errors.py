@@ -5,6 +5,9 @@ path), a stable code, what was expected, what was found and how to fix it.  Erro
 come from user input carry a list of problems so that a loader can report every problem
 in one pass.  The command line maps the error classes to exit statuses:
 ``InputError`` and subclasses -> 2, ``VerificationFailed`` -> 1, anything else -> 3.
+A ``FitError`` or ``ModelSpecificationError`` raised by an analysis does not stop a run: the
+run records that analysis as failed with its reason and goes on; ``trialcut run`` then exits 4
+when a primary analysis failed (the run itself is complete and recorded).
 """
 from __future__ import annotations
 
