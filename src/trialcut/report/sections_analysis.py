@@ -931,6 +931,13 @@ class TippingReading:
                 "the treatment; the grid searches that way.")
         if self.sd is not None:
             words.append(f"SD units use the {self.sd_source}, {self.context.number_format.cell(self.sd, 'sd')}.")
+        if any(c.get("monte_carlo_se") is not None for c in self.cells):
+            words.append(f"Monte Carlo error: with {options.get('imputations', '?')} imputations each pooled "
+                         "estimate carries a Monte Carlo standard error of √(B/m) (B: variance between "
+                         "imputations); divided by how fast the estimate moves with δ, it says how far δ* "
+                         "could move with another seed.")
+        else:
+            words.append("Monte Carlo error: not recorded by the run that made these results.")
         return words
 
     def bullets(self) -> list[str]:
