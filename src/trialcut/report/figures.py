@@ -374,7 +374,7 @@ def tipping_chart(cells: Sequence[Mapping[str, Any]], *, arms: Sequence[str], al
         figure.legend(handles=[Patch(color=significant, label=f"still significant (p < {alpha:g})"),
                                Patch(color=lost, label=f"no longer significant (p ≥ {alpha:g})")],
                       loc="lower center", ncols=2, fontsize=8, bbox_to_anchor=(0.5, 0.0))
-        figure.subplots_adjust(bottom=0.95 / height + 0.05, top=1 - 0.35 / height, left=0.12)
+        figure.subplots_adjust(bottom=0.8 / height, top=1 - 0.35 / height, left=0.12)
 
     return _draw(draw, height=height, layout=None)
 
