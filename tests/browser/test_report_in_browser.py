@@ -87,3 +87,29 @@ def test_markup_in_labels_stays_text(browser, report_fixtures, tmp_path):
     shown = page.get_by_text("<script>alert(1)</script> study", exact=False).first
     assert shown.is_visible()
     page.close()
+
+
+def test_cover_breaks_no_word_in_the_middle_at_a_narrow_width(browser, report_fixtures, tmp_path):
+    # Issue 9: the cover broke a word across two lines.  In a 480-pixel window every cover fact that
+    # is made of words must keep each word on one line (only a long hash may break where it must).
+    page, _ = open_report(browser, render_html(build_document(report_fixtures.build_results())), tmp_path,
+                          "cover.png")
+    page.set_viewport_size({"width": 480, "height": 900})
+    broken = page.eval_on_selector_all(".facts dd", """els => els.flatMap(dd => {
+        const out = [];
+        const walker = document.createTreeWalker(dd, NodeFilter.SHOW_TEXT);
+        for (let node = walker.nextNode(); node; node = walker.nextNode()) {
+            // Pieces of words: a line may end after a hyphen, as in any text, but not inside a piece.
+            const words = node.textContent.matchAll(/[^\\s-]+-?/g);
+            for (const word of words) {
+                if (word[0].length > 40) continue;            // a hash: allowed to break
+                const range = document.createRange();
+                range.setStart(node, word.index);
+                range.setEnd(node, word.index + word[0].length);
+                if (range.getClientRects().length > 1) out.push(word[0]);
+            }
+        }
+        return out;
+    })""")
+    assert broken == []
+    page.close()
