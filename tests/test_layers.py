@@ -17,7 +17,8 @@ def _layer(module: str) -> str | None:
     if len(parts) == 1:
         return "errors"  # the package root only carries __version__ and a lazy fit_mmrm
     name = parts[1]
-    if name in CLI_MODULES:
+    # One module per newer subcommand (commands_*.py) and the demo's helpers sit with the cli.
+    if name in CLI_MODULES or name.startswith(("commands_", "demo_")):
         return "cli"
     return name if name in ORDER else None
 
