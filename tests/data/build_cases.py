@@ -372,6 +372,25 @@ def build_issue10() -> None:
           argv=[a.replace("{case}/data.csv", "{case}/data.parquet") for a in RUN],
           files={"data.parquet": parquet_decimals}, ok=["mmrm_primary", "ancova_observed"])
 
+    def parquet_with_dates_as_scores(path: Path) -> None:
+        import pyarrow as pa
+        import pyarrow.parquet as pq
+
+        frame = full.map(lambda v: v or None)
+        table = pa.Table.from_pandas(frame, preserve_index=False).replace_schema_metadata(None)
+        dates = pa.array([pd.Timestamp("2026-01-01")] * len(frame))
+        pq.write_table(table.set_column(table.schema.get_field_index("AVAL"), "AVAL", dates), path)
+
+    _case("data_parquet_dates_as_scores", "A Parquet file whose score column holds dates (a column mix-up).",
+          "column AVAL holds values that are not numbers",
+          argv=[a.replace("{case}/data.csv", "{case}/data.parquet") for a in RUN],
+          files={"data.parquet": parquet_with_dates_as_scores})
+
+    _case("data_one_record_per_participant", "Every record has its own participant id (an export that lost "
+          "the id): every column is constant within a participant; the analyses fail and say why.",
+          "primary analysis failed: mmrm_primary", frame=full.assign(USUBJID=[f"S{i:04d}" for i in range(len(full))]),
+          exit=4, recorded=True, failed={"mmrm_primary": "too few participants or visits"})
+
     without_days = _plan_edit(("windowing: true", "windowing: false"),
                               *[(f", day: {d}, window: {w}}}", "}") for d, w in ((15, 4), (29, 6), (57, 10), (85, 10))])
     _case("run_visits_without_planned_days", "Visits with no planned day and windowing off: the "

@@ -22,7 +22,10 @@ BASE = frame_of(participant("S1", "Placebo", 30, 28, 25, disc=20),
                 participant("S3", "Active", 33, 30, 29, stratum="Severe")).astype(object)
 COLUMNS = list(BASE.columns)
 ODD_VALUES = ["x", "", " ", np.nan, None, np.inf, -np.inf, 1e308, -5.0, 0, True, "Y", "Week 2",
-              "Baseline", "Placebo", 15.0, "1,5", "inf", "nan", "\u00e9"]
+              "Baseline", "Placebo", 15.0, "1,5", "inf", "nan", "\u00e9",
+              # what a typed file can hold (issue 10): dates and times, bytes, nested values
+              pd.Timestamp("2020-01-01"), pd.NaT, pd.Timestamp("2020-01-01").date(), b"Week 2", ["S1"],
+              {"arm": "Placebo"}, 1e200, -1e-300]
 
 mutation = st.one_of(
     st.tuples(st.just("drop"), st.sampled_from(COLUMNS)),

@@ -292,7 +292,8 @@ def _to_numbers(values: pd.Series, typed: bool) -> tuple[pd.Series, pd.Series]:
             return values.astype(float), pd.Series(False, index=values.index)
         # A typed file's text column is wrong for a number, even if its text would parse.
         is_number = values.map(_is_number_or_missing).astype(bool)
-        numbers = values.where(is_number).map(_float_or_nan).astype(float)
+        # As objects first: a date or time column would put NaT, which float() refuses, in the gaps.
+        numbers = values.astype(object).where(is_number, None).map(_float_or_nan).astype(float)
         return numbers, ~is_number
     text = values.map(lambda v: None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v).strip())
     blank = text.isna() | text.isin(MISSING_TEXT)

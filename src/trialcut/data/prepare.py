@@ -454,8 +454,13 @@ def _subjects_table(plan, records: pd.DataFrame, reason: str | None) -> pd.DataF
     """One row per participant: arm, strata, flags, event days, reason and other constant columns."""
     subject = plan.columns.subject
     wanted = [plan.columns.arm, *subject_level_columns(plan)] + ([reason] if reason else [])
+    cols = plan.columns
+    # Columns that describe a record, never a participant, even when every participant has
+    # a single record (and so every column looks constant within participants).
+    per_record = {cols.visit, cols.value, cols.change, cols.study_day, cols.visit_number,
+                  SOURCE_ROW, VISIT_COLLECTED, ROLE_COLUMN}
     constant = [c for c in records.columns if c not in wanted and c != subject and not c.startswith("__")
-                and _constant_within(records, subject, c)]
+                and c not in per_record and _constant_within(records, subject, c)]
     columns = list(dict.fromkeys([c for c in wanted if c in records.columns] + constant))
     grouped = records.groupby(subject, sort=True, dropna=True)[columns].first()
     return grouped.reset_index()
