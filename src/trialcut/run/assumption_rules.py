@@ -83,3 +83,16 @@ def _unmapped_error(column: str, unmapped: dict[str, list[Any]], rules) -> DataE
 def _rule_words(rule) -> str:
     reasons = "any reason" if rule.reasons is None else ", ".join(rule.reasons)
     return f"{rule.event} ({reasons}): {rule.assumption}"
+
+
+def check_reasons(plan, cut) -> None:
+    """Every reason the data hold is covered, checked before any model is fitted, so that a
+    mapping mistake stops the run at once (the same check the imputation makes)."""
+    from trialcut.plan.estimand_checks import analysis_population
+
+    for endpoint in plan.endpoints:
+        for analysis in endpoint.analyses.sensitivity:
+            if getattr(analysis.options, "assumptions_by_reason", ()):
+                data = cut.analysis_data(endpoint.id, estimand_id=analysis.estimand,
+                                         population_id=analysis_population(plan, analysis))
+                participant_assumptions(data, analysis.options)

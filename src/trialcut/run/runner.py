@@ -17,6 +17,7 @@ import pandas as pd
 
 from trialcut.errors import FitError, ModelSpecificationError
 from trialcut.run import estimand_guard
+from trialcut.run.assumption_rules import check_reasons
 from trialcut.run.context import RunContext
 from trialcut.run.methods import METHODS
 from trialcut.data import flow
@@ -64,6 +65,7 @@ def run_plan(plan, cut, context: RunContext, *, plan_block: dict[str, Any], data
     }
     if cut.cut_off is not None:
         results["warnings"].extend(cut.cut_off.notes)
+    check_reasons(plan, cut)   # a reason no assumption rule covers stops the run before any fit
     for endpoint in plan.endpoints:
         with timer.time(f"endpoint {endpoint.id}"):
             results["endpoints"].append(_run_endpoint(plan, cut, endpoint, context, timer, results["warnings"]))
