@@ -29,7 +29,7 @@ def require_columns(data: pd.DataFrame, roles: dict[str, Any], problems: list[Pr
 def check_reference(data: pd.DataFrame, arm: str, reference: Any, problems: list[Problem]) -> None:
     if arm not in data.columns:
         return
-    arms = list(dict.fromkeys(data[arm].dropna()))
+    arms = list(pd.unique(data[arm].dropna()))
     if reference not in arms:
         problems.append(Problem("stats.reference", f"reference arm {reference!r} is not a value of {arm!r}",
                                 field="reference", expected=", ".join(map(str, arms)), got=repr(reference)))

@@ -175,5 +175,5 @@ def table_dict(frame: pd.DataFrame) -> dict[str, Any]:
 
 def arms_in_order(values: Sequence, reference: Any) -> tuple:
     """The reference arm first, then the others in order of first appearance."""
-    seen = list(dict.fromkeys(values))
+    seen = list(pd.unique(pd.Series(values)))
     return (reference, *[a for a in seen if a != reference])
