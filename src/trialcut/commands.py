@@ -175,10 +175,11 @@ def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: P
     from trialcut.run.context import RunContext
     from trialcut.run.participant_records import participant_records
     from trialcut.record.participants import participant_hashes
-    from trialcut.run.runner import StepTimer, run_plan
+    from trialcut.commands_progress import LoggedStepTimer
+    from trialcut.run.runner import run_plan
 
     started = started or _utc_now()
-    timer = StepTimer()
+    timer = LoggedStepTimer(console)   # also says each step in a batch log
     with timer.time("load plan"):
         loaded = load_plan(plan_path)
         lock = _lock_state(loaded, unlocked)
@@ -187,9 +188,9 @@ def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: P
         lock = flag_lock_state(lock, out_root, loaded.plan.study.id)
     plan = loaded.plan
     check_names(plan, cut_label, out_root)
+    check_registry(out_root)   # a locked or unwritable registry is said now, not after the analysis
     if scheduler is not None:
         _check_scheduler(scheduler)
-    check_registry(out_root)   # a locked or unwritable registry is said now, not after the analysis
     with timer.time("read data"):
         raw = read_cut(data_path)
     with timer.time("check and derive data"):
@@ -384,25 +385,10 @@ SCHEDULER_TIMEOUT = 5.0
 
 
 def _progress_printer():
-    """A rich progress bar for long analyses (imputations); silent when not a terminal."""
-    if not console.is_terminal:
-        return None
-    from rich.progress import Progress
+    """A rich bar for long analyses (imputations) on a terminal, timestamped log lines otherwise."""
+    from trialcut.commands_progress import progress_reporter
 
-    progress = Progress(transient=True, console=console)
-    tasks: dict[str, Any] = {}
-
-    def report(label: str, done: int, total: int) -> None:
-        if label not in tasks:
-            progress.start()
-            tasks[label] = progress.add_task(label, total=total)
-        progress.update(tasks[label], completed=done)
-        if done >= total:
-            progress.remove_task(tasks.pop(label))
-            if not tasks:
-                progress.stop()
-
-    return report
+    return progress_reporter(console)
 
 
 # --------------------------------------------------------------------------- registry commands

@@ -1,0 +1,116 @@
+"""Time and memory of a whole ``trialcut run`` of the demo plan as the trial grows (issue 13).
+
+The demo simulator's final cut (invented data, fixed seed) is generated at 300, 3,000 and
+30,000 participants; each size is run by the command line in a fresh process (``trialcut run
+--unlocked`` into a temporary output root), so every size pays the same imports and its peak
+memory is its own.  Figures per size: wall time, CPU time, peak resident memory, and the time
+outside PDF layout (wall time minus the time spent in WeasyPrint's ``write_pdf``, which also
+waits for figures drawn beside it).  Then the ratios the issue sets: 10x the participants at
+most 2.5x the time of the demo-size run, 3,000 -> 30,000 at most 12x, 30,000 under 120 s and
+under 3 GiB.
+
+Choosing sizes: ``TRIALCUT_BENCH_SIZES=300,3000`` leaves out the largest size (generating
+30,000 invented participants takes about 20 s and running them one to two minutes on the
+2-core machine; the whole module about 3-4 minutes with it, under a minute without).
+"""
+from __future__ import annotations
+
+import json
+import os
+import resource
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+DEFAULT_SIZES = (300, 3000, 30000)
+SEED = 20261202
+GIB = 1024 ** 3
+
+# Run in the child: generate the cut, then run the CLI in-process with write_pdf timed.
+_CHILD = r"""
+import json, sys, time
+from pathlib import Path
+size, folder, plan = int(sys.argv[1]), Path(sys.argv[2]), sys.argv[3]
+from trialcut.data.simulate import simulate_trial, write_csv
+write_csv(simulate_trial(%(seed)d, size), folder / "cut.csv")
+print("READY", flush=True)
+sys.stdin.readline()          # the parent starts its clock now
+import weasyprint
+pdf_seconds = [0.0]
+original = weasyprint.HTML.write_pdf
+def timed(self, *args, **kwargs):
+    started = time.perf_counter()
+    try:
+        return original(self, *args, **kwargs)
+    finally:
+        pdf_seconds[0] += time.perf_counter() - started
+weasyprint.HTML.write_pdf = timed
+from trialcut.cli import main
+status = main(["run", plan, "--data", str(folder / "cut.csv"), "--cut", "bench", "--out", str(folder / "out"),
+               "--unlocked"])
+(folder / "pdf_seconds.json").write_text(json.dumps({"status": status, "pdf": pdf_seconds[0]}))
+""" % {"seed": SEED}
+
+
+def sizes() -> tuple[int, ...]:
+    chosen = os.environ.get("TRIALCUT_BENCH_SIZES")
+    return tuple(int(text) for text in chosen.split(",")) if chosen else DEFAULT_SIZES
+
+
+def measure(size: int) -> dict:
+    """Wall, CPU and peak memory of one whole run of ``size`` participants, in a child process."""
+    with tempfile.TemporaryDirectory() as scratch:
+        folder = Path(scratch)
+        child = subprocess.Popen([sys.executable, "-c", _CHILD, str(size), str(folder),
+                                  str(ROOT / "analysis_plans" / "demo.yaml")],
+                                 stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+        if child.stdout.readline().strip() != "READY":
+            raise RuntimeError(f"the {size}-participant cut was not generated: {child.stderr.read()[-2000:]}")
+        started = time.perf_counter()
+        child.stdin.write("\n")
+        child.stdin.flush()
+        _, status, usage = os.wait4(child.pid, 0)
+        wall = time.perf_counter() - started
+        child.returncode = os.waitstatus_to_exitcode(status)
+        error = child.stderr.read()
+        if child.returncode != 0:
+            raise RuntimeError(f"the {size}-participant run failed ({child.returncode}): {error[-2000:]}")
+        pdf = json.loads((folder / "pdf_seconds.json").read_text())["pdf"]
+    # ru_maxrss is in KiB on Linux; the child's CPU includes generating the cut (reported apart from wall).
+    return {"size": size, "wall": wall, "cpu": usage.ru_utime + usage.ru_stime, "peak": usage.ru_maxrss * 1024,
+            "pdf": pdf, "outside_pdf": wall - pdf}
+
+
+def run() -> list[dict]:
+    measured = {size: measure(size) for size in sizes()}
+    rows = []
+    for size, m in measured.items():
+        rows.append({"figure": f"run the demo plan, {size} participants: wall time", "value": round(m["wall"], 1),
+                     "unit": "s", "target": "< 120" if size >= 30000 else "report only",
+                     "passed": m["wall"] < 120 or size < 30000,
+                     "detail": f"outside PDF layout {m['outside_pdf']:.1f} s; PDF {m['pdf']:.1f} s; "
+                               f"CPU {m['cpu']:.1f} s (includes generating the cut)"})
+        rows.append({"figure": f"run the demo plan, {size} participants: peak memory", "value": round(m["peak"] / GIB, 2),
+                     "unit": "GiB", "target": "< 3" if size >= 30000 else "report only",
+                     "passed": m["peak"] < 3 * GIB or size < 30000})
+    rows += _ratios(measured)
+    return rows
+
+
+def _ratios(measured: dict[int, dict]) -> list[dict]:
+    rows = []
+    for small, large, limit in ((300, 3000, 2.5), (3000, 30000, 12.0)):
+        if small in measured and large in measured:
+            for key, what in (("wall", "wall time"), ("outside_pdf", "time outside PDF layout")):
+                ratio = measured[large][key] / measured[small][key]
+                rows.append({"figure": f"{what}, {large} / {small} participants", "value": round(ratio, 2),
+                             "unit": "ratio", "target": f"<= {limit}", "passed": ratio <= limit})
+    return rows
+
+
+if __name__ == "__main__":
+    for row in run():
+        print(row)
