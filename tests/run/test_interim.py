@@ -77,6 +77,7 @@ def test_final_look_spends_what_is_left_at_fraction_one():
     table = frame_of(out["hypotheses"]).set_index("id")
     holm_first = boundaries([0.5, 1.0], alpha=0.025, spending="obrien_fleming_type").nominal_p[1]
     assert table.loc["high", "crossed_adjusted"] == (0.02 <= holm_first)
+    assert any("rejected at an earlier look stays rejected" in c for c in facts["cautions"])
 
 
 def test_unplanned_cut_has_nominal_p_values_and_no_decision():

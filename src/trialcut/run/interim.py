@@ -65,6 +65,12 @@ def interim_multiplicity(plan, cut, results: dict[str, Any], hypotheses: list[di
     if declared.method == "hochberg":
         facts["cautions"].append("Hochberg's step-up procedure has no group-sequential form here; the looks use "
                                  "Holm's procedure, which rejects no more than Hochberg's.")
+    if index > 0:
+        # The runner sees one cut: decisions of earlier looks are not carried in.
+        facts["cautions"].append("This table judges each hypothesis on this cut's p-values alone. A hypothesis "
+                                 "rejected at an earlier look stays rejected, and the alpha it held passes on "
+                                 "along the graph: take earlier decisions from the earlier looks' reports and "
+                                 "have a statistician apply them before reading this look.")
     if not final:
         facts["cautions"].append(f"Interim look {index + 1} of {len(looks)}: a crossed boundary allows stopping for "
                                  "efficacy; it is not the final analysis, and the data monitoring committee decides.")
