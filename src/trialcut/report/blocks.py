@@ -72,6 +72,12 @@ class Section:
         return (self.blocks[position].kind in ("paragraph", "list", "notice")
                 and following is not None and following.kind in ("table", "figure", "list"))
 
+    def keeps_with_previous(self, position: int) -> bool:
+        """Whether a closing paragraph after a table or figure stays on that item's last page."""
+        block = self.blocks[position]
+        return (block.kind == "paragraph" and position == len(self.blocks) - 1 and position > 0
+                and self.blocks[position - 1].kind in ("table", "figure") and len(str(block.content)) < 400)
+
     def child(self, anchor: str, title: str) -> "Section":
         section = Section(anchor=f"{self.anchor}-{anchor}", title=title)
         self.subsections.append(section)

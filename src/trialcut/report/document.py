@@ -75,8 +75,10 @@ def build_document(results: Mapping[str, Any], audit: Mapping[str, Any] | None =
     # The cautions stand on the title page, where no reader can miss them.
     about = Section("run", "About this run")
     sections_front.run_record(about, results, base_format)
-    about.paragraph("How values are rounded is stated at the start of each endpoint's section, from the plan's "
-                    "decimals; the CSV files keep full precision.")
+    # Said before the tables, where it cannot be left alone on a page of its own.
+    about.blocks.insert(min(1, len(about.blocks)), Block(
+        "paragraph", "How values are rounded is stated at the start of each endpoint's section, from the plan's "
+                     "decimals; the CSV files keep full precision."))
     sections.append(about)
 
     estimands = Section("estimands", "Estimands")
