@@ -202,3 +202,22 @@ def test_multiplicity_shows_the_order_and_a_conclusion(rendered):
     table = section[section.index("<table"):section.index("</table>")]
     assert "<th scope=\"col\" class=\"num\">Weight</th>" not in table   # Holm with equal weights
     assert "&lt;0.001" not in table and "<0.001" not in table          # the order of small p-values shows
+
+
+def _headings(sections, prefix=""):
+    for position, section in enumerate(sections, start=1):
+        number = f"{prefix}{position}"
+        yield f"{number} {section.title}"
+        yield from _headings(section.subsections, f"{number}.")
+
+
+def test_no_page_strands_a_heading_or_holds_a_stray_line(rendered, document):
+    # Issue 9: a section heading stood alone at the foot of a page, and a page held one line.
+    pages = [page.extract_text() for page in pypdf.PdfReader(rendered["report.pdf"]).pages]
+    openings = {" ".join(h.split())[:40] for h in _headings(document.sections)}
+    for number, text in enumerate(pages, start=1):
+        body = [" ".join(line.split()) for line in text.splitlines()
+                if line.strip() and not re.search(r"Page \d+ of \d+|trialcut report|^Run \S+$", line.strip())]
+        body = [line for line in body if not line.startswith(("UNLOCKED PLAN", "DUMMY TREATMENT"))]
+        assert len(body) >= 4, (number, body)
+        assert not any(body[-1].startswith(opening) for opening in openings), (number, body[-3:])
