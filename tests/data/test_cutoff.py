@@ -127,3 +127,18 @@ def test_without_a_planned_day_or_a_participant_date_the_visit_counts_as_due():
     assert _due(data, "S1", "Week 4")                     # no planned day: cannot be judged
     assert _due(data, "S2", "Week 2") and _due(data, "S2", "Week 4")   # no date for S2
     assert any("have no RANDDT" in note for note in cut.cut_off.notes)
+
+
+def test_date_and_conformance_problems_are_reported_together():
+    frame = _frame()
+    frame.loc[2, "RANDDT"] = "soon"
+    frame.loc[1, "AVAL"] = 75.0                     # outside the endpoint's range 0-60
+    with pytest.raises(DataError) as caught:
+        prepare_cut(_plan(), raw(frame), today=TODAY)
+    codes = {p.code for p in caught.value.problems}
+    assert "data.unparseable_date" in codes and "data.value_range" in codes
+
+
+def test_a_cut_without_its_participant_column_is_a_conformance_error_not_a_fault():
+    with pytest.raises(DataError, match="does not conform"):
+        prepare_cut(_plan(), raw(_frame().drop(columns="USUBJID")), today=TODAY)

@@ -77,6 +77,9 @@ def resolve_cut_off(plan, raw: RawCut, given: dt.date | None = None, today: dt.d
         return CutOff(given, "given" if given else "none", None, notes=(
             "The plan maps no randomisation date column (columns.randomisation_date), so whether a "
             "visit was due by the cut-off could not be judged: every scheduled visit counts as due.",))
+    if plan.columns.subject not in raw.frame.columns:
+        # Without participants there are no dates to read; the conformance checks say what is missing.
+        return CutOff(given, "given" if given else "none", None)
     if column not in raw.frame.columns:
         raise DataError(f"the date column {column} is not in {raw.file}", [Problem(
             code="data.missing_date_column", message=f"the plan maps the randomisation date to {column}, "

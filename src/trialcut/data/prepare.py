@@ -36,7 +36,7 @@ from trialcut.data.conformance import (ANALYSIS_VISIT, CHOSEN, ROLE, ROW, Confor
 from trialcut.data.cutoff import CutOff, due_flags, resolve_cut_off
 from trialcut.data.dummy_arms import ArmBlinding, allocate, blind_raw, blinding_for
 from trialcut.data.readers import RawCut
-from trialcut.errors import PlanError, Problem
+from trialcut.errors import DataError, PlanError, Problem
 
 SOURCE_ROW = "source_row"
 VISIT_COLLECTED = "visit_collected"
@@ -390,8 +390,7 @@ def prepare_cut(plan, raw: RawCut, dummy_arms_seed: int | None = None, cut_off: 
         blinding = blinding_for(plan)
         plan = blinding.plan(plan)
         raw = blind_raw(raw, plan.columns.arm, plan.arms.reference)
-    resolved = resolve_cut_off(plan, raw, cut_off, today)
-    checked = check_cut(plan, raw)
+    resolved, checked = _checked_with_cut_off(plan, raw, cut_off, today)
     log = list(checked.derivations)
     work = _derive_baseline_and_change(plan, checked.records, log)
     records = _analysed_records(plan, work)
@@ -402,6 +401,24 @@ def prepare_cut(plan, raw: RawCut, dummy_arms_seed: int | None = None, cut_off: 
     return DataCut(plan=plan, manifest=dict(raw.manifest), records=records, subjects=subjects,
                    conformance=checked.report, derivations=tuple(log),
                    dummy_arms_seed=dummy_arms_seed, reason_column=reason, cut_off=resolved, blinding=blinding)
+
+
+def _checked_with_cut_off(plan, raw: RawCut, cut_off: dt.date | None, today: dt.date | None):
+    """The cut-off and the conformance checks; their problems are raised together, in one pass."""
+    date_error = None
+    try:
+        resolved = resolve_cut_off(plan, raw, cut_off, today)
+    except DataError as error:
+        date_error, resolved = error, None
+    try:
+        checked = check_cut(plan, raw)
+    except DataError as error:
+        if date_error is None:
+            raise
+        raise DataError(str(error), [*error.problems, *date_error.problems]) from None
+    if date_error is not None:
+        raise date_error
+    return resolved, checked
 
 
 def _derive_baseline_and_change(plan, work: pd.DataFrame, log: list[dict[str, Any]]) -> pd.DataFrame:
