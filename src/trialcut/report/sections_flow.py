@@ -69,6 +69,10 @@ def _flow_table(section: Section, results, endpoint, entry, slug: str, number_fo
     arms = [c for c in columns if c not in ("visit", "step", "label")]
     rows = [list(row) for row in source.get("data") or []]
     step_at, label_at = columns.index("step"), columns.index("label")
+    # Composite rows only matter when the estimand uses that strategy: all zero, they add nothing.
+    composite = [r for r in rows if str(r[step_at]).startswith("composite_")]
+    if composite and not any(r[columns.index("Total")] for r in composite):
+        rows = [r for r in rows if not str(r[step_at]).startswith("composite_")]
     for row in rows:
         if str(row[step_at]).startswith(_DUE_PARTS_PREFIXES) or row[step_at] in _LEFT_OUT_STEPS:
             row[label_at] = f"– {row[label_at]}"
