@@ -371,15 +371,52 @@ def _check_scheduler(address: str) -> None:
             code="run.bad_scheduler", message="the scheduler address is not valid", field="--scheduler",
             expected="'local', or HOST:PORT such as tcp://10.0.0.5:8786", got=repr(address),
             hint="copy the address the Dask scheduler printed when it started")])
+def _check_scheduler(address: str) -> None:
+    """A malformed address or one where nothing listens is a mistake on the command line:
+    say so in seconds, before the data are read (Dask itself would wait 30 s, then fail)."""
+    import re
+    import socket
+
+    if address == "local":
+        return
+    found = re.fullmatch(r"(?:(tcp|tls)://)?(\[[0-9A-Fa-f:.]+\]|[A-Za-z0-9.-]+):(\d{1,5})", address)
+    port = int(found.group(3)) if found else 0
+    if not found or not 0 < port < 65536:
+        raise InputError(f"the scheduler address {address!r} is not valid", [Problem(
+            code="run.bad_scheduler", message="the scheduler address is not valid", field="--scheduler",
+            expected="'local', or HOST:PORT such as tcp://10.0.0.5:8786", got=repr(address),
+            hint="copy the address the Dask scheduler printed when it started")])
     host = found.group(2).strip("[]")
     try:
-        socket.create_connection((host, port), timeout=SCHEDULER_TIMEOUT).close()
+        connection = socket.create_connection((host, port), timeout=SCHEDULER_TIMEOUT)
     except OSError as error:
         raise InputError(f"no Dask scheduler answers at {address}", [Problem(
             code="run.no_scheduler", message=f"nothing answers at {host}:{port} within {SCHEDULER_TIMEOUT:g} s",
             field="--scheduler", got=error.strerror or type(error).__name__,
             hint="start the scheduler first, check the address and port, or use --scheduler local")]) from error
+    with connection:
+        # A Dask scheduler greets a new connection at once (its handshake); a silent listener
+        # would leave the Dask client waiting for ever.  (TLS waits for the client: not probed.)
+        if found.group(1) != "tls" and not _greets(connection):
+            raise InputError(f"the program at {address} is not a Dask scheduler", [Problem(
+                code="run.not_a_scheduler", message=f"something listens at {host}:{port} but does not answer "
+                f"as a Dask scheduler within {SCHEDULER_TIMEOUT:g} s", field="--scheduler",
+                hint="check the port: the scheduler prints its address (tcp://HOST:PORT) when it starts")])
 
+
+def _greets(connection) -> bool:
+    import socket
+
+    try:
+        return bool(connection.recv(1))
+    except (socket.timeout, OSError):
+        return False
+
+
+SCHEDULER_TIMEOUT = 5.0
+
+
+def _progress_printer():
 
 SCHEDULER_TIMEOUT = 5.0
 
