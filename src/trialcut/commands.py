@@ -371,21 +371,6 @@ def _check_scheduler(address: str) -> None:
             code="run.bad_scheduler", message="the scheduler address is not valid", field="--scheduler",
             expected="'local', or HOST:PORT such as tcp://10.0.0.5:8786", got=repr(address),
             hint="copy the address the Dask scheduler printed when it started")])
-def _check_scheduler(address: str) -> None:
-    """A malformed address or one where nothing listens is a mistake on the command line:
-    say so in seconds, before the data are read (Dask itself would wait 30 s, then fail)."""
-    import re
-    import socket
-
-    if address == "local":
-        return
-    found = re.fullmatch(r"(?:(tcp|tls)://)?(\[[0-9A-Fa-f:.]+\]|[A-Za-z0-9.-]+):(\d{1,5})", address)
-    port = int(found.group(3)) if found else 0
-    if not found or not 0 < port < 65536:
-        raise InputError(f"the scheduler address {address!r} is not valid", [Problem(
-            code="run.bad_scheduler", message="the scheduler address is not valid", field="--scheduler",
-            expected="'local', or HOST:PORT such as tcp://10.0.0.5:8786", got=repr(address),
-            hint="copy the address the Dask scheduler printed when it started")])
     host = found.group(2).strip("[]")
     try:
         connection = socket.create_connection((host, port), timeout=SCHEDULER_TIMEOUT)
@@ -412,11 +397,6 @@ def _greets(connection) -> bool:
     except (socket.timeout, OSError):
         return False
 
-
-SCHEDULER_TIMEOUT = 5.0
-
-
-def _progress_printer():
 
 SCHEDULER_TIMEOUT = 5.0
 
