@@ -90,8 +90,6 @@ def command_key(args) -> int:
     from trialcut.commands import console
     from trialcut.record.signing import keyring_path, new_key
 
-    if args.key_action != "new":   # argparse allows only 'new'; kept for later actions
-        raise InputError(f"unknown key action {args.key_action!r}")
     passphrase = None if args.no_passphrase else passphrase_source(args, confirm=True)()
     if not passphrase and not args.no_passphrase:
         raise InputError("a new key needs a passphrase, or --no-passphrase", [Problem(

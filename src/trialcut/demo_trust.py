@@ -94,7 +94,8 @@ def approve_and_check_final(out: Path, final_folder: Path, final_data: Path) -> 
             f"QC (double programming): {outcome.summary}: {qc.folder / 'qc.html'}",
             f"handover bundle:  {archive} (check: trialcut verify {archive} --keyring {keyring_file(out)})",
             f"final run is:     {state.state}" + (f" (lacks {'; '.join(state.lacking)})" if state.lacking else ""),
-            f"check signatures: trialcut verify --out {out} --keyring {keyring_file(out)}"]
+            f"check signatures: trialcut verify --out {out} --keyring {keyring_file(out)}",
+            f"run it again:     trialcut reproduce {final_folder}  (compares every number)"]
 
 
 def _fresh_qc_path(out: Path) -> Path:
