@@ -15,6 +15,7 @@ from __future__ import annotations
 import math
 from typing import Any
 
+import numpy as np
 import pandas as pd
 
 FORMAT = 1
@@ -33,14 +34,40 @@ def participant_records(frame: pd.DataFrame, columns: Any) -> dict[str, Any]:
     parameter = getattr(columns, "parameter", None)
     several = parameter in frame.columns and frame[parameter].nunique(dropna=True) > 1
     day = getattr(columns, "study_day", None)
-    text = pd.DataFrame({field: [_text(v) for v in frame[field]] for field in fields}, index=frame.index)
-    text[SUBJECT] = [str(v) for v in frame[subject]]
+    # Column by column, not value by value: a 30,000-participant cut has millions of cells.
+    text = pd.DataFrame({field: _texts(frame[field]) for field in fields}, index=frame.index)
+    text[SUBJECT] = _texts(frame[subject])
     text[DAY] = pd.to_numeric(frame[day], errors="coerce") if day in frame.columns else 0.0
     sort_keys = [SUBJECT, *([parameter] if several else []), DAY, *([visit] if visit in fields else []), *fields]
+    ordered = text.sort_values(sort_keys, kind="stable", na_position="last")
+    names = _record_names(ordered, visit if visit in fields else None, parameter if several else None)
+    if names is None:    # a name that looks like a numbered repeat: number them one by one
+        return _records_one_by_one(ordered, fields, visit, parameter if several else None, withheld)
     participants: dict[str, dict[str, list[str]]] = {}
-    for values in text.sort_values(sort_keys, kind="stable", na_position="last").to_dict("records"):
+    for person, name, values in zip(ordered[SUBJECT].tolist(), names, ordered[fields].values.tolist()):
+        participants.setdefault(person, {})[name] = values
+    return {"format": FORMAT, "fields": fields, "withheld": withheld,
+            "participants": dict(sorted(participants.items()))}
+
+
+def _record_names(ordered: pd.DataFrame, visit: str | None, parameter: str | None) -> list[str] | None:
+    """Each record's name, "<name> (k)" for the k-th record of a name (k >= 2); None when a
+    numbered name could meet a name of the data, where only the record-by-record rule is exact."""
+    base = ordered[visit].where(ordered[visit] != "", "no visit") if visit else pd.Series("no visit", ordered.index)
+    if parameter:
+        base = ordered[parameter] + ", " + base
+    repeat = base.groupby([ordered[SUBJECT], base], sort=False).cumcount() + 1
+    names = base.where(repeat == 1, base + " (" + repeat.astype(str) + ")")
+    if names[repeat > 1].isin(set(base)).any():
+        return None
+    return names.tolist()
+
+
+def _records_one_by_one(ordered: pd.DataFrame, fields, visit, parameter, withheld) -> dict[str, Any]:
+    participants: dict[str, dict[str, list[str]]] = {}
+    for values in ordered.to_dict("records"):
         record = participants.setdefault(values[SUBJECT], {})
-        name = _record_name(values, visit, parameter if several else None)
+        name = _record_name(values, visit, parameter)
         repeat, unique = 1, name
         while unique in record:
             repeat += 1
@@ -48,6 +75,23 @@ def participant_records(frame: pd.DataFrame, columns: Any) -> dict[str, Any]:
         record[unique] = [values[field] for field in fields]
     return {"format": FORMAT, "fields": fields, "withheld": withheld,
             "participants": dict(sorted(participants.items()))}
+
+
+def _texts(column: pd.Series) -> list[str]:
+    """:func:`_text` of every value, with whole columns of numbers converted at once."""
+    if pd.api.types.is_float_dtype(column.dtype) and isinstance(column.dtype, np.dtype):
+        values = column.to_numpy()
+        missing = np.isnan(values) | np.isinf(values)
+        whole = ~missing & (np.floor(np.where(missing, 0, values)) == values) & (np.abs(values) < 1e15)
+        out = np.full(values.shape, "", dtype=object)
+        out[whole] = values[whole].astype(np.int64).astype(str)
+        rest = ~missing & ~whole
+        out[rest] = [repr(v) for v in values[rest].tolist()]
+        out[np.isinf(values)] = [_text(v) for v in values[np.isinf(values)].tolist()]
+        return out.tolist()
+    if pd.api.types.is_integer_dtype(column.dtype) and isinstance(column.dtype, np.dtype):
+        return column.to_numpy().astype(str).tolist()
+    return [v if type(v) is str else _text(v) for v in column.to_numpy(dtype=object)]
 
 
 def _record_name(values: dict[str, Any], visit: str, parameter: str | None) -> str:

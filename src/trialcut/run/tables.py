@@ -39,11 +39,28 @@ def plain(value: Any) -> Any:
 
 def table(frame: pd.DataFrame, title: str | None = None) -> dict[str, Any]:
     frame = frame.reset_index(drop=True)
+    # Column by column (a residual table of a large cut has hundreds of thousands of cells).
+    columns = [_plain_column(frame.iloc[:, position]) for position in range(frame.shape[1])]
     return {
         "title": title or "",
         "columns": [str(c) for c in frame.columns],
-        "data": [[plain(v) for v in row] for row in frame.itertuples(index=False, name=None)],
+        "data": [list(row) for row in zip(*columns)] if columns else [[] for _ in range(len(frame))],
     }
+
+
+def _plain_column(column: pd.Series) -> list[Any]:
+    """:func:`plain` of every value of a column; numpy float, integer and bool columns at once."""
+    dtype = column.dtype
+    if isinstance(dtype, np.dtype) and dtype.kind == "f":
+        values = column.to_numpy(dtype=float)
+        out = np.asarray(values.tolist(), dtype=object)
+        out[~np.isfinite(values)] = None
+        return out.tolist()
+    if isinstance(dtype, np.dtype) and dtype.kind in "iu":
+        return column.to_numpy().tolist()
+    if isinstance(dtype, np.dtype) and dtype.kind == "b":
+        return column.to_numpy().tolist()
+    return [plain(v) for v in column.tolist()]
 
 
 def frame_of(table_dict: dict[str, Any]) -> pd.DataFrame:
