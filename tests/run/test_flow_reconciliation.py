@@ -115,8 +115,14 @@ def _descriptive(endpoint, primary, arms) -> list[str]:
     analysed = "CHG" if endpoint["analysed"] == "change" else "AVAL"
     rows = frame_of(endpoint["descriptive"])
     rows = rows[rows["variable"] == analysed]
-    return [f"descriptive n at {row.visit}/{row.arm} is {row.n}, the flow records {_recorded(primary, row.visit, row.arm)}"
-            for row in rows.itertuples() if row.n != _recorded(primary, row.visit, row.arm)]
+    problems = [f"descriptive n at {row.visit}/{row.arm} is {row.n}, the flow records "
+                f"{_recorded(primary, row.visit, row.arm)}"
+                for row in rows.itertuples() if row.n != _recorded(primary, row.visit, row.arm)]
+    if "not_yet_due" in rows.columns:
+        problems += [f"descriptive 'not yet due' at {row.visit}/{row.arm} is not the flow's"
+                     for row in rows.itertuples()
+                     if row.not_yet_due != _count(primary, row.visit, "not_yet_due", row.arm)]
+    return problems
 
 
 def _missing_tables(endpoint, primary, arms) -> list[str]:

@@ -191,3 +191,22 @@ def patterns(data, events: dict[str, str], arms: tuple[str, ...]) -> pd.DataFram
             observed_part = pattern.rstrip("-")
             rows.append((arm, pattern, int(count), count / len(in_arm), "X" not in observed_part.lstrip("X")))
     return pd.DataFrame(rows, columns=["arm", "pattern", "count", "share", "monotone"])
+
+
+def with_not_yet_due(summary: pd.DataFrame, flow: pd.DataFrame) -> pd.DataFrame:
+    """An arm × visit summary with the flow's count of visits not yet due beside its n (None
+    where the row is not a scheduled visit, e.g. baseline), so that n and not yet due are read
+    together: n + not yet due + missing = the participants of the population."""
+    not_due = {(arm, visit): int(count) for visit, step, arm, count in _long(flow) if step == "not_yet_due"}
+    values = [not_due.get((str(a), str(v))) for a, v in zip(summary["arm"], summary["visit"])]
+    position = list(summary.columns).index("n") + 1 if "n" in summary.columns else len(summary.columns)
+    out = summary.copy()
+    out.insert(position, "not_yet_due", pd.array(values, dtype="Int64"))
+    return out
+
+
+def _long(flow: pd.DataFrame):
+    arms = [c for c in flow.columns if c not in ("visit", "step", "label", "Total")]
+    for record in flow.to_dict("records"):
+        for arm in arms:
+            yield record["visit"], record["step"], arm, record[arm]

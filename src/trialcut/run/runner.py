@@ -97,8 +97,9 @@ def _run_endpoint(plan, cut, endpoint, context, timer, run_warnings) -> dict[str
         "id": endpoint.id, "label": endpoint.label, "analysed": endpoint.analysed,
         "primary_visit": endpoint.primary_visit, "decimals": endpoint.decimals,
         "population": primary_population,
-        "descriptive": table(_with_baseline_rows(describe_by_arm_visit(observed.frame, columns=tuple(columns), **roles),
-                                                 observed, plan.visits.baseline, roles["arms"]),
+        "descriptive": table(flow.with_not_yet_due(_with_baseline_rows(
+                                 describe_by_arm_visit(observed.frame, columns=tuple(columns), **roles),
+                                 observed, plan.visits.baseline, roles["arms"]), primary_flow),
                              "Summary statistics by arm and visit (observed data)"),
         "missing_by_visit": table(flow.missing_by_visit(primary_flow, primary_data.arms),
                                   "Missing outcomes by arm and visit (visits not yet due apart)"),
