@@ -24,11 +24,12 @@ from trialcut.commands_bundle import add_bundle_parser
 from trialcut.commands_key import add_key_arguments, add_signing_arguments
 from trialcut.commands_qc import add_qc_parser
 from trialcut.commands_reproduce import add_reproduce_parser
+from trialcut.commands_simulate import add_simulate_parser
 from trialcut.errors import TrialcutError
 
 OWN_MODULES = {"key": "trialcut.commands_key", "approve": "trialcut.commands_approve",
                "qc": "trialcut.commands_qc", "bundle": "trialcut.commands_bundle",
-               "reproduce": "trialcut.commands_reproduce"}
+               "reproduce": "trialcut.commands_reproduce", "simulate": "trialcut.commands_simulate"}
 
 
 class UsageError(TrialcutError):
@@ -100,6 +101,7 @@ def build_parser() -> argparse.ArgumentParser:
     add_qc_parser(commands)
     add_bundle_parser(commands)
     add_reproduce_parser(commands)
+    add_simulate_parser(commands)
 
     run = commands.add_parser("run", help="check a data cut and run the locked plan on it")
     run.add_argument("plan", type=Path)

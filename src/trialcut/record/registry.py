@@ -47,7 +47,7 @@ from trialcut.errors import InputError, Problem, TrialcutError
 GENESIS_HASH = "0" * 64
 SCHEMA_VERSION = 2
 REGISTRY_NAME = "registry.sqlite"
-RECORD_KINDS = ("run", "comparison", "rendering", "approval", "qc", "bundle")
+RECORD_KINDS = ("run", "comparison", "rendering", "approval", "qc", "bundle", "simulation")
 LOCK_STATUSES = ("locked", "unlocked")
 # How long a writer waits for another writer's lock: before an analysis starts, long enough
 # for another run to finish rendering and recording (writers hold the lock while they fill
