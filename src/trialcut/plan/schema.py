@@ -499,6 +499,9 @@ class Endpoint(Strict):
     primary_visit: str
     range: tuple[float, float] | None = Field(default=None, description="Allowed range of the measured value.")
     decimals: int = Field(default=1, ge=0, le=6, description="Decimals the raw value is recorded to.")
+    better: Literal["lower", "higher"] | None = Field(default=None, description=(
+        "Which values are better for the participant; sets which side of a difference favours the "
+        "active arm in figures and text. Left out, the report reads it from the label ('higher is worse')."))
     analyses: EndpointAnalyses
 
     @model_validator(mode="after")

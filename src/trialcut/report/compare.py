@@ -302,7 +302,16 @@ def compare_decisions(results_a: Mapping[str, Any], results_b: Mapping[str, Any]
                         f"boundary_p_{side}": found.get("boundary_p"), f"rejected_{side}": found.get("decision")})
         rows.append(row)
     return {"method_a": record_a.get("method"), "method_b": record_b.get("method"),
-            "alpha_a": record_a.get("alpha"), "alpha_b": record_b.get("alpha"), "hypotheses": rows}
+            "alpha_a": record_a.get("alpha"), "alpha_b": record_b.get("alpha"),
+            "interim_a": _is_interim(record_a), "interim_b": _is_interim(record_b), "hypotheses": rows}
+
+
+def _is_interim(record: Mapping[str, Any]) -> bool:
+    """A run whose decisions are not final: a look before the last, or a cut that is not a planned look."""
+    facts = record.get("sequential") or {}
+    if not facts:
+        return False
+    return not (facts.get("planned_look") and facts.get("look") == facts.get("looks"))
 
 
 def late_amendments(results: Mapping[str, Any]) -> list[dict[str, Any]]:
@@ -552,7 +561,7 @@ def _estimates_section(rows: Sequence[Mapping[str, Any]], endpoint_format: Numbe
     display = []
     for side in ("a", "b"):
         upper = side.upper()
-        display += [ReportColumn((f"n_{side}",), f"N {upper}", "text"),
+        display += [ReportColumn((f"n_{side}",), f"N in {upper}", "text"),
                     ReportColumn((f"estimate_{side}",), f"Estimate {upper}", "mean"),
                     ReportColumn((f"se_{side}",), f"Standard error {upper}", "sd"),
                     ReportColumn((f"df_{side}",), f"DF {upper}", "df"),
@@ -584,9 +593,11 @@ def _tipping_section(rows: Sequence[Mapping[str, Any]], endpoint_format: NumberF
     if not rows:
         return None
     section = Section("tipping", "Tipping points")
-    section.paragraph("The shift added to the imputed values of the active arm at which the difference stops "
-                      "being significant, for each shift in the reference arm, in both runs. A larger tipping "
-                      "shift means a conclusion that is harder to overturn.")
+    section.paragraph("The shift added to the imputed values of the active arm at which the two-sided p-value of "
+                      "the difference crosses the tipping-point analysis' own level, for each shift in the reference "
+                      "arm, in both runs. That level is nominal: at an interim look it is not the group-sequential "
+                      "boundary, and no decision follows from it. A larger tipping shift means a result that is "
+                      "harder to overturn.")
     section.table(from_records(rows, ("label", "arm", "reference_shift", "tipping_shift_a", "tipping_shift_b",
                                       "change"),
                                slug="tipping_points_compared", title="Tipping points in both runs",
@@ -630,12 +641,18 @@ def _decisions_section(record: Mapping[str, Any], number_format: NumberFormat) -
                            ("rejected", "Rejected")):
             if key in ("p", "rejected") or any(r.get(f"{key}_{side}") is not None for r in rows):
                 columns.append(f"{key}_{side}")
-                labels[f"{key}_{side}"] = f"{label} {upper}"
+                interim = key == "rejected" and record.get(f"interim_{side}")
+                labels[f"{key}_{side}"] = f"Boundary crossed (interim) {upper}" if interim else f"{label} {upper}"
     columns.append("same")
-    kinds = {c: ("flag" if c.startswith(("rejected", "same")) else "text" if c == "hypothesis" else "p")
-             for c in columns}
+    # p-values keep three significant digits and boundaries the places of the run's own report, so a
+    # p-value can be read against its boundary (never '<0.001' beside a boundary of 0.001).
+    kinds = {c: ("flag" if c.startswith(("rejected", "same")) else "text" if c == "hypothesis"
+                 else "boundary_p" if c.startswith("boundary_p") else "p_exact") for c in columns}
+    interim_sides = [side.upper() for side in ("a", "b") if record.get(f"interim_{side}")]
     note = ("Rejected: the null hypothesis is rejected after the adjustment for multiplicity (at a look of a "
-            "group-sequential design: its adjusted boundary is crossed); a dash: not tested.")
+            "group-sequential design: its adjusted boundary is crossed); a dash: not tested."
+            + (f" Run {' and '.join(interim_sides)} is an interim look: a crossed boundary there allows stopping "
+               "but is not a final decision." if interim_sides else ""))
     section.table(from_records(rows, columns, slug="multiplicity_compared",
                                title="Multiplicity-adjusted decisions in both runs", number_format=number_format,
                                labels=labels, kinds=kinds, note=note))

@@ -67,7 +67,10 @@ class EndpointContext:
 
     @property
     def better(self) -> str | None:
-        """'lower' or 'higher' when the endpoint's label says which way is better; None otherwise."""
+        """'lower' or 'higher': the plan's ``better`` key; without it, what the label says; else None."""
+        stated = self.endpoint.get("better")
+        if stated in ("lower", "higher"):
+            return stated
         text = self.label.lower()
         if re.search(r"higher (values? )?(is|are) worse|lower (values? )?(is|are) better", text):
             return "lower"

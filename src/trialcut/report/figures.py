@@ -371,8 +371,8 @@ def tipping_chart(cells: Sequence[Mapping[str, Any]], *, arms: Sequence[str], al
             axes.set_title(arm, fontsize=8.5, color=INK)
             axes.spines[:].set_visible(False)
         panels[0].set_ylabel("Shift added in the reference arm")
-        figure.legend(handles=[Patch(color=significant, label=f"still significant (p < {alpha:g})"),
-                               Patch(color=lost, label=f"no longer significant (p ≥ {alpha:g})")],
+        figure.legend(handles=[Patch(color=significant, label=f"p < {alpha:g} (two-sided, nominal)"),
+                               Patch(color=lost, label=f"p ≥ {alpha:g}")],
                       loc="lower center", ncols=2, fontsize=8, bbox_to_anchor=(0.5, 0.0))
         figure.subplots_adjust(bottom=0.8 / height, top=1 - 0.35 / height, left=0.12)
 

@@ -72,6 +72,9 @@ class NumberFormat:
             "df": 1, "statistic": STATISTIC_DECIMALS, "correlation": CORRELATION_DECIMALS,
             "percent": 1, "share": 1, "criterion": CRITERION_DECIMALS, "count": 0,
             "p": self.p_value,
+            # Group-sequential tables: the same places as the sentence above them (|z| ≥ 2.790, p ≤ 0.00526).
+            "boundary_z": BOUNDARY_Z_DECIMALS, "fraction": FRACTION_DECIMALS, "alpha": ALPHA_DECIMALS,
+            "boundary_p": BOUNDARY_P_DECIMALS,
         }.get(kind)
 
     def p_value_text(self, value: float) -> str:
@@ -166,6 +169,10 @@ def _general(value: float) -> str:
     return f"{value:.3g}"
 
 
+BOUNDARY_Z_DECIMALS = FRACTION_DECIMALS = ALPHA_DECIMALS = 3
+BOUNDARY_P_DECIMALS = 5
+
+
 def describe_rules(number_format: NumberFormat, *, what: str = "", recorded: Any = None) -> str:
     """The rules in words, as the tables of ``what`` apply them, so a reader knows how values were rounded.
 
@@ -182,7 +189,9 @@ def describe_rules(number_format: NumberFormat, *, what: str = "", recorded: Any
         f"{_decimals_words(number_format.sd_decimals)}: {recorded_text}, plus {number_format.mean_extra} and "
         f"{number_format.sd_extra} (the plan's report decimals mean_extra and sd_extra). p-values are shown to "
         f"{_decimals_words(number_format.p_value)} (p_value), with smaller values shown as {smallest}, except in "
-        f"the multiplicity table, where small p-values keep three significant digits so their order shows. "
+        f"the multiplicity table, where small p-values keep three significant digits so their order shows "
+        f"(group-sequential boundaries: |z| and information fractions to {BOUNDARY_Z_DECIMALS} decimals, the "
+        f"alpha a hypothesis holds to {ALPHA_DECIMALS}, boundary p-values and alpha spent to {BOUNDARY_P_DECIMALS}). "
         "Degrees of freedom and percentages are shown to 1 decimal, test statistics to 2, correlations to 3; "
         "model coefficients (including slopes of numeric covariates) to three significant digits. "
         "Values are rounded half away from zero. The CSV files keep full precision."

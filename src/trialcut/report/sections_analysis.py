@@ -57,7 +57,7 @@ FIT_FACTS = (
     ("aic", "AIC", "criterion"), ("bic", "BIC", "criterion"),
     ("n_subjects", "Participants in the fit", "count"), ("n_obs", "Observations in the fit", "count"),
     ("n_excluded_subjects", "Participants with no observed value (left out)", "count"),
-    ("n_subjects_excluded", "Participants with no observed value (left out)", "count"),
+    ("n_subjects_excluded", "Participants with a visit due but no value used (left out)", "count"),
     ("iterations", "Iterations", "count"), ("gradient_norm", "Gradient norm at the end", "general"),
     ("scaled_gradient", "Scaled gradient at the end", "general"),
     ("tolerance", "Convergence tolerance", "general"), ("robust", "Standard errors of the fixed effects", "text"),
@@ -87,21 +87,26 @@ def missing_data(section: Section, context: EndpointContext) -> None:
     if by_visit:
         section.table(context.standalone(from_results_table(
             by_visit, slug=f"{context.slug}_missing_by_visit", number_format=number_format,
-            title=context.title("Missing values of the primary analysis by arm and visit")),
+            title=context.title("Missing values of the primary analysis by arm and visit"),
+            labels=MISSING_TABLE_LABELS),
             notes=["Expected: participants due a value at the visit by the data cut; a visit not yet due "
-                   "is not counted as missing."]))
+                   "is not counted as missing.",
+                   "Due = observed + missing. Set aside: values observed after an intercurrent event that the "
+                   "primary estimand's strategy does not use; they are part of the observed count, and the "
+                   "primary analysis treats them as missing (see the participant-flow table)."]))
     patterns = endpoint.get("missing_patterns")
     if patterns:
         section.paragraph(
             f"A pattern has one mark per scheduled visit in time order, drawn as in Figure 1: {OBSERVED_MARK} "
             f"where a value was observed, {MISSING_MARK} where it is missing (or set aside by the strategy), "
-            "- where the visit was not yet due at the cut-off (neither observed nor missing). A monotone "
+            f"{NOT_DUE_MARK} where the visit was not yet due at the cut-off (neither observed nor missing). A monotone "
             "pattern has no observed value after a missing one.")
         shown = _with_pattern_marks(patterns)
         section.table(context.standalone(from_results_table(
             shown, slug=f"{context.slug}_missing_patterns", number_format=number_format,
             title=context.title("Participants by pattern of observed visits")),
-            notes=[f"Visits in order: {', '.join(context.visits)}. {OBSERVED_MARK} observed; {MISSING_MARK} missing."]))
+            notes=[f"Visits in order: {', '.join(context.visits)}. {OBSERVED_MARK} observed; {MISSING_MARK} missing "
+                   f"or set aside; {NOT_DUE_MARK} not yet due at the cut-off."]))
         rows = rows_as_dicts(patterns)
         section.figure(_figure(
             "missing_patterns", "Pattern of observed and missing visits by arm",
@@ -112,8 +117,15 @@ def missing_data(section: Section, context: EndpointContext) -> None:
         section.notice("The results carry no missing-data summaries for this endpoint.")
 
 
-# The marks of a pattern, the same as the tiles of the pattern figure (filled: observed).
-OBSERVED_MARK, MISSING_MARK = "■", "□"
+# The missing-value table's counts read as a sum: due = observed + missing, set aside within observed.
+MISSING_TABLE_LABELS = {"observed": "Observed (set aside included)", "set_aside": "Set aside (of observed)"}
+
+
+# The marks of a pattern, the same as the tiles of the pattern figure (filled: observed; the
+# figure's light grey tile, a visit not yet due, is a dash: neither observed nor missing).
+OBSERVED_MARK, MISSING_MARK, NOT_DUE_MARK = "■", "□", "–"
+# How results.json stores a pattern: X used, '.' missing or set aside, '-' not yet due.
+STORED_NOT_DUE = "-"
 
 
 def _with_pattern_marks(patterns: Mapping[str, Any]) -> dict[str, Any]:
@@ -129,7 +141,8 @@ def _with_pattern_marks(patterns: Mapping[str, Any]) -> dict[str, Any]:
 def _marks(pattern: Any) -> Any:
     if not isinstance(pattern, str):
         return pattern
-    return "".join(MISSING_MARK if mark in (".", "-", " ", "0", MISSING_MARK) else OBSERVED_MARK for mark in pattern)
+    return "".join(NOT_DUE_MARK if mark in (STORED_NOT_DUE, NOT_DUE_MARK)
+                   else MISSING_MARK if mark in (".", " ", "0", MISSING_MARK) else OBSERVED_MARK for mark in pattern)
 
 
 # --------------------------------------------------------------------------- descriptive
@@ -507,6 +520,8 @@ def _model_fit_facts(context: EndpointContext, fit: Mapping[str, Any], analysis:
         elif key == "robust":
             value = "empirical (sandwich)" if value else "model-based"
         pairs.append((label, value, kind))
+        if key == "n_subjects_excluded":
+            pairs.extend(_not_yet_due_fact(analysis))
     level = _level_text(analysis.get("options") or {})
     if pairs:
         pairs.append(("Confidence level", level, "text"))
@@ -514,6 +529,17 @@ def _model_fit_facts(context: EndpointContext, fit: Mapping[str, Any], analysis:
         return None
     return facts_table(pairs, slug=f"{context.slug}_model_fit", title=context.title("Fit of the model", analysis),
                        number_format=context.number_format)
+
+
+NOT_YET_DUE_REASON = "no visit due yet"
+
+
+def _not_yet_due_fact(analysis: Mapping[str, Any]) -> list[tuple[str, Any, str]]:
+    """Participants of the population the fit never saw (no visit due): with them the fit's counts add up
+    to the population of the participant-flow table (in the fit + left out + no visit due)."""
+    rows = rows_as_dicts(analysis.get("left_out") or {})
+    waiting = sum(1 for row in rows if str(row.get("reason")) == NOT_YET_DUE_REASON)
+    return [("Participants with no visit due yet (not in the fit)", waiting, "count")] if waiting else []
 
 
 def _differences_table(context: EndpointContext, source, slug: str, title: str, ci: str, note: str = "", *,
@@ -842,6 +868,9 @@ def tipping_point(section: Section, context: EndpointContext, analysis) -> None:
     reading = TippingReading(context, analysis, cells, alpha)
     for text in reading.method_words():
         section.paragraph(text)
+    caution = interim_level_caution(context.results, alpha)
+    if caution:
+        section.notice(caution)
     section.items(reading.bullets())
     for name, source in tables.items():
         if name == "differences":
@@ -863,14 +892,27 @@ def tipping_point(section: Section, context: EndpointContext, analysis) -> None:
     usable = [c for c in cells if c.get("shift") is not None and c.get("arm") is not None]
     section.figure(_figure(
         "tipping_map", f"Tipping-point map: estimated difference from {context.reference} for each pair of shifts, "
-                       "coloured by significance",
+                       f"coloured by whether p < {alpha:g}",
         f"Tile map over {len({c['shift'] for c in usable})} shifts in the active arm and "
         f"{len({c['reference_shift'] for c in usable})} in the reference arm for {len({c['arm'] for c in usable})} arms; "
-        "each tile is labelled with the estimated difference and coloured by whether it is still significant.",
+        f"each tile is labelled with the estimated difference and coloured by whether its p-value is below {alpha:g}.",
         lambda: draw.tipping_chart(usable, arms=context.arms, alpha=alpha,
                                    label=lambda v: context.number_format.cell(v, "mean")), context,
         note="Tile text: pooled estimated difference (arm minus reference). Colour: whether the two-sided p-value "
              f"is below {alpha:g}."))
+
+
+def interim_level_caution(results: Mapping[str, Any], alpha: float) -> str:
+    """At a look that is not the last (or a cut that is no planned look), the tipping point's level is nominal:
+    the group-sequential boundary, not α, is what a decision at this cut may use."""
+    facts = (results.get("multiplicity") or {}).get("sequential") or {}
+    if not facts or (facts.get("planned_look") and facts.get("look") == facts.get("looks")):
+        return ""
+    where = (f"interim look {facts.get('look')} of {facts.get('looks')}" if facts.get("planned_look")
+             else "a cut that is not a planned look")
+    return (f"This is {where}: the tipping point uses the nominal two-sided level {alpha:g}, not the "
+            "group-sequential boundary of the multiple-comparisons section. 'Significant' below describes how far "
+            "the estimate withstands the shifts; no decision follows from it at this cut.")
 
 
 class TippingReading:

@@ -42,7 +42,7 @@ def multiplicity_by_look(section: Section, results: Mapping[str, Any], number_fo
         labels={"id": "Hypothesis", "analysis": "Analysis", "weight": "Weight", "p": "Nominal p-value",
                 "local_alpha": "Alpha held", "boundary_z": "Boundary |z|", "boundary_p": "Boundary p-value",
                 "crossed_alone": "Crosses at its own initial alpha", "crossed_adjusted": decision},
-        kinds={"p": "p_exact", "local_alpha": "general", "boundary_z": "general", "boundary_p": "general",
+        kinds={"p": "p_exact", "local_alpha": "alpha", "boundary_z": "boundary_z", "boundary_p": "boundary_p",
                "crossed_alone": "flag", "crossed_adjusted": "flag", "weight": "general"}))
     if facts.get("planned_look") and "crossed_adjusted" in columns:
         section.paragraph(_conclusion(rows, columns, final, f"{record.get('alpha', 0.05):g}"))
@@ -52,8 +52,8 @@ def multiplicity_by_look(section: Section, results: Mapping[str, Any], number_fo
             labels={"look": "Look", "information_fraction": "Information fraction",
                     "cumulative_alpha": "Alpha spent so far", "boundary_z": "Boundary |z|",
                     "boundary_p": "Boundary p-value"},
-            kinds={"look": "count", "information_fraction": "general", "cumulative_alpha": "general",
-                   "boundary_z": "general", "boundary_p": "general"}))
+            kinds={"look": "count", "information_fraction": "fraction", "cumulative_alpha": "boundary_p",
+                   "boundary_z": "boundary_z", "boundary_p": "boundary_p"}))
 
 
 def _look_sentence(record: Mapping[str, Any], facts: Mapping[str, Any]) -> str:

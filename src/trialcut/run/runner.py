@@ -95,7 +95,7 @@ def _run_endpoint(plan, cut, endpoint, context, timer, run_warnings) -> dict[str
     primary_flow = frame_of(flows[0]["table"])
     entry: dict[str, Any] = {
         "id": endpoint.id, "label": endpoint.label, "analysed": endpoint.analysed,
-        "primary_visit": endpoint.primary_visit, "decimals": endpoint.decimals,
+        "primary_visit": endpoint.primary_visit, "decimals": endpoint.decimals, "better": endpoint.better,
         "population": primary_population,
         "descriptive": table(flow.with_not_yet_due(_with_baseline_rows(
                                  describe_by_arm_visit(observed.frame, columns=tuple(columns), **roles),

@@ -1,0 +1,153 @@
+"""What a reviewer stopped at when reading the demo's interim and final reports (helper R's pass).
+
+Each test renders a piece of the report from the invented LVT-201 rendering fixture
+(tests/report/fixtures.py) and checks what a reader sees: counts that reconcile, marks that
+keep categories apart, decimals that agree between a sentence and its table, and no decision
+wording at an interim look.  The arithmetic checked (due = observed + missing; in the fit +
+left out + not yet due = population) is the participant-flow identity of issue 8 (common
+practice in a CONSORT-style flow: every participant is counted once).
+"""
+from __future__ import annotations
+
+import copy
+
+import pytest
+
+from trialcut.report.blocks import Section
+from trialcut.report.compare import _decisions_section, compare_decisions
+from trialcut.report.context import EndpointContext
+from trialcut.report.formatting import NumberFormat
+from trialcut.report.sections_analysis import (NOT_DUE_MARK, _marks, _model_fit_facts, interim_level_caution,
+                                               missing_data)
+from trialcut.report.sections_sequential import multiplicity_by_look
+
+
+@pytest.fixture(scope="module")
+def results(report_fixtures):
+    return report_fixtures.build_results()
+
+
+def _context(results, **endpoint_changes):
+    endpoint = {**results["endpoints"][0], **endpoint_changes}
+    return EndpointContext(results, endpoint, NumberFormat.from_results(results))
+
+
+def _texts(table):
+    return [[text for text, _ in row] for row in table.body()]
+
+
+# --------------------------------------------------------------------------- favours direction
+def test_plan_key_better_sets_the_favoured_side_whatever_the_label_says(results):
+    # The label says nothing about direction; the plan's key decides.
+    plain = "Change from baseline in the example score"
+    assert _context(results, label=plain, better="lower").favours_words() == ("favours the active arm",
+                                                                             "favours Placebo")
+    assert _context(results, label=plain, better="higher").favours_words() == ("favours Placebo",
+                                                                              "favours the active arm")
+    # The key wins over a label that says the opposite.
+    assert _context(results, label="Score (higher is worse)", better="higher").better == "higher"
+
+
+def test_without_the_key_the_label_is_read_and_else_no_direction_is_claimed(results):
+    assert _context(results, label="Score (higher is worse)", better=None).better == "lower"
+    assert _context(results, label="Score (0-60)", better=None).favours_words() is None
+
+
+# --------------------------------------------------------------------------- missing patterns
+def test_a_visit_not_yet_due_keeps_its_own_mark_in_the_pattern_table():
+    # Stored X/./- (used, missing or set aside, not yet due): two different patterns must not print alike.
+    assert _marks("XXX.") != _marks("XXX-")
+    assert _marks("XX--") == "■■" + NOT_DUE_MARK * 2
+    assert _marks("----").count(NOT_DUE_MARK) == 4
+
+
+def _section_tables(section: Section):
+    found = [b.content for b in section.blocks if b.kind == "table"]
+    for child in section.subsections:
+        found += _section_tables(child)
+    return found
+
+
+def _paragraphs(section: Section):
+    return [b.content for b in section.blocks if b.kind == "paragraph"]
+
+
+def test_missing_value_table_says_observed_includes_set_aside_so_due_adds_up(results):
+    section = Section("missing", "Missing data")
+    missing_data(section, _context(results))
+    table = next(t for t in _section_tables(section) if t.title.startswith("Missing values of the primary analysis"))
+    labels = [c.label for c in table.header()]
+    assert any("set aside included" in label for label in labels)
+    assert any("Due = observed + missing" in note for note in table.footnotes)
+
+
+# --------------------------------------------------------------------------- fit counts reconcile
+def test_fit_table_counts_add_up_to_the_population_with_the_participants_not_yet_due(results):
+    analysis = copy.deepcopy(results["endpoints"][0]["analyses"][0])
+    analysis["fit"] = {**analysis.get("fit", {}), "n_subjects": 232, "n_subjects_excluded": 2}
+    analysis["left_out"] = {"title": "left out", "columns": ["participant", "arm", "reason"],
+                            "data": [["P1", "Placebo", "every observed value set aside by the strategy"],
+                                     ["P2", "Placebo", "no value at any due visit"],
+                                     *[[f"Q{i}", "Placebo", "no visit due yet"] for i in range(23)]]}
+    table = _model_fit_facts(_context(results), analysis["fit"], analysis)
+    facts = {row[0]: row[1] for row in _texts(table)}
+    assert facts["Participants in the fit"] == "232"
+    assert facts["Participants with a visit due but no value used (left out)"] == "2"
+    assert facts["Participants with no visit due yet (not in the fit)"] == "23"
+    assert 232 + 2 + 23 == 257   # the population of the flow table this mirrors
+
+
+# --------------------------------------------------------------------------- interim wording
+def _sequential(look: int, looks: int = 2) -> dict:
+    return {
+        "method": "holm", "alpha": 0.05,
+        "sequential": {"cut": "interim", "looks": looks, "look": look, "planned_look": True,
+                       "spending": "obrien_fleming_type", "information_reached": 0.49333,
+                       "information_basis": "participants due", "fractions_used": [0.49333],
+                       "boundaries": {"title": "Boundaries", "columns": ["look", "information_fraction",
+                                                                         "cumulative_alpha", "boundary_z", "boundary_p"],
+                                      "data": [[1, 0.49333, 0.0052631, 2.79047, 0.0052631]]}},
+        "hypotheses": {"title": "Group-sequential tests", "columns": [
+            "id", "analysis", "arm", "visit", "weight", "p", "tested", "local_alpha", "boundary_z", "boundary_p",
+            "crossed_alone", "crossed_adjusted"], "data": [
+            ["h1", "mmrm_primary", "Lorvatide 20 mg", "Week 12", 0.5, 1.33e-5, True, 0.025, 3.19105, 0.0014170,
+             True, True],
+            ["h2", "mmrm_primary", "Lorvatide 10 mg", "Week 12", 0.5, 0.011, True, 0.05, 2.79047, 0.0052631,
+             False, False]]},
+    }
+
+
+def test_group_sequential_columns_keep_one_number_of_decimals_each(results):
+    section = Section("multiplicity", "Multiple comparisons")
+    multiplicity_by_look(section, {"multiplicity": _sequential(1)}, NumberFormat.from_results(results), {})
+    tables = _section_tables(section)
+    tests = _texts(tables[0])
+    header = [c.label for c in tables[0].header()]
+    z = [row[header.index("Boundary |z|")] for row in tests]
+    held = [row[header.index("Alpha held")] for row in tests]
+    assert z == ["3.191", "2.790"] and held == ["0.025", "0.050"]
+    # The boundaries table gives the fraction as the sentence does (0.493), and p as "p ≤ 0.00526".
+    boundaries = _texts(tables[1])[0]
+    assert "0.493" in boundaries and "0.00526" in boundaries
+    sentence = next(text for text in _paragraphs(section) if "Interim look" in text)
+    assert "0.493" in sentence and "2.790" in sentence and "0.00526" in sentence
+
+
+def test_comparison_never_calls_an_interim_crossing_a_rejection(results):
+    final = _sequential(2)
+    final["sequential"] = {**final["sequential"], "cut": "final"}
+    record = compare_decisions({"multiplicity": _sequential(1)}, {"multiplicity": final})
+    assert record["interim_a"] and not record["interim_b"]
+    section = _decisions_section(record, NumberFormat.from_results(results))
+    table = _section_tables(section)[0]
+    labels = [c.label for c in table.header()]
+    assert "Boundary crossed (interim) A" in labels and "Rejected A" not in labels and "Rejected B" in labels
+    # A p-value is readable against its boundary: never '<0.001' beside a boundary of 0.001.
+    first = dict(zip(labels, _texts(table)[0]))
+    assert first["p-value A"] == "1.33 × 10⁻⁵" and first["Boundary p-value A"] == "0.00142"
+
+
+def test_tipping_point_at_an_interim_look_says_its_level_is_nominal():
+    assert "no decision follows" in interim_level_caution({"multiplicity": _sequential(1)}, 0.05)
+    assert interim_level_caution({"multiplicity": _sequential(2)}, 0.05) == ""
+    assert interim_level_caution({"multiplicity": {"method": "holm"}}, 0.05) == ""
