@@ -153,7 +153,8 @@ def test_sensitivity_analyses_are_named_by_id(base_text, write_plan):
      "estimands[primary].intercurrent_events[treatment_discontinuation].strategy", "not supported yet"),
     ("strategy: hypothetical", "strategy: composite",
      "estimands[primary].intercurrent_events[treatment_discontinuation].strategy", "composite_value"),
-    ("analysed: change", "analysed: change\n    type: binary", "endpoints[fbs_change].type", "reserved"),
+    ("analysed: change", "analysed: change\n    exposure: EXPWK", "endpoints[fbs_change].exposure",
+     "'exposure' is only for count endpoints"),
 ])
 def test_rules_across_fields_point_at_the_field(base_text, write_plan, old, new, field, fragment):
     text = replace_once(base_text, old, new)

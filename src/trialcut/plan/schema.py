@@ -471,8 +471,56 @@ class TippingPointAnalysis(_AnalysisBase):
     options: TippingPointOptions
 
 
+class GEEOptions(Strict):
+    """Generalized estimating equations over the visits (binary or count endpoints)."""
+
+    covariates: tuple[str, ...] = ()
+    correlation: Literal["independence", "exchangeable", "ar1", "unstructured"] = "exchangeable"
+    family: Literal["binomial", "poisson", "negative_binomial"] | None = Field(default=None, description=(
+        "Leave out: binomial for a binary endpoint, negative_binomial for a count endpoint."))
+    effect: Literal["risk_difference", "risk_ratio", "odds_ratio", "rate_ratio", "rate_difference"] | None = Field(
+        default=None, description="Leave out: risk_difference (binary) or rate_ratio (count).")
+    small_sample: Literal["mancl_derouen"] | None = Field(default=None, description=(
+        "mancl_derouen: the bias-reduced sandwich variance of Mancl & DeRouen (2001)."))
+    confidence_level: float = Field(default=0.95, gt=0, lt=1)
+
+
+class RateOptions(Strict):
+    """Events over the whole period per participant, exposure time as offset (count endpoints)."""
+
+    covariates: tuple[str, ...] = ()
+    family: Literal["negative_binomial", "poisson"] = "negative_binomial"
+    effect: Literal["rate_ratio", "rate_difference"] = "rate_ratio"
+    confidence_level: float = Field(default=0.95, gt=0, lt=1)
+
+
+class ProportionsOptions(Strict):
+    """Responders at one visit or at each visit: stratified and covariate-adjusted comparisons."""
+
+    visits: tuple[str, ...] | Literal["all", "primary"] = "primary"
+    strata: tuple[str, ...] = ()
+    covariates: tuple[str, ...] = ()
+    confidence_level: float = Field(default=0.95, gt=0, lt=1)
+
+
+class GEEAnalysis(_AnalysisBase):
+    method: Literal["gee"]
+    options: GEEOptions = GEEOptions()
+
+
+class RateAnalysis(_AnalysisBase):
+    method: Literal["rate"]
+    options: RateOptions = RateOptions()
+
+
+class ProportionsAnalysis(_AnalysisBase):
+    method: Literal["proportions"]
+    options: ProportionsOptions = ProportionsOptions()
+
+
 Analysis = Annotated[
-    Union[MMRMAnalysis, AncovaAnalysis, ImputationAnalysis, TippingPointAnalysis],
+    Union[MMRMAnalysis, AncovaAnalysis, ImputationAnalysis, TippingPointAnalysis, GEEAnalysis, RateAnalysis,
+          ProportionsAnalysis],
     Field(discriminator="method"),
 ]
 # Method name -> the plan model of its analysis.  The runner's registry must carry the
@@ -482,7 +530,44 @@ ANALYSIS_METHODS: dict[str, type[_AnalysisBase]] = {
     "ancova": AncovaAnalysis,
     "multiple_imputation": ImputationAnalysis,
     "tipping_point": TippingPointAnalysis,
+    "gee": GEEAnalysis,
+    "rate": RateAnalysis,
+    "proportions": ProportionsAnalysis,
 }
+# Which endpoint types each method analyses.
+METHOD_ENDPOINT_TYPES: dict[str, tuple[str, ...]] = {
+    "mmrm": ("continuous",), "ancova": ("continuous",), "multiple_imputation": ("continuous",),
+    "tipping_point": ("continuous",), "gee": ("binary", "count"), "rate": ("count",), "proportions": ("binary",),
+}
+
+
+class ResponseRule(Strict):
+    """How a binary endpoint's response (1) or non-response (0) is found at each visit."""
+
+    flag_column: str | None = Field(default=None, description=(
+        "A column of the data holding the response itself: Y/N or 1/0."))
+    threshold: float | None = Field(default=None, description=(
+        "Response when the analysed value (the change or the value, as 'analysed' says) reaches this."))
+    direction: Literal["at_most", "at_least"] | None = Field(default=None, description=(
+        "at_most: a value at or below the threshold is a response (lower is better); at_least: at or above."))
+    missing: Literal["non_response", "leave_out"] = Field(description=(
+        "A due visit without a value: counted as non-response, or left out of the analysis. An intercurrent "
+        "event under the composite strategy always counts as non-response."))
+
+    @model_validator(mode="after")
+    def _one_source(self) -> "ResponseRule":
+        _raise_issues(_response_issues(self))
+        return self
+
+
+def _response_issues(rule: ResponseRule) -> Iterator[RuleIssue]:
+    if (rule.flag_column is None) == (rule.threshold is None):
+        yield RuleIssue((), "a response is read from flag_column or derived by threshold, exactly one of them",
+                        expected="flag_column, or threshold with direction", got="both" if rule.threshold is not None
+                        else "neither", code="plan.response_source")
+    if rule.threshold is not None and rule.direction is None:
+        yield RuleIssue(("direction",), "a threshold needs its direction", expected="at_most or at_least",
+                        got="none", hint="at_most when lower values are better", code="plan.response_direction")
 
 
 class EndpointAnalyses(Strict):
@@ -502,6 +587,9 @@ class Endpoint(Strict):
     better: Literal["lower", "higher"] | None = Field(default=None, description=(
         "Which values are better for the participant; sets which side of a difference favours the "
         "active arm in figures and text. Left out, the report reads it from the label ('higher is worse')."))
+    response: ResponseRule | None = Field(default=None, description="Binary endpoints: how a response is found.")
+    exposure: str | None = Field(default=None, description=(
+        "Count endpoints: the column with each record's time at risk (the count is events in that time)."))
     analyses: EndpointAnalyses
 
     @model_validator(mode="after")
@@ -511,9 +599,27 @@ class Endpoint(Strict):
 
 
 def _endpoint_issues(endpoint: Endpoint) -> Iterator[RuleIssue]:
-    if endpoint.type != "continuous":
-        yield RuleIssue(("type",), f"endpoint type {endpoint.type!r} is reserved and not supported yet",
-                        expected="continuous", got=repr(endpoint.type), code="plan.endpoint_type")
+    if endpoint.type == "binary" and endpoint.response is None:
+        yield RuleIssue(("response",), "a binary endpoint says how a response is found",
+                        expected="response: {threshold, direction, missing} or {flag_column, missing}", got="none",
+                        code="plan.response_missing")
+    if endpoint.type != "binary" and endpoint.response is not None:
+        yield RuleIssue(("response",), "'response' is only for binary endpoints", expected="type: binary",
+                        got=f"type: {endpoint.type}", code="plan.response_type")
+    if endpoint.type != "count" and endpoint.exposure is not None:
+        yield RuleIssue(("exposure",), "'exposure' is only for count endpoints", expected="type: count",
+                        got=f"type: {endpoint.type}", code="plan.exposure_type")
+    if endpoint.type == "count" and endpoint.analysed != "value":
+        yield RuleIssue(("analysed",), "a count endpoint analyses the counts themselves", expected="value",
+                        got=repr(endpoint.analysed), code="plan.count_analysed")
+    analyses = [("primary",), *[("sensitivity", i) for i in range(len(endpoint.analyses.sensitivity))]]
+    for path, analysis in zip(analyses, [endpoint.analyses.primary, *endpoint.analyses.sensitivity]):
+        allowed = METHOD_ENDPOINT_TYPES.get(analysis.method, ())
+        if endpoint.type not in allowed:
+            fitting = sorted(m for m, types in METHOD_ENDPOINT_TYPES.items() if endpoint.type in types)
+            yield RuleIssue(("analyses", *path, "method"), f"method {analysis.method!r} does not analyse "
+                            f"{endpoint.type} endpoints", expected=_one_of(fitting), got=repr(analysis.method),
+                            code="plan.method_endpoint_type")
     if endpoint.range is not None and endpoint.range[0] >= endpoint.range[1]:
         yield RuleIssue(("range",), "range must be [low, high] with low < high",
                         expected="low < high", got=f"[{endpoint.range[0]:g}, {endpoint.range[1]:g}]",

@@ -15,6 +15,7 @@ from typing import Any, Protocol
 import numpy as np
 
 from trialcut.errors import FitError, Problem
+from trialcut.run import methods_responder
 from trialcut.run.context import RunContext
 from trialcut.run.tables import plain, table
 
@@ -148,4 +149,8 @@ METHODS: dict[str, AnalysisMethod] = {
     "ancova": _failing_on_numbers(run_ancova),
     "multiple_imputation": _failing_on_numbers(run_multiple_imputation),
     "tipping_point": _failing_on_numbers(run_tipping_point),
+    # Binary and count endpoints (trialcut.run.methods_responder).
+    "gee": _failing_on_numbers(methods_responder.run_gee),
+    "rate": _failing_on_numbers(methods_responder.run_rate),
+    "proportions": _failing_on_numbers(methods_responder.run_proportions),
 }

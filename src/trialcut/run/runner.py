@@ -21,6 +21,7 @@ from trialcut.run.assumption_rules import check_reasons
 from trialcut.run.context import RunContext
 from trialcut.run.methods import METHODS
 from trialcut.data import flow
+from trialcut.data.derive_responder import derive_outcome
 from trialcut.run.tables import frame_of, plain, table
 
 RESULTS_FORMAT = 1
@@ -164,6 +165,7 @@ def _run_analysis(plan, cut, endpoint, analysis, role, context, run_warnings) ->
         "status": "ok", "error": None, "tables": {}, "fit": {}, "diagnostics": {}, "warnings": [],
     }
     data = cut.analysis_data(endpoint.id, estimand_id=analysis.estimand, population_id=population)
+    data = derive_outcome(endpoint, data, source=str(cut.manifest.get("file", "the data cut")))  # binary, count
     entry["left_out"] = table(flow.left_out_table(data, _event_labels(plan)),
                               "Participants of the population without any value used, by reason")
     with warnings.catch_warnings(record=True) as caught:

@@ -295,7 +295,13 @@ def _gee(y, matrix, groups, time, family, dispersion, correlation, offset_values
                    cov_struct=_working(correlation), offset=offset_values)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        result = model.fit(maxiter=100, cov_type=cov_type, start_params=start)
+        try:
+            result = model.fit(maxiter=100, cov_type=cov_type, start_params=start)
+        except (ValueError, np.linalg.LinAlgError) as error:
+            # statsmodels stops this way when a working correlation cannot be estimated.
+            raise FitError(f"fit_gee: statsmodels could not solve the estimating equations ({error})",
+                           [Problem("gee.not_solved", str(error), field=correlation,
+                                    hint="try correlation='exchangeable' or 'independence'")]) from error
     # statsmodels says so by a ConvergenceWarning when the parameter updates never settle.
     result.converged = not any(issubclass(w.category, ConvergenceWarning) for w in caught)
     return result

@@ -130,7 +130,12 @@ def _fit(y, design, log_exposure, family):
         notes = (NO_OVERDISPERSION,)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        result = sm.GLM(y, design, family=sm.families.Poisson(), offset=log_exposure).fit(cov_type="HC0")
+        try:
+            result = sm.GLM(y, design, family=sm.families.Poisson(), offset=log_exposure).fit(cov_type="HC0")
+        except (ValueError, np.linalg.LinAlgError) as error:
+            raise FitError(f"fit_rate: statsmodels could not fit the Poisson model ({error})",
+                           [Problem("rate.not_solved", str(error), hint="look for an arm without any events")]
+                           ) from error
     dispersion = float(result.pearson_chi2 / result.df_resid)
     return np.asarray(result.params), np.asarray(result.cov_params()), dispersion, None, not _warned(caught), notes
 
