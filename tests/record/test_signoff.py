@@ -65,3 +65,17 @@ def test_an_unsigned_lock_is_a_rehearsal_and_a_foreign_keyring_fails_verify(tmp_
     assert main(["verify", "--out", project["out"], "--keyring", str(foreign)]) == 1
     error = capsys.readouterr().err
     assert "not in the keyring" in error and "stat" in error
+
+
+def test_the_report_says_whether_the_lock_was_signed():
+    from trialcut.report.sections_front import lock_signature
+
+    def results(signed_by):
+        entry = {"version": "1.0", "sha256": "a" * 64, "signed_by": signed_by}
+        return {"run": {"unlocked": False}, "plan": {"lock_status": "locked", "lock": {
+            "sha256": "a" * 64, "reason": "final", "amendments": [entry]}}}
+
+    assert lock_signature(results(None)).startswith("unsigned")
+    signed = lock_signature(results({"key": "a.smith", "fingerprint": "0123456789abcdef",
+                                     "signed_utc": "2026-12-02T10:00:00Z"}))
+    assert "signed by a.smith" in signed and "0123456789abcdef" in signed

@@ -47,6 +47,20 @@ def lock_reason(results: Mapping[str, Any]) -> str | None:
     return None if lock is None else (lock.get("reason") or lock.get("why"))
 
 
+def lock_signature(results: Mapping[str, Any]) -> str | None:
+    """Who signed the latest lock record, as the record claims; 'trialcut verify' checks it."""
+    plan, run = results.get("plan") or {}, results.get("run") or {}
+    lock = _lock(plan, run)
+    if lock is None:
+        return None
+    chain = lock.get("amendments") or []
+    signed = chain[-1].get("signed_by") if chain and isinstance(chain[-1], Mapping) else None
+    if not isinstance(signed, Mapping):
+        return "unsigned (a rehearsal lock: fine for dry runs, not for a run that counts)"
+    return (f"signed by {signed.get('key')} (key fingerprint {signed.get('fingerprint')}) at "
+            f"{signed.get('signed_utc')}; 'trialcut verify --keyring FILE' checks it against the keyring")
+
+
 def banners(results: Mapping[str, Any]) -> list[str]:
     plan, run = results.get("plan") or {}, results.get("run") or {}
     out = []
@@ -107,6 +121,7 @@ def run_record(section: Section, results: Mapping[str, Any], number_format: Numb
         ("Plan hash (SHA-256)", plan.get("sha256"), "text"),
         ("Lock status", lock_status(results), "text"),
         ("Reason for the lock", lock_reason(results), "text"),
+        ("Signature on the lock", lock_signature(results), "text"),
         ("Data cut", run.get("cut"), "text"),
         ("Data file", data.get("file"), "text"),
         ("Data format", data.get("format"), "text"),
