@@ -151,3 +151,18 @@ def test_tipping_point_at_an_interim_look_says_its_level_is_nominal():
     assert "no decision follows" in interim_level_caution({"multiplicity": _sequential(1)}, 0.05)
     assert interim_level_caution({"multiplicity": _sequential(2)}, 0.05) == ""
     assert interim_level_caution({"multiplicity": {"method": "holm"}}, 0.05) == ""
+
+
+# --------------------------------------------------------------------------- layout
+def test_a_short_table_is_never_split_across_pages(results):
+    # The demo comparison left one row of a two-row table alone on its last page (WeasyPrint honours
+    # break-inside: avoid on blocks, TOOLCHAIN.md); the class must reach every short table.
+    from pathlib import Path
+
+    from trialcut.report.document import build_document
+    from trialcut.report.render import render_html
+
+    html = render_html(build_document(results, draw=False))
+    assert 'class="table-block short"' in html
+    css = (Path(__file__).resolve().parents[2] / "templates" / "report.css").read_text(encoding="utf-8")
+    assert ".table-block.short { break-inside: avoid; }" in css
