@@ -110,7 +110,8 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("--out", type=Path, default=Path("outputs"), help="output root (default: outputs)")
     run.add_argument("--unlocked", action="store_true", help="rehearse with a plan that is not locked")
     run.add_argument("--dummy-arms", type=_whole_number(0), metavar="SEED",
-                     help="blinded dry run: permute arm codes with SEED (a whole number, 0 or more)")
+                     help="blinded dry run: dummy arms (Arm A, Arm B, ...) allocated at random from SEED, "
+                          "a whole number, 0 or more; the treatment column is not read")
     run.add_argument("--cut-off", type=_iso_date, metavar="DATE",
                      help="database cut-off date, YYYY-MM-DD (default: the latest date in the data)")
     run.add_argument("--workers", type=_whole_number(1), default=1, help="local worker processes for imputation work")
