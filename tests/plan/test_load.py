@@ -2,6 +2,8 @@
 from __future__ import annotations
 
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from trialcut.errors import PlanError
 from trialcut.plan.load import load_plan
@@ -352,3 +354,24 @@ def test_standard_explicit_tags_still_load(base_text, write_plan):
     # '!!str' on a value that would read as a number is the standard way to quote it (YAML 1.1).
     text = replace_once(base_text, 'version: "1.0"', "version: !!str 1.0")
     assert load_plan(write_plan(text)).plan == load_plan(BASE_PLAN).plan
+
+
+# --------------------------------------------------------------------------- issue 10: never exit 3
+_YAML_PIECES = st.sampled_from(["study:", "  id: X", "- a", "!!python/object:os.system", "!tag", "&a", "*a",
+                                "<<: *a", "{", "[", "]", "}", ": ", "\t", "---", "...", "%YAML 1.1", "\u00e9",
+                                "format: 2", "visits:", "  - {label: W, day: 1}", "'", '"', "#", "\n", "  "])
+
+
+@settings(max_examples=80, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(st.one_of(st.binary(max_size=300), st.lists(_YAML_PIECES, max_size=40).map(lambda p: "".join(p).encode())))
+def test_check_and_lock_on_any_bytes_never_exit_3(tmp_path_factory, capsys, content):
+    from trialcut.cli import main
+
+    path = tmp_path_factory.mktemp("plan") / "plan.yaml"
+    path.write_bytes(content)
+    for argv in (["check", str(path)], ["lock", str(path), "--by", "tester", "--reason", "fuzz"]):
+        capsys.readouterr()
+        status = main(argv)
+        err = capsys.readouterr().err
+        assert status == 2, f"{argv[0]}: exit {status} on {content[:80]!r}: {err}"
+        assert str(path) in err and "Traceback" not in err
