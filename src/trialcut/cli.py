@@ -48,8 +48,9 @@ def _iso_date(text: str) -> date:
         raise argparse.ArgumentTypeError(f"expected a date as YYYY-MM-DD, got {text!r}") from None
 
 
-def _whole_number(least: int):
-    """An argparse type: a whole number of at least ``least`` (numpy seeds cannot be negative)."""
+def _whole_number(least: int, most: int | None = None):
+    """An argparse type: a whole number of at least ``least`` (numpy seeds cannot be negative)
+    and at most ``most``."""
     def parse(text: str) -> int:
         try:
             value = int(text)
@@ -57,10 +58,15 @@ def _whole_number(least: int):
             raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
         if value < least:
             raise argparse.ArgumentTypeError(f"expected a whole number of at least {least}, got {value}")
+        if most is not None and value > most:
+            raise argparse.ArgumentTypeError(f"expected a whole number of at most {most}, got {value}")
         return value
 
     parse.__name__ = "whole number"
     return parse
+
+
+MAX_WORKERS = 256
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -114,7 +120,9 @@ def build_parser() -> argparse.ArgumentParser:
                           "a whole number, 0 or more; the treatment column is not read")
     run.add_argument("--cut-off", type=_iso_date, metavar="DATE",
                      help="database cut-off date, YYYY-MM-DD (default: the latest date in the data)")
-    run.add_argument("--workers", type=_whole_number(1), default=1, help="local worker processes for imputation work")
+    # More processes than this machine could ever start would fail deep inside the pool.
+    run.add_argument("--workers", type=_whole_number(1, MAX_WORKERS), default=1,
+                     help=f"local worker processes for imputation work (1 to {MAX_WORKERS})")
     run.add_argument("--scheduler", metavar="ADDRESS",
                      help="Dask scheduler address, or 'local' for a local cluster")
 

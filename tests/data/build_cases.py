@@ -437,6 +437,8 @@ def build_issue10() -> None:
           "of at least 0, got -5", argv=RUN + ["--dummy-arms", "-5"])
     _case("run_workers_zero", "Zero worker processes.", "--workers: expected a whole number of at least 1",
           argv=RUN + ["--workers", "0"])
+    _case("run_workers_too_many", "More worker processes than a machine could start.",
+          "--workers: expected a whole number of at most 256, got 100000", argv=RUN + ["--workers", "100000"])
     _case("run_scheduler_malformed", "A scheduler address that is not HOST:PORT.",
           "the scheduler address 'tcp://nowhere' is not valid", argv=absent_data + ["--scheduler", "tcp://nowhere"])
     _case("run_scheduler_not_listening", "Nothing listens at the scheduler address (port 1 of this machine): "
