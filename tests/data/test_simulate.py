@@ -25,7 +25,10 @@ SEEDS = (1, 2, 3)
 
 @pytest.fixture(scope="module")
 def cuts():
-    return {seed: demo_cuts(seed) for seed in SEEDS}
+    # The fatigue score's records; the demo's event counts (CRASH, EXPWK) are checked in
+    # tests/data/test_simulate_events.py.
+    return {seed: {label: frame[frame["PARAMCD"] == "FBS"][COLUMNS].reset_index(drop=True)
+                   for label, frame in demo_cuts(seed).items()} for seed in SEEDS}
 
 
 def test_deterministic_for_a_seed():

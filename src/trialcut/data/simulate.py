@@ -21,6 +21,8 @@ import datetime as dt
 import numpy as np
 import pandas as pd
 
+from trialcut.data import simulate_events
+
 STUDY_ID = "LVT-201"
 PARAMCD = "FBS"
 PARAM = "Fatigue Burden Score"
@@ -43,7 +45,7 @@ ERROR_SD, PARTICIPANT_SD, CORRELATION_DAYS = 4.0, 3.0, 40.0
 
 
 def simulate_trial(seed: int = 20240101, n_participants: int = 300, enrolment_days: int = 240,
-                   cut_day: float | None = None) -> pd.DataFrame:
+                   cut_day: float | None = None, events: bool = False) -> pd.DataFrame:
     """One long record per participant and visit (baseline included), ADaM-like column names.
 
     ``cut_day``: calendar day (day 0 = first randomisation) of a data cut; records after it
@@ -53,6 +55,8 @@ def simulate_trial(seed: int = 20240101, n_participants: int = 300, enrolment_da
     people = _participants(rng, n_participants, enrolment_days)
     records = [_records_of(rng, person) for person in people]
     frame = pd.DataFrame([r for rs in records for r in rs], columns=COLUMNS + ["__calendar"])
+    if events:   # the demo's count endpoint (trialcut.data.simulate_events), from its own random stream
+        frame = simulate_events.with_event_records(frame, seed)
     if cut_day is not None:
         frame = _apply_cut(frame, people, cut_day)
     return frame.drop(columns="__calendar").reset_index(drop=True)
@@ -67,8 +71,8 @@ def demo_cuts(seed: int = 20240101, n_participants: int = 300) -> dict[str, pd.D
     """``interim`` at about 60 % of the calendar follow-up, and ``final``, from one trial."""
     enrolment_days = 240
     total = enrolment_days + SCHEDULE[-1][2] + SCHEDULE[-1][3]
-    return {"interim": simulate_trial(seed, n_participants, enrolment_days, cut_day=_interim_day(total)),
-            "final": simulate_trial(seed, n_participants, enrolment_days)}
+    return {"interim": simulate_trial(seed, n_participants, enrolment_days, cut_day=_interim_day(total), events=True),
+            "final": simulate_trial(seed, n_participants, enrolment_days, events=True)}
 
 
 def demo_cut_offs(enrolment_days: int = 240) -> dict[str, dt.date]:
