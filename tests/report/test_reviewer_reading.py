@@ -16,6 +16,7 @@ import pytest
 from trialcut.report.blocks import Section
 from trialcut.report.compare import _decisions_section, compare_decisions
 from trialcut.report.context import EndpointContext
+from trialcut.report.document import build_document
 from trialcut.report.formatting import NumberFormat
 from trialcut.report.sections_analysis import (NOT_DUE_MARK, _marks, _model_fit_facts, interim_level_caution,
                                                missing_data)
@@ -166,3 +167,35 @@ def test_a_short_table_is_never_split_across_pages(results):
     assert 'class="table-block short"' in html
     css = (Path(__file__).resolve().parents[2] / "templates" / "report.css").read_text(encoding="utf-8")
     assert ".table-block.short { break-inside: avoid; }" in css
+
+
+# --------------------------------------------------------------------------- all-analyses table
+def test_all_analyses_table_names_every_population_its_rows_use(results):
+    # In the demo a per-protocol row sat under a title and header naming the full analysis set only.
+    from trialcut.report.sections_analysis import sensitivity
+
+    changed = copy.deepcopy(results)
+    endpoint = changed["endpoints"][0]
+    endpoint["analyses"][1]["population"] = "safety"
+    section = Section("sensitivity", "Sensitivity")
+    sensitivity(section, _context(changed), endpoint["analyses"][0], endpoint["analyses"][1:])
+    table = next(t for t in _section_tables(section) if "every analysis" in t.title)
+    assert "full analysis set or safety set" in table.title
+    assert "Full analysis set: Placebo N =" in table.counts and "Safety set: Placebo N = 60" in table.counts
+    # With one population the title names it alone.
+    section = Section("sensitivity", "Sensitivity")
+    sensitivity(section, _context(results), results["endpoints"][0]["analyses"][0],
+                results["endpoints"][0]["analyses"][1:])
+    table = next(t for t in _section_tables(section) if "every analysis" in t.title)
+    assert table.title.endswith("every analysis; full analysis set")
+
+
+def test_profile_figures_say_which_data_and_which_analysis_they_show(results):
+    # A figure pasted alone must say what it summarises: the observed data of a population, or one fit.
+    document = build_document(results, draw=False)
+    figures = {f.title: f for f in document.figures}
+    observed = next(f for title, f in figures.items() if title.startswith("Observed mean"))
+    assert "full analysis set" in observed.note and "as recorded" in observed.note
+    model = next(f for title, f in figures.items() if title.startswith("Model-estimated mean profile"))
+    primary = results["endpoints"][0]["analyses"][0]
+    assert (primary.get("label") or primary["id"]) in model.note

@@ -201,7 +201,10 @@ def _observed_means_figure(context: EndpointContext, rows: list[dict]) -> Figure
         f"Line chart of the observed mean of {context.label} with bars of one standard error, "
         f"for {len(context.arms)} arms at {len(context.visits)} visits.",
         lambda: draw.profile_chart(points, arms=context.arms, visits=context.visits,
-                                   visit_days=context.visit_days, y_label=context.y_label), context)
+                                   visit_days=context.visit_days, y_label=context.y_label), context,
+        note=f"Every value observed in the {_lower_first_word(context.population_label(context.population))}, "
+             "as recorded (values after an intercurrent event included, nothing imputed); n per arm and visit "
+             "as in the table of observed values. Standard error: SD/√n.")
 
 
 def _trajectories_figure(context: EndpointContext) -> FigureImage:
@@ -321,7 +324,7 @@ def primary_analysis(section: Section, context: EndpointContext, analysis: Mappi
     for name, source in tables.items():
         if name not in known and not name.startswith(("covariance", "correlation")):
             section.table(from_results_table(source, slug=f"{context.slug}_{name}", number_format=number_format))
-    section.figure(_model_profile_figure(context, tables.get("marginal_means"), level))
+    section.figure(_model_profile_figure(context, tables.get("marginal_means"), level, analysis))
     section.figure(_residual_figure(context, analysis))
 
 
@@ -552,7 +555,8 @@ def _differences_table(context: EndpointContext, source, slug: str, title: str, 
     return context.standalone(table, analysis, notes=[*notes, _model_footnote(context, analysis)])
 
 
-def _model_profile_figure(context: EndpointContext, source, level: str) -> FigureImage | None:
+def _model_profile_figure(context: EndpointContext, source, level: str,
+                          analysis: Mapping[str, Any] | None = None) -> FigureImage | None:
     if not source:
         return None
     points = [{"arm": r.get("arm"), "visit": r.get("visit"), "centre": r.get("estimate"),
@@ -562,7 +566,9 @@ def _model_profile_figure(context: EndpointContext, source, level: str) -> Figur
         f"Line chart of model-estimated means of {context.label} with {level} confidence intervals "
         f"for {len(context.arms)} arms at {len(context.visits)} visits.",
         lambda: draw.profile_chart(points, arms=context.arms, visits=context.visits,
-                                   visit_days=context.visit_days, y_label=context.y_label), context)
+                                   visit_days=context.visit_days, y_label=context.y_label), context,
+        note=f"{context.title('Means from the model', analysis)}; the same numbers as the table of "
+             "model-estimated means.")
 
 
 def _residual_figure(context: EndpointContext, analysis) -> FigureImage:
@@ -604,13 +610,16 @@ def sensitivity(section: Section, context: EndpointContext, primary, others: Seq
         summary = from_results_table({"columns": list(columns), "data": [[r[c] for c in columns] for r in rows]},
                                      slug=f"{context.slug}_estimates_summary", number_format=context.number_format,
                                      wide=True,
-                                     title=context.title(f"Estimated difference from {context.reference} at "
-                                                         f"{context.primary_visit}, every analysis"),
+                                     title=_summary_title(context, [primary, *others]),
                                      labels=labels, intervals={f"{level} confidence interval": ("lower", "upper")})
-        section.table(context.standalone(summary, notes=[
+        summary = context.standalone(summary, notes=[
             f"Differences are each arm minus {context.reference}. {_levels_sentence([primary, *others])} "
             "Models and degrees of freedom: see each analysis' section; DF is each analysis' own "
-            "(Kenward–Roger, residual or Barnard–Rubin)."]))
+            "(Kenward–Roger, residual or Barnard–Rubin)."])
+        populations = _populations_of([primary, *others], context)
+        if len(populations) > 1:   # N per arm of every population the rows use, not only the primary's
+            summary = replace(summary, counts="  ".join(context.counts_line(p) + "." for p in populations))
+        section.table(summary)
         favours = context.favours_words()
         section.figure(_figure(
             "forest", f"Estimated difference from {context.reference} at {context.primary_visit} with {level} "
@@ -635,6 +644,25 @@ def sensitivity(section: Section, context: EndpointContext, primary, others: Seq
             mmrm_sensitivity(child, context, analysis)
         else:
             generic_analysis(child, context, analysis)
+
+
+def _populations_of(analyses: Sequence[Mapping[str, Any]], context: EndpointContext) -> list[str]:
+    found = []
+    for analysis in analyses:
+        population = analysis.get("population") or context.population
+        if population not in found:
+            found.append(population)
+    return found
+
+
+def _summary_title(context: EndpointContext, analyses: Sequence[Mapping[str, Any]]) -> str:
+    """The all-analyses title names every population its rows use (a per-protocol row under a title
+    saying 'full analysis set' is a number a reader cannot place)."""
+    what = f"Estimated difference from {context.reference} at {context.primary_visit}, every analysis"
+    populations = [_lower_first_word(context.population_label(p)) for p in _populations_of(analyses, context)]
+    if len(populations) <= 1:
+        return context.title(what)
+    return f"{what}; {', '.join(populations[:-1])} or {populations[-1]} (as each row states)"
 
 
 def _levels_sentence(analyses: Sequence[Mapping[str, Any]]) -> str:
