@@ -664,6 +664,9 @@ def command_demo(args) -> int:
     _print_chain_head(compared.row)
     comparison = {name: compared.folder / name for name in ("comparison.html", "comparison.pdf")}
     trust = approve_and_check_final(out, folders["final"], paths["final"])
+    from trialcut.commands_simulate import demo_simulation
+
+    simulation = demo_simulation(out, plan_path)
     console.print("\n[bold]Reports[/bold]")
     for label, folder in folders.items():
         console.print(f"  {label:8s} report:  {folder / 'report.html'}")
@@ -671,6 +674,7 @@ def command_demo(args) -> int:
         console.print(f"  {label:8s} results: {folder / 'results.json'}")
     console.print(f"  comparison:       {comparison.get('comparison.html')}")
     console.print(f"  comparison PDF:   {comparison.get('comparison.pdf')}")
+    console.print(f"  simulation:       {simulation}")
     console.print("\n[bold]Trust chain[/bold] (demo keys in " + str(out / "demo" / "keys") + ")")
     for line in trust:
         console.print(f"  {line}", markup=False)

@@ -138,3 +138,28 @@ def _record(args, loaded, scenarios, summary, outcomes, root_seed, seconds):
     key = work_key(loaded.canonical_hash, scenarios.canonical_hash, args.trials, root_seed, args.batch)
     shutil.rmtree(args.out / WORK_FOLDER / key, ignore_errors=True)   # recorded: the batches are no longer needed
     return recorded
+
+
+DEMO_TRIALS = 30   # per scenario: 90 trials, under a minute on the shared 2-core machine; enough to show the report
+
+
+def demo_simulation(out: Path, plan_path: Path) -> Path:
+    """The demo's small simulation of its plan under analysis_plans/demo_scenarios.yaml: the report's path."""
+    from trialcut.commands import _repo_file, console
+    from trialcut.plan.load import load_plan
+    from trialcut.plan.scenarios_load import load_scenarios
+
+    source = _repo_file("analysis_plans/demo_scenarios.yaml")
+    scenarios_path = plan_path.parent / source.name
+    scenarios_path.write_text(source.read_text(encoding="utf-8"), encoding="utf-8")
+    args = argparse.Namespace(plan=plan_path, scenarios=scenarios_path, trials=DEMO_TRIALS, out=out, workers=1,
+                              scheduler=None, batch=10, no_pdf=False, print_schema=False)
+    loaded = load_plan(plan_path)
+    scenarios = load_scenarios(scenarios_path, loaded.plan)
+    started = time.perf_counter()
+    console.print(f"  simulating {DEMO_TRIALS} trials of each of {len(scenarios.scenarios.scenarios)} scenarios "
+                  f"({scenarios_path.name}) to show the plan's operating characteristics")
+    summary, outcomes, root_seed = _simulate(args, loaded, scenarios, console)
+    recorded = _record(args, loaded, scenarios, summary, outcomes, root_seed, time.perf_counter() - started)
+    console.print(f"  simulated in {time.perf_counter() - started:.1f} s")
+    return Path(recorded.folder) / "simulation.html"

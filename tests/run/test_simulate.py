@@ -84,3 +84,14 @@ def test_summary_monte_carlo_errors_follow_their_definitions(tmp_path):
     assert row["empirical_se_mc_se"] == pytest.approx(estimates.std(ddof=1) / np.sqrt(2 * 7))
     coverage = row["coverage"]
     assert row["coverage_mc_se"] == pytest.approx(np.sqrt(coverage * (1 - coverage) / 8))
+
+
+def test_same_trials_on_a_dask_cluster(tmp_path):
+    pytest.importorskip("distributed")
+    from trialcut.run.executor import DaskExecutor
+
+    plan, scenarios = _scenarios(tmp_path, 8)
+    inline = simulate(batches(plan, scenarios, 4, 8, batch_size=4), InlineExecutor(), work_folder=tmp_path / "a")
+    with DaskExecutor(n_workers=2) as cluster:
+        distributed = simulate(batches(plan, scenarios, 4, 8, batch_size=1), cluster, work_folder=tmp_path / "b")
+    assert inline == distributed
