@@ -541,6 +541,17 @@ METHOD_ENDPOINT_TYPES: dict[str, tuple[str, ...]] = {
 }
 
 
+class Subgroup(Strict):
+    """A participant-level factor for subgroup analyses (e.g. sex, disease severity)."""
+
+    id: Identifier
+    label: str
+    column: str = Field(description="A column constant within each participant.")
+    levels: tuple[str, ...] = Field(min_length=2, description="The column's values to analyse, in display order.")
+    min_participants: int = Field(default=10, ge=2, description=(
+        "Fewer participants than this in any arm of a level: the level is reported, not fitted."))
+
+
 class ResponseRule(Strict):
     """How a binary endpoint's response (1) or non-response (0) is found at each visit."""
 
@@ -770,6 +781,9 @@ class AnalysisPlan(Strict):
     estimands: tuple[Estimand, ...] = Field(min_length=1)
     endpoints: tuple[Endpoint, ...] = Field(min_length=1)
     multiplicity: Multiplicity = Multiplicity()
+    subgroups: tuple[Subgroup, ...] = Field(default=(), description=(
+        "Factors whose levels get the primary analysis of every endpoint on their own, with a test of equal "
+        "effects across the levels (exploratory unless prespecified with control of error)."))
     report: Report = Report()
     sign_off: SignOff = SignOff()
     qc: QualityControl = QualityControl()

@@ -22,6 +22,7 @@ from trialcut.run.context import RunContext
 from trialcut.run.methods import METHODS
 from trialcut.data import flow
 from trialcut.data.derive_responder import derive_outcome
+from trialcut.run.subgroups import subgroup_results
 from trialcut.run.tables import frame_of, plain, table
 
 RESULTS_FORMAT = 1
@@ -114,6 +115,8 @@ def _run_endpoint(plan, cut, endpoint, context, timer, run_warnings) -> dict[str
     for role, analysis in analyses:
         with timer.time(f"analysis {analysis.id}"):
             entry["analyses"].append(_run_analysis(plan, cut, endpoint, analysis, role, context, run_warnings))
+    with timer.time(f"subgroups {endpoint.id}"):   # the plan's subgroup factors (trialcut.run.subgroups)
+        entry["subgroups"] = subgroup_results(plan, cut, endpoint, context, METHODS, primary_population)
     return entry
 
 
