@@ -199,3 +199,22 @@ def test_profile_figures_say_which_data_and_which_analysis_they_show(results):
     model = next(f for title, f in figures.items() if title.startswith("Model-estimated mean profile"))
     primary = results["endpoints"][0]["analyses"][0]
     assert (primary.get("label") or primary["id"]) in model.note
+
+
+def test_an_imputation_by_reason_is_not_footnoted_as_missing_at_random(results):
+    # The demo's by-reason analysis (jump to reference after an adverse event or lack of efficacy)
+    # carried the footnote "Imputation under missing at random".
+    from trialcut.report.sections_analysis import _model_footnote
+
+    analysis = {"method": "multiple_imputation", "options": {
+        "assumption": "mar", "imputations": 50, "covariates": ["BASE"],
+        "assumptions_by_reason": [
+            {"event": "stop", "reasons": ["Adverse event", "Lack of efficacy"], "assumption": "jump_to_reference"},
+            {"event": "stop", "reasons": ["Other"], "assumption": "mar"}]}, "fit": {}}
+    footnote = _model_footnote(_context(results), analysis)
+    assert not footnote.startswith("Imputation under missing at random")
+    assert ("jump to reference after study treatment stopped early (Adverse event, Lack of efficacy)"
+            in footnote)
+    plain = {"method": "multiple_imputation", "options": {"assumption": "copy_increments_in_reference",
+                                                          "imputations": 50}, "fit": {}}
+    assert _model_footnote(_context(results), plain).startswith("Imputation under copy increments in reference")

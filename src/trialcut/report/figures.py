@@ -349,7 +349,7 @@ def residual_chart(fitted: Sequence[float], residuals: Sequence[float], *, resid
 
 # --------------------------------------------------------------------------- sensitivity
 def tipping_chart(cells: Sequence[Mapping[str, Any]], *, arms: Sequence[str], alpha: float,
-                  label=lambda value: f"{value:.2f}") -> bytes:
+                  label=lambda value: f"{value:.2f}", shift_label=lambda value: f"{value:g}") -> bytes:
     """One panel per arm: a tile per (active-arm shift, reference-arm shift), teal while the
     difference stays significant at ``alpha`` and amber once it does not; text: the estimate."""
     from matplotlib.patches import Patch
@@ -376,8 +376,9 @@ def tipping_chart(cells: Sequence[Mapping[str, Any]], *, arms: Sequence[str], al
             axes.grid(False)
             axes.set_xlim(-0.5, len(shifts) - 0.5)
             axes.set_ylim(len(reference_shifts) - 0.5, -0.5)
-            axes.set_xticks(range(len(shifts)), [f"{s:g}" for s in shifts])
-            axes.set_yticks(range(len(reference_shifts)), [f"{s:g}" for s in reference_shifts])
+            # Shifts as the text and tables print them (-5.0, not -5), so a tile can be found from a table row.
+            axes.set_xticks(range(len(shifts)), [shift_label(s) for s in shifts])
+            axes.set_yticks(range(len(reference_shifts)), [shift_label(s) for s in reference_shifts])
             axes.set_xlabel("Shift added in the active arm")
             axes.set_title(arm, fontsize=8.5, color=INK)
             axes.spines[:].set_visible(False)

@@ -428,6 +428,21 @@ def _lower_first_word(text: str) -> str:
     return text[:1].lower() + text[1:] if len(text) > 1 and not text[1].isupper() else text
 
 
+def _imputation_assumption_words(context: EndpointContext, options: Mapping[str, Any]) -> str:
+    """'under copy increments in reference', or, with rules by reason, each rule and the rest (an
+    imputation by reason footnoted 'under missing at random' misstates what was imputed)."""
+    default = ASSUMPTION_WORDS.get(options.get("assumption"), options.get("assumption"))
+    rules = options.get("assumptions_by_reason") or []
+    if not rules:
+        return f"under {default}"
+    events = {e.get("id"): e.get("label") or e.get("id")
+              for e in (context.results.get("plan") or {}).get("intercurrent_events") or []}
+    parts = [f"{ASSUMPTION_WORDS.get(r.get('assumption'), r.get('assumption'))} after "
+             f"{_lower_first_word(str(events.get(r.get('event'), r.get('event'))))} "
+             f"({', '.join(str(reason) for reason in r.get('reasons') or []) or 'any reason'})" for r in rules]
+    return f"by reason: {'; '.join(parts)}; every other missing value under {default}"
+
+
 def _model_footnote(context: EndpointContext, analysis: Mapping[str, Any]) -> str:
     """The model in one footnote line: method, effects, covariates, structure, df, confidence level."""
     fit, options = analysis.get("fit") or {}, analysis.get("options") or {}
@@ -449,7 +464,7 @@ def _model_footnote(context: EndpointContext, analysis: Mapping[str, Any]) -> st
         return (f"Model: ANCOVA at each visit on observed values, with arm and the covariates {covariate_text}. "
                 f"Degrees of freedom: residual. Confidence level: {level}.")
     if method in ("multiple_imputation", "tipping_point"):
-        return (f"Imputation under {ASSUMPTION_WORDS.get(options.get('assumption'), options.get('assumption'))}, "
+        return (f"Imputation {_imputation_assumption_words(context, options)}, "
                 f"{options.get('imputations', '?')} imputations; each completed dataset analysed by ANCOVA at "
                 f"each visit with covariates {covariate_text}; pooled by Rubin's rules with Barnard–Rubin degrees "
                 f"of freedom. Confidence level: {level}.")
@@ -925,7 +940,8 @@ def tipping_point(section: Section, context: EndpointContext, analysis) -> None:
         f"{len({c['reference_shift'] for c in usable})} in the reference arm for {len({c['arm'] for c in usable})} arms; "
         f"each tile is labelled with the estimated difference and coloured by whether its p-value is below {alpha:g}.",
         lambda: draw.tipping_chart(usable, arms=context.arms, alpha=alpha,
-                                   label=lambda v: context.number_format.cell(v, "mean")), context,
+                                   label=lambda v: context.number_format.cell(v, "mean"),
+                                   shift_label=lambda v: context.number_format.cell(v, "shift")), context,
         note="Tile text: pooled estimated difference (arm minus reference). Colour: whether the two-sided p-value "
              f"is below {alpha:g}."))
 
