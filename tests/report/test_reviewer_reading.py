@@ -218,3 +218,17 @@ def test_an_imputation_by_reason_is_not_footnoted_as_missing_at_random(results):
     plain = {"method": "multiple_imputation", "options": {"assumption": "copy_increments_in_reference",
                                                           "imputations": 50}, "fit": {}}
     assert _model_footnote(_context(results), plain).startswith("Imputation under copy increments in reference")
+
+
+def test_tipping_map_ticks_print_shifts_as_the_tables_do():
+    # The map's axes said "-5" and "0" where the table beside it says "-5.0" and "0.0".
+    import re
+
+    from trialcut.report import figures
+
+    cells = [{"arm": "Lorvatide 10 mg", "shift": shift, "reference_shift": reference, "estimate": -1.0 + shift / 10,
+              "p": 0.01 if shift < 10 else 0.2} for shift in (0.0, 5.0, 10.0) for reference in (-5.0, 0.0)]
+    svg = figures.tipping_chart(cells, arms=["Lorvatide 10 mg"], alpha=0.05,
+                                shift_label=lambda value: f"{value:.1f}").decode("utf-8")
+    texts = set(re.findall(r">([^<>]+)</text>", svg))
+    assert {"-5.0", "0.0", "5.0", "10.0"} <= texts and "-5" not in texts
