@@ -12,7 +12,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field, replace
 from typing import Any, Mapping, Sequence
 
-from trialcut.report import sections_analysis, sections_flow, sections_front
+from trialcut.report import sections_analysis, sections_flow, sections_front, sections_responder
 from trialcut.report.blocks import Block, Section, walk
 from trialcut.report.figures import FigureImage
 from trialcut.report.formatting import NumberFormat, short_hash
@@ -98,6 +98,7 @@ def build_document(results: Mapping[str, Any], audit: Mapping[str, Any] | None =
         number_format = NumberFormat.from_results(results, raw=endpoint.get("decimals"))
         section = Section(f"endpoint{position + 1}", f"Endpoint: {endpoint.get('label') or endpoint.get('id')}")
         sections_analysis.endpoint(section, results, endpoint, number_format)
+        sections_responder.endpoint_extras(section, results, endpoint, number_format)   # binary, count, subgroups
         sections.append(section)
 
     if results.get("multiplicity"):
