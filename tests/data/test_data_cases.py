@@ -45,7 +45,13 @@ def test_data_case_is_refused_with_its_message(case: Path):
     assert spec["exit"] == 2 and spec["argv"][0] == "run"
     plan = _plan(_argument(spec["argv"], "", case))
     with pytest.raises(DataError) as caught:
-        prepare_cut(plan, read_cut(_argument(spec["argv"], "--data", case)))
+        cut = prepare_cut(plan, read_cut(_argument(spec["argv"], "--data", case)))
+        # Some checks belong to an endpoint type and run when the runner derives its outcome
+        # (counts, response flags): the cut must then be refused before any analysis.
+        from trialcut.run.context import RunContext
+        from trialcut.run.runner import run_plan
+
+        run_plan(plan, cut, RunContext(root_seed=plan.seed), plan_block={}, data_block={}, run_block={})
     assert caught.value.exit_status == 2
     assert spec["message"].lower() in caught.value.render().lower(), caught.value.render()
 
