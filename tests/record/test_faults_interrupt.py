@@ -198,3 +198,35 @@ def test_a_signal_during_the_commit_waits_for_the_rename(tmp_path, monkeypatch):
         record_small_run(out, "r1")
     assert (out / "S" / "c1" / "r1").is_dir()
     assert [row.record_id for row in list_records(out / "registry.sqlite")] == ["r1"]
+
+
+FIGURE_PARENT = textwrap.dedent('''
+    import os, signal, time
+    from trialcut.report.drawing import FigureDrawing
+    from trialcut.report.figures import FigureImage
+
+    parent = os.getpid()
+
+    def draw_after_the_parent_is_gone():
+        # Runs in the forked figure child: finish only once the parent has been killed, so
+        # the answer is always sent to a pipe nobody reads any more.
+        while os.getppid() == parent:
+            time.sleep(0.01)
+        return b"<svg xmlns='http://www.w3.org/2000/svg'/>"
+
+    figure = FigureImage("slow", "Slow", "a slow figure", None, job=draw_after_the_parent_is_gone)
+    FigureDrawing([figure])
+    os.kill(parent, signal.SIGKILL)
+''')
+
+
+def test_a_killed_report_leaves_no_figure_child_and_no_traceback():
+    # A run killed while its figures are drawn in a forked child: the child must not outlive
+    # it drawing for nobody, nor print a BrokenPipe traceback into the run's stderr.
+    # `communicate` returns only once every holder of the stderr pipe (the child too) is gone.
+    environment = {k: v for k, v in os.environ.items() if k != "TRIALCUT_DRAW_IN_PROCESS"}
+    child = subprocess.Popen([sys.executable, "-c", FIGURE_PARENT], stdout=subprocess.PIPE,
+                             stderr=subprocess.PIPE, cwd=ROOT, env=environment)
+    _, error = child.communicate(timeout=120)
+    assert child.returncode == -signal.SIGKILL, error.decode()
+    assert b"Traceback" not in error and b"Error" not in error, error.decode()

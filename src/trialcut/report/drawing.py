@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import multiprocessing
 import os
+import signal
 import sys
 import threading
 from typing import Sequence
@@ -23,6 +24,7 @@ from typing import Sequence
 from trialcut.report.figures import FigureImage, png_of
 
 SCHEME = "trialcut-figure:"
+_PR_SET_PDEATHSIG = 1   # from <linux/prctl.h>
 
 
 def link(figure: FigureImage) -> str:
@@ -58,17 +60,24 @@ class FigureDrawing:
         context = multiprocessing.get_context("fork")
         receiving, sending = context.Pipe(duplex=False)
         figures, pictures = self._waiting, self._want_pictures
+        parent = os.getpid()
 
         def draw_all() -> None:
             receiving.close()
+            _leave_stopping_to_the_parent(parent)
             drawn = []
-            for figure in figures:
-                done = figure.drawn()
-                sending.send(("svg", figure.slug, done.svg, done.note))
-                drawn.append((figure, done.svg is not None))
-            for figure, shown in drawn if pictures else ():
-                sending.send(("png", figure.slug, _picture(figure.job) if shown else None))
-            sending.close()
+            try:
+                for figure in figures:
+                    done = figure.drawn()
+                    sending.send(("svg", figure.slug, done.svg, done.note))
+                    drawn.append((figure, done.svg is not None))
+                for figure, shown in drawn if pictures else ():
+                    sending.send(("png", figure.slug, _picture(figure.job) if shown else None))
+                sending.close()
+            except (BrokenPipeError, ConnectionResetError):
+                # The parent stopped reading (it was killed, or gave up on the figures):
+                # nobody wants the rest, and a traceback would only alarm whoever reads stderr.
+                os._exit(0)
 
         self._child = context.Process(target=draw_all, name="trialcut-figures", daemon=True)
         # Text waiting in our buffers would be copied into the child and written twice.
@@ -169,6 +178,27 @@ def _picture(job) -> bytes | None:
         return png_of(job)
     except Exception:  # noqa: BLE001 - a picture is a copy of an SVG already drawn
         return None
+
+
+def _leave_stopping_to_the_parent(parent: int) -> None:
+    """In the figure child: die with the parent, and let only the parent answer Ctrl-C or SIGTERM.
+
+    Ctrl-C reaches the whole process group and the parent's SIGTERM handler (which raises
+    KeyboardInterrupt) is inherited by the fork, so either would print a traceback here; the
+    parent kills the child when it stops.  If the parent is killed outright (SIGKILL) it cannot,
+    so on Linux the kernel is asked to kill the child then (PR_SET_PDEATHSIG).
+    """
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    if sys.platform.startswith("linux"):
+        try:
+            import ctypes
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(_PR_SET_PDEATHSIG, signal.SIGKILL, 0, 0, 0)
+        except (OSError, AttributeError):
+            pass   # no prctl: the child still ends quietly at its next send
+    if os.getppid() != parent:   # the parent died before the request took effect
+        os._exit(0)
 
 
 def _can_fork() -> bool:
