@@ -47,8 +47,7 @@ def windows_from_schedule(schedule: Sequence[Any]) -> tuple[Window, ...]:
 def assign_visits(days: pd.Series, participants: pd.Series, windows: Sequence[Window],
                   parameters: pd.Series | None = None) -> WindowAssignment:
     """Assign each record (one study day each) to a visit and choose one record per visit."""
-    visit = pd.Series([_window_of(d, windows) for d in days.to_numpy(dtype=float)],
-                      index=days.index, dtype=object)
+    visit = pd.Series(_windows_of(days.to_numpy(dtype=float), windows), index=days.index, dtype=object)
     keys = _group_keys(participants, parameters)
     log = [_entry(keys[position], None, None, [day], _unassigned_reason(day))
            for position, day in enumerate(days.to_numpy(dtype=float)) if visit.iloc[position] is None]
@@ -64,12 +63,36 @@ def assign_visits(days: pd.Series, participants: pd.Series, windows: Sequence[Wi
     chosen[winners.index] = True
     sizes = frame.groupby(["key", "visit"], sort=False)["day"].transform("size")
     contested = frame[sizes > 1]
-    for (key, label), group in contested.groupby(["key", "visit"], sort=True):
-        winner = group.index[chosen[group.index].to_numpy()][0]
-        log.append(_entry(key, label, float(group.at[winner, "day"]),
-                          sorted(float(d) for i, d in group["day"].items() if i != winner),
-                          _reason(group, winner, planned[label])))
+    # One pass over plain arrays (a groupby loop cost seconds on a large cut with many repeats).
+    groups: dict[tuple[Any, str], list[tuple[float, bool, float]]] = {}
+    for key, label, day, won, distance in zip(contested["key"].tolist(), contested["visit"].tolist(),
+                                              contested["day"].tolist(), chosen[contested.index].tolist(),
+                                              contested["distance"].tolist()):
+        groups.setdefault((key, label), []).append((day, won, distance))
+    for key, label in sorted(groups):
+        members = groups[(key, label)]
+        winner = next(position for position, member in enumerate(members) if member[1])
+        ties = sum(1 for member in members if member[2] == members[winner][2])
+        log.append(_entry(key, label, float(members[winner][0]),
+                          sorted(float(m[0]) for position, m in enumerate(members) if position != winner),
+                          _reason_text(ties, planned[label])))
     return WindowAssignment(visit, chosen, tuple(log))
+
+
+def _windows_of(days: np.ndarray, windows: Sequence[Window]) -> list[str | None]:
+    """:func:`_window_of` for every day at once."""
+    if not len(windows):
+        return [None] * len(days)
+    # Later planned days first, so that the first of equally close windows is the later visit.
+    ordered = sorted(windows, key=lambda w: w.day, reverse=True)
+    planned = np.array([w.day for w in ordered])
+    half = np.array([w.half_width for w in ordered])
+    with np.errstate(invalid="ignore"):
+        distance = np.abs(days[:, None] - planned[None, :])
+        inside = (distance <= half[None, :]) & np.isfinite(days)[:, None]
+    best = np.argmin(np.where(inside, distance, np.inf), axis=1)
+    labels = np.array([w.label for w in ordered] + [None], dtype=object)
+    return labels[np.where(inside.any(axis=1), best, len(ordered))].tolist()
 
 
 def _window_of(day: float, windows: Sequence[Window]) -> str | None:
@@ -83,7 +106,10 @@ def _window_of(day: float, windows: Sequence[Window]) -> str | None:
 
 
 def _reason(group: pd.DataFrame, winner: Any, planned: float) -> str:
-    ties = (group["distance"] == group.at[winner, "distance"]).sum()
+    return _reason_text((group["distance"] == group.at[winner, "distance"]).sum(), planned)
+
+
+def _reason_text(ties: int, planned: float) -> str:
     if ties == 1:
         return f"closest to planned day {planned:g}"
     return f"equally close to planned day {planned:g}; the later record wins"
