@@ -100,6 +100,10 @@ def _simulate(args, loaded, scenarios, console) -> tuple[dict[str, Any], list[di
         round_size = max(4, 2 * max(args.workers, 2 if args.scheduler else 1))
         outcomes = simulate(work, executor, work_folder=work_folder, progress=progress_reporter(console),
                             round_size=round_size)
+    except KeyboardInterrupt:
+        kept = len(list(work_folder.glob("*.json"))) if work_folder.is_dir() else 0
+        raise KeyboardInterrupt(f"nothing was recorded; {kept} finished batch(es) are kept in {work_folder}: "
+                                "run the same command again to resume") from None
     finally:
         close()
     return summarise(plan, scenarios.scenarios, outcomes, trials=args.trials, root_seed=root_seed), outcomes, root_seed
