@@ -210,6 +210,37 @@ def test_failure_to_sync_after_the_rename_removes_the_new_folder(tmp_path, monke
     assert list(cut_folder.iterdir()) == []
 
 
+@pytest.mark.skipif(shutil.which("sha256sum") is None, reason="coreutils sha256sum not on PATH")
+def test_a_file_named_dash_is_checked_as_a_file_not_standard_input(tmp_path):
+    # Outside reference: GNU coreutils `sha256sum -c` reads a line naming '-' from standard
+    # input (found by the property test below), and './-' from the file.
+    def write(folder: Path) -> None:
+        (folder / "-").write_bytes(b"dash")
+        (folder / "-a").write_bytes(b"dash a")
+
+    folder = write_run_folder(tmp_path, "S", "c", "r1", write)
+    text = (folder / MANIFEST_NAME).read_text("utf-8")
+    assert [line.split("  ", 1)[1] for line in text.splitlines()] == ["-a", "./-"]
+    hashes, problems = parse_manifest(text, "manifest")
+    assert problems == [] and hashes["-"] == hashlib.sha256(b"dash").hexdigest()
+    # Standard input holds other bytes: a manifest read from it would fail the check.
+    checked = subprocess.run(["sha256sum", "-c", "--strict", MANIFEST_NAME], cwd=folder,
+                             input=b"not the file", capture_output=True, timeout=30)
+    assert checked.returncode == 0, checked.stdout + checked.stderr
+    (folder / "-").write_bytes(b"changed")
+    rechecked = subprocess.run(["sha256sum", "-c", "--strict", MANIFEST_NAME], cwd=folder,
+                               input=b"dash", capture_output=True, timeout=30)
+    assert rechecked.returncode == 1 and b"./-: FAILED" in rechecked.stdout
+
+
+def test_a_manifest_line_naming_bare_dash_is_malformed():
+    # sha256sum -c would hash standard input for it, so such a line checks nothing.
+    text = f"{'0' * 64}  -\n{'1' * 64}  results.json\n"
+    hashes, problems = parse_manifest(text, "manifest")
+    assert hashes == {"results.json": "1" * 64}
+    assert [(problem.code, problem.line) for problem in problems] == [("verify.manifest_malformed", 1)]
+
+
 # Any file names a writer might use (letters of any script, digits, spaces, punctuation);
 # only the characters sha256sum would have to escape, and '/', are left out.
 FILE_NAMES = st.text(alphabet=st.characters(blacklist_categories=("Cs", "Cc"),

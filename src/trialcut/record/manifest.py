@@ -5,7 +5,8 @@ per file, ``<64 lower-case hex digits><two spaces><relative path>``, LF line end
 with ``/`` and sorted by code point.  A reviewer without trialcut can therefore check a
 run folder with ``cd <run folder> && sha256sum -c MANIFEST.sha256``.  File names that
 ``sha256sum`` would have to escape (a backslash or a line break) are refused when a
-manifest is written, so the plain format always suffices.
+manifest is written, so the plain format always suffices.  A file named ``-`` is written
+``./-``: ``sha256sum -c`` reads a bare ``-`` as standard input, not as the file.
 """
 from __future__ import annotations
 
@@ -20,6 +21,8 @@ MANIFEST_NAME = "MANIFEST.sha256"
 _CHUNK_BYTES = 1 << 20
 _LINE = re.compile(r"([0-9a-f]{64})  (.+)")
 _NAME_NEEDS_ESCAPE = re.compile(r"[\\\n\r]")
+_STANDARD_INPUT = "-"            # what sha256sum reads a bare '-' as
+_STANDARD_INPUT_FILE = "./-"     # how a file of that name is written so sha256sum reads the file
 
 
 def sha256_file(path: Path, sync: bool = False) -> str:
@@ -49,7 +52,12 @@ def list_entries(folder: Path) -> list[str]:
 
 
 def manifest_text(hashes: dict[str, str]) -> str:
-    return "".join(f"{hashes[path]}  {path}\n" for path in sorted(hashes))
+    written = {_written_name(path): digest for path, digest in hashes.items()}
+    return "".join(f"{written[name]}  {name}\n" for name in sorted(written))
+
+
+def _written_name(path: str) -> str:
+    return _STANDARD_INPUT_FILE if path == _STANDARD_INPUT else path
 
 
 def write_manifest(folder: Path) -> Path:
@@ -101,8 +109,12 @@ def parse_manifest(text: str, source: str) -> tuple[dict[str, str], list[Problem
             problems.append(problem)
             continue
         digest, path = _LINE.fullmatch(line).groups()
-        hashes[path] = digest
+        hashes[_read_name(path)] = digest
     return hashes, problems
+
+
+def _read_name(written: str) -> str:
+    return _STANDARD_INPUT if written == _STANDARD_INPUT_FILE else written
 
 
 def _line_problem(line: str, seen: dict[str, str], source: str, number: int) -> Problem | None:
@@ -113,6 +125,13 @@ def _line_problem(line: str, seen: dict[str, str], source: str, number: int) -> 
                        expected="64 lower-case hex digits, two spaces, a relative path",
                        got=repr(line), hint="restore MANIFEST.sha256 from a trusted copy")
     path = match.group(2)
+    if path == _STANDARD_INPUT:
+        return Problem(code="verify.manifest_malformed", file=source, line=number,
+                       message="this manifest line names '-', which sha256sum -c reads as "
+                               "standard input rather than a file",
+                       expected=f"'{_STANDARD_INPUT_FILE}' for a file named '-'", got=repr(path),
+                       hint="restore MANIFEST.sha256 from a trusted copy")
+    path = _read_name(path)
     pure = PurePosixPath(path)
     if pure.is_absolute() or ".." in pure.parts or path == MANIFEST_NAME or "\\" in path:
         return Problem(code="verify.manifest_malformed", file=source, line=number,
