@@ -57,3 +57,8 @@ def test_levels_are_fitted_or_reported_with_their_counts(tmp_path):
     reported = pd.DataFrame(sex["levels"]["data"], columns=sex["levels"]["columns"])
     assert set(reported["status"]) == {"not_fitted"} and reported["estimate"].isna().all()
     assert "reported, not fitted" in sex["notes"][0] and "exploratory" in sex["caution"]
+    # the report shows each factor with its forest plot and the caution
+    folder = next(out.glob("*/*/*/results.json")).parent
+    html = (folder / "report.html").read_text()
+    assert "Subgroups: Severity" in html and "Subgroup results are exploratory" in html
+    assert any("subgroup_severity_forest" in p.name for p in (folder / "figures").iterdir())

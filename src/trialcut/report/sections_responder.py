@@ -105,10 +105,14 @@ def _forest_rows(entry, primary, context) -> list[dict[str, Any]]:
             rows.append({"label": "All participants", "primary": True, "arm": row.get("arm"),
                          "estimate": scale(row["estimate"]), "lower": scale(row.get("lower")),
                          "upper": scale(row.get("upper"))})
-    for row in rows_as_dicts(entry["levels"]):
+    levels = rows_as_dicts(entry["levels"])
+    totals: dict[Any, int] = {}
+    for row in levels:      # participants of the level in every arm: each arm once, the reference once
+        totals[row.get("level")] = totals.get(row.get("level"), row.get("n_reference") or 0) + (row.get("n_arm") or 0)
+    for row in levels:
         if row.get("status") != "ok" or row.get("estimate") is None:
             continue
-        rows.append({"label": f"{row.get('level')} (N = {row.get('n_arm')} vs {row.get('n_reference')})",
+        rows.append({"label": f"{row.get('level')} (N = {totals[row.get('level')]})",
                      "arm": row.get("arm"), "estimate": scale(row["estimate"]), "lower": scale(row.get("lower")),
                      "upper": scale(row.get("upper"))})
     return rows
@@ -128,5 +132,5 @@ def _forest(entry, rows, primary, context):
         f"Forest plot of the effect in each level of {entry.get('label')} and in all participants.",
         lambda: draw.forest_chart(rows, arms=context.arms, x_label=x_label, label=label), context,
         note=f"Test of equal effects across levels (treatment-by-subgroup interaction): {tests or 'not computed'}. "
-             "N: participants of the level in the arm vs in the reference arm. Subgroup results are exploratory "
+             "N: participants of the level in all arms (per arm in the table above). Subgroup results are exploratory "
              "unless prespecified with control of error.")
