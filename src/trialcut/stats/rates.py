@@ -94,7 +94,8 @@ def fit_rate(data: pd.DataFrame, *, outcome: str, arm: str, reference: Any, cova
     checks.raise_if(problems, "fit_rate")
     frame = data.dropna(subset=[outcome, arm, *covariates] + ([exposure] if exposure else [])).reset_index(drop=True)
     arms = arms_in_order(frame[arm], reference)
-    arm_block = np.column_stack([(frame[arm].to_numpy(dtype=object) == a).astype(float) for a in arms[1:]])
+    arm_values = frame[arm].to_numpy(dtype=object)
+    arm_block = np.column_stack([(arm_values == a).astype(float) for a in arms[1:]])
     block, labels, levels = checks.covariate_block(frame, covariates)
     design = np.column_stack([np.ones(len(frame)), arm_block, block])
     y = frame[outcome].to_numpy(dtype=float)
@@ -105,7 +106,6 @@ def fit_rate(data: pd.DataFrame, *, outcome: str, arm: str, reference: Any, cova
                        [Problem("rate.not_converged", "no convergence", field=outcome,
                                 hint="try family='poisson' (robust variance) or fewer covariates")])
     means = _standardised(design, len(arms), estimates, covariance, arms, reference)
-    arm_values = frame[arm].to_numpy(dtype=object)
     summary = [(a, int((arm_values == a).sum()), float(y[arm_values == a].sum()),
                 float(exposure_values[arm_values == a].sum()),
                 float(y[arm_values == a].sum() / exposure_values[arm_values == a].sum())) for a in arms]
