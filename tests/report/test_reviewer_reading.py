@@ -232,3 +232,52 @@ def test_tipping_map_ticks_print_shifts_as_the_tables_do():
                                 shift_label=lambda value: f"{value:.1f}").decode("utf-8")
     texts = set(re.findall(r">([^<>]+)</text>", svg))
     assert {"-5.0", "0.0", "5.0", "10.0"} <= texts and "-5" not in texts
+
+
+# --------------------------------------------------------------------------- binary and count endpoints
+def _gee_analysis():
+    return {"id": "gee_responder", "label": "Responders at every visit", "method": "gee", "role": "primary",
+            "estimand": "main", "population": "fas", "status": "ok", "options": {},
+            "fit": {"family": "binomial", "n_subjects": 234, "effect": "risk_difference",
+                    "missing_rule": "non_response"},
+            "tables": {"differences": {"title": "d", "columns": [
+                "arm", "reference", "visit", "estimate", "se", "df", "t", "p", "lower", "upper", "effect"], "data": [
+                ["Lorvatide 10 mg", "Placebo", "Week 12", 0.0712, 0.06, None, 1.19, 0.23, -0.046, 0.188,
+                 "risk_difference"]]},
+                "joint_tests": {"title": "j", "columns": ["term", "num_df", "chi_square", "p"],
+                                "data": [["arm_by_visit", 6, 6.6, 0.359]]}}}
+
+
+def test_a_risk_difference_keeps_its_decimals_and_every_label_is_in_words(results):
+    # The demo printed a risk difference of 0.07 as "0.1", its effect as "risk_difference", a z as "t",
+    # an empty DF column, "arm_by_visit", "N subjects" and "non_response".
+    from trialcut.report.sections_analysis import generic_analysis
+
+    section = Section("gee", "GEE")
+    generic_analysis(section, _context(results), _gee_analysis())
+    tables = _section_tables(section)
+    differences = next(t for t in tables if "Differences from" in t.title)
+    header = [c.label for c in differences.header()]
+    row = dict(zip(header, _texts(differences)[0]))
+    assert row["Estimate"] == "0.071" and row["Effect measure"] == "risk difference"
+    assert "z" in header and "t" not in header and "DF" not in header
+    joint = next(t for t in tables if t is not differences and "Effect measure" not in t.title
+                 and any("Arm by visit" in cell for cell in sum(_texts(t), [])))
+    assert joint is not None
+    words = " ".join(" ".join(sum(_texts(t), [])) for t in tables) + " ".join(_paragraphs(section))
+    for raw in ("risk_difference", "arm_by_visit", "non_response", "N subjects", "not described further"):
+        assert raw not in words
+
+
+def test_trajectory_panel_titles_put_the_count_on_its_own_line():
+    # With a long y-axis title the panels narrowed and "Lorvatide 10 mg (n = 23)" ran into the next title.
+    import re
+
+    from trialcut.report import figures
+
+    svg = figures.trajectories_chart({"Lorvatide 10 mg": {"P1": [("Week 2", 1.0), ("Week 4", 2.0)]}},
+                                     arms=["Placebo", "Lorvatide 10 mg"], visits=["Week 2", "Week 4"],
+                                     visit_days={"Week 2": 14, "Week 4": 28},
+                                     y_label="Change from baseline in a score with a long name").decode("utf-8")
+    texts = re.findall(r">([^<>]+)</text>", svg)
+    assert "Lorvatide 10 mg" in texts and "(n = 1)" in texts

@@ -257,7 +257,8 @@ def trajectories_chart(series: Mapping[str, Mapping[str, list[tuple[str, float]]
                     xs, ys = zip(*values)
                     # Lines only: a marker per visit multiplies the SVG's elements and its drawing time.
                     axes.plot(xs, ys, color=colour, linewidth=0.7, alpha=0.55)
-            axes.set_title(f"{arm} (n = {len(series.get(arm, {}))})", fontsize=8.5, color=INK)
+            # The count on a line of its own: side by side, long arm names ran into each other.
+            axes.set_title(f"{arm}\n(n = {len(series.get(arm, {}))})", fontsize=8.5, color=INK)
             axes.set_xticks(list(positions.values()), list(positions), rotation=45, ha="right")
         panels[0].set_ylabel(axis_title(y_label))
 

@@ -75,6 +75,8 @@ class NumberFormat:
             # Group-sequential tables: the same places as the sentence above them (|z| ≥ 2.790, p ≤ 0.00526).
             "boundary_z": BOUNDARY_Z_DECIMALS, "fraction": FRACTION_DECIMALS, "alpha": ALPHA_DECIMALS,
             "boundary_p": BOUNDARY_P_DECIMALS,
+            # Proportions, rates and their differences or ratios (binary and count endpoints).
+            "proportion": PROPORTION_DECIMALS,
         }.get(kind)
 
     def p_value_text(self, value: float) -> str:
@@ -171,6 +173,7 @@ def _general(value: float) -> str:
 
 BOUNDARY_Z_DECIMALS = FRACTION_DECIMALS = ALPHA_DECIMALS = 3
 BOUNDARY_P_DECIMALS = 5
+PROPORTION_DECIMALS = 3
 
 
 def describe_rules(number_format: NumberFormat, *, what: str = "", recorded: Any = None) -> str:
@@ -193,7 +196,8 @@ def describe_rules(number_format: NumberFormat, *, what: str = "", recorded: Any
         f"(group-sequential boundaries: |z| and information fractions to {BOUNDARY_Z_DECIMALS} decimals, the "
         f"alpha a hypothesis holds to {ALPHA_DECIMALS}, boundary p-values and alpha spent to {BOUNDARY_P_DECIMALS}). "
         "Degrees of freedom and percentages are shown to 1 decimal, test statistics to 2, correlations to 3; "
-        "model coefficients (including slopes of numeric covariates) to three significant digits. "
+        "model coefficients (including slopes of numeric covariates) to three significant digits; "
+        f"proportions, rates and their differences or ratios (binary and count endpoints) to {PROPORTION_DECIMALS}. "
         "Values are rounded half away from zero. The CSV files keep full precision."
     )
 

@@ -22,7 +22,23 @@ METHOD_WORDS = {
     "ancova": "Covariance analysis (ANCOVA) of observed data, one model per visit",
     "multiple_imputation": "Multiple imputation, pooled with Rubin's rules",
     "tipping_point": "Tipping-point analysis",
+    "gee": "Generalized estimating equations (GEE) over the visits, with a working correlation between a "
+           "participant's visits and sandwich standard errors; proportions or rates per arm are standardised "
+           "over the covariates",
+    "rate": "Regression of each participant's events over the whole period on arm and covariates, with the "
+            "time at risk as offset",
+    "proportions": "Proportions of responders compared at each visit, without a model over the visits",
 }
+# Binary and count analyses give proportions, rates and their contrasts: a risk difference of 0.07 shown
+# to the 1 decimal of a mean reads 0.1, so their numbers keep three decimals (EFFECT_DECIMALS).
+EFFECT_WORDS = {"risk_difference": "risk difference", "risk_ratio": "risk ratio", "odds_ratio": "odds ratio",
+                "rate_ratio": "rate ratio", "rate_difference": "rate difference"}
+EFFECT_KIND = "proportion"
+EFFECT_NUMBER_COLUMNS = ("estimate", "se", "lower", "upper", "proportion", "rate", "crude_rate")
+NON_CONTINUOUS_METHODS = ("gee", "rate", "proportions")
+FIT_WORDS = {"binomial": "binomial", "negative_binomial": "negative binomial", "poisson": "Poisson",
+             "non_response": "a missing value counts as no response", "exchangeable": "exchangeable",
+             "independence": "independence", "ar1": "first-order autoregressive", **EFFECT_WORDS}
 STRUCTURE_WORDS = {
     "unstructured": "unstructured", "toeplitz": "Toeplitz", "heterogeneous_toeplitz": "heterogeneous Toeplitz",
     "ar1": "first-order autoregressive", "heterogeneous_ar1": "heterogeneous first-order autoregressive",
@@ -45,7 +61,12 @@ FACT_LABELS = {"complete_df": "Complete-data DF", "burn_in": "Burn-in iterations
                "conf_level": "Confidence level", "confidence_level": "Confidence level",
                "visits": "Visits", "covariates": "Covariates", "outcome": "Outcome column",
                "reference": "Reference arm", "assumption": "Assumption", "imputations": "Imputations",
-               "alpha": "Two-sided significance level", "visit": "Visit"}
+               "alpha": "Two-sided significance level", "visit": "Visit",
+               "n_subjects": "Participants in the fit", "n_obs": "Observations in the fit",
+               "n_left_out": "Participants left out", "working_correlation": "Working correlation (estimated)",
+               "missing_rule": "Missing values", "effect": "Effect measure", "family": "Distribution",
+               "correlation": "Working correlation structure", "dispersion": "Dispersion",
+               "dispersion_se": "Standard error of the dispersion", "strata": "Strata"}
 AVERAGING_RULE = (
     "Model-estimated means set each numeric covariate to its mean over the participants in the fit "
     "(each participant counted once) and average over categorical covariates in their observed proportions."
@@ -560,11 +581,37 @@ def _not_yet_due_fact(analysis: Mapping[str, Any]) -> list[tuple[str, Any, str]]
     return [("Participants with no visit due yet (not in the fit)", waiting, "count")] if waiting else []
 
 
+def _effect_scale(analysis: Mapping[str, Any] | None, source: Mapping[str, Any]) -> tuple[dict, dict, tuple]:
+    """Kinds, labels and hidden columns of a binary or count analysis' table (none for a continuous one)."""
+    if (analysis or {}).get("method") not in NON_CONTINUOUS_METHODS:
+        return {}, {}, ()
+    columns = list(source.get("columns") or [])
+    kinds = {c: EFFECT_KIND for c in EFFECT_NUMBER_COLUMNS if c in columns}
+    kinds.update({c: "term" for c in ("term",) if c in columns})
+    labels = {"effect": "Effect measure", "z": "z", "chi_square": "Chi-square", "num_df": "Numerator DF"}
+    rows = source.get("data") or []
+    hidden = tuple(c for c in ("df",) if c in columns and all(r[columns.index(c)] is None for r in rows))
+    if "df" in hidden and "t" in columns:
+        labels["t"] = "z"    # no degrees of freedom: the statistic is referred to the normal distribution
+    return kinds, labels, hidden
+
+
+def _effect_words(source: Mapping[str, Any]) -> Mapping[str, Any]:
+    """The effect column in words ('risk difference', not 'risk_difference')."""
+    columns = list(source.get("columns") or [])
+    if "effect" not in columns:
+        return source
+    at = columns.index("effect")
+    data = [[EFFECT_WORDS.get(v, v) if i == at else v for i, v in enumerate(row)] for row in source.get("data") or []]
+    return {**source, "data": data}
+
+
 def _differences_table(context: EndpointContext, source, slug: str, title: str, ci: str, note: str = "", *,
                        analysis: Mapping[str, Any] | None = None, notes: Sequence[str] = ()):
-    table = from_results_table(source, slug=f"{context.slug}_{slug}", title=title,
-                               number_format=context.number_format, hide=("reference",),
-                               intervals={ci: ("lower", "upper")}, note=note)
+    kinds, labels, hidden = _effect_scale(analysis, source)
+    table = from_results_table(_effect_words(source), slug=f"{context.slug}_{slug}", title=title,
+                               number_format=context.number_format, hide=("reference", *hidden),
+                               kinds=kinds, labels=labels, intervals={ci: ("lower", "upper")}, note=note)
     if analysis is None:
         return table
     return context.standalone(table, analysis, notes=[*notes, _model_footnote(context, analysis)])
@@ -786,8 +833,10 @@ def generic_analysis(section: Section, context: EndpointContext, analysis) -> No
             continue
         if name == "pooling":
             source = _pooling_in_our_order(source)
-        table = from_results_table(source, slug=f"{context.slug}_{analysis.get('id')}_{name}",
-                                   number_format=context.number_format, labels=POOLING_LABELS,
+        kinds, labels, hidden = _effect_scale(analysis, source)
+        table = from_results_table(_effect_words(source), slug=f"{context.slug}_{analysis.get('id')}_{name}",
+                                   number_format=context.number_format, labels={**POOLING_LABELS, **labels},
+                                   kinds=kinds, hide=hidden,
                                    title=context.title(POOLING_TITLE if name == "pooling"
                                                        else str(source.get("title") or name), analysis))
         if detail_shown or name in SENSITIVITY_SHOWN:
@@ -799,6 +848,8 @@ def generic_analysis(section: Section, context: EndpointContext, analysis) -> No
         fit = {}     # stated in words above
     if fit.get("assumption"):
         fit["assumption"] = ASSUMPTION_WORDS.get(fit["assumption"], fit["assumption"])
+    if method in NON_CONTINUOUS_METHODS:
+        fit = {k: (FIT_WORDS.get(v, v) if isinstance(v, str) else v) for k, v in fit.items()}
     for key in ("conf_level", "confidence_level"):
         if key in fit:
             fit[key] = _level_text({"confidence_level": fit[key]})
