@@ -37,9 +37,10 @@ PathKey = tuple[str | int, ...]
 # A composed plan never needs more nodes than this; aliases that expand beyond it are an
 # attack or an accident ("billion laughs"), not an analysis plan.
 MAX_NODES = 100_000
-# A plan is a few kilobytes; a file of more than this is not a plan (and composing a
-# 50 MB YAML file would take minutes before any message).
-MAX_PLAN_BYTES = 1 << 20
+# A plan is a few kilobytes (the starter plan, fully commented, 13 kB); a file of more than
+# this is not a plan (composing a 50 MB YAML file took two minutes before any message; a
+# file at this limit is read in about a second).
+MAX_PLAN_BYTES = 256 << 10
 # The YAML tags a plan may carry, explicitly or implicitly (YAML 1.1 core types); any other
 # tag ('!thing', '!!python/object', '!!set', '!!binary') would change what a value means.
 _STANDARD = "tag:yaml.org,2002:"
