@@ -65,3 +65,10 @@ def test_a_count_endpoint_needs_the_counts_themselves(tmp_path):
     with pytest.raises(PlanError) as caught:
         load_plan(_plan_with(tmp_path, endpoint))
     assert "endpoints[episodes].analysed: a count endpoint analyses the counts themselves" in caught.value.render()
+
+
+def test_imputing_the_score_needs_a_threshold_response(tmp_path):
+    endpoint = _binary({"flag_column": "RESPFL", "missing": "leave_out"}, method="responder_imputation")
+    with pytest.raises(PlanError) as caught:
+        load_plan(_plan_with(tmp_path, endpoint))
+    assert "the response must be derived by a threshold" in caught.value.render()

@@ -51,10 +51,17 @@ def test_threshold_responders_with_composite_events_and_missing_as_non_response(
                 "response": {"threshold": -4, "direction": "at_most", "missing": "non_response"},
                 "analyses": {"primary": {"id": "gee_main", "label": "GEE", "method": "gee", "estimand": "responder"},
                              "sensitivity": [{"id": "at_week_12", "label": "Week 12", "method": "proportions",
-                                              "estimand": "responder", "options": {"strata": ["STRAT1R"]}}]}}
+                                              "estimand": "responder", "options": {"strata": ["STRAT1R"]}},
+                                             {"id": "imputed", "label": "MI", "method": "responder_imputation",
+                                              "estimand": "responder",
+                                              "options": {"imputations": 5, "burn_in": 20, "thinning": 2,
+                                                          "chains": 1, "covariates": ["BASE"]}}]}}
     results = _run(tmp_path, [endpoint], COMPOSITE)
-    gee, proportions = results["endpoints"][0]["analyses"]
+    gee, proportions, imputed = results["endpoints"][0]["analyses"]
     assert gee["status"] == "ok" and proportions["status"] == "ok", (gee["error"], proportions["error"])
+    assert imputed["status"] == "ok", imputed["error"]
+    pooled = _table(imputed, "differences")
+    assert set(pooled["visit"]) == {"Week 2", "Week 4", "Week 8", "Week 12"} and pooled["df"].notna().all()
     # by hand: a Week 12 response is a change <= -4 recorded before any discontinuation
     data = pd.read_csv(BASE / "data.csv")
     week12 = data[(data["AVISIT"] == "Week 12") & (data["FASFL"] == "Y")]

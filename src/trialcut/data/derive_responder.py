@@ -37,6 +37,9 @@ class DiscreteAnalysisData(AnalysisData):
     exposure: str | None = None          # count endpoints: time at risk per row
     log_exposure: str | None = None      # its logarithm, for a model offset
     missing_rule: str | None = None      # binary endpoints: non_response or leave_out
+    score: str | None = None             # binary endpoints by threshold: the continuous column derived from
+    threshold: float | None = None
+    direction: str | None = None
 
 
 def derive_outcome(endpoint, data: AnalysisData, source: str = "the data cut") -> AnalysisData:
@@ -66,7 +69,9 @@ def _binary(endpoint, data: AnalysisData, source: str) -> DiscreteAnalysisData:
         response = response.mask(response.isna() & frame[DUE].astype(bool), 0.0)
     frame[RESPONSE] = response
     return DiscreteAnalysisData(**(_base_fields(data) | {"frame": frame, "outcome": RESPONSE}),
-                                endpoint_type="binary", missing_rule=rule.missing)
+                                endpoint_type="binary", missing_rule=rule.missing,
+                                score=data.outcome if rule.threshold is not None else None,
+                                threshold=rule.threshold, direction=rule.direction)
 
 
 def _read_flags(frame: pd.DataFrame, column: str, data: AnalysisData, source: str) -> pd.Series:

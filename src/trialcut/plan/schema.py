@@ -503,6 +503,23 @@ class ProportionsOptions(Strict):
     confidence_level: float = Field(default=0.95, gt=0, lt=1)
 
 
+class ResponderImputationOptions(Strict):
+    """Multiple imputation of the underlying score, then responders by the endpoint's threshold."""
+
+    assumption: ImputationAssumption = "mar"
+    covariates: tuple[str, ...] = ()
+    imputations: int = Field(default=50, ge=2, le=10000)
+    burn_in: int = Field(default=200, ge=0)
+    thinning: int = Field(default=10, ge=1)
+    chains: int = Field(default=4, ge=1)
+    confidence_level: float = Field(default=0.95, gt=0, lt=1)
+
+
+class ResponderImputationAnalysis(_AnalysisBase):
+    method: Literal["responder_imputation"]
+    options: ResponderImputationOptions = ResponderImputationOptions()
+
+
 class GEEAnalysis(_AnalysisBase):
     method: Literal["gee"]
     options: GEEOptions = GEEOptions()
@@ -520,7 +537,7 @@ class ProportionsAnalysis(_AnalysisBase):
 
 Analysis = Annotated[
     Union[MMRMAnalysis, AncovaAnalysis, ImputationAnalysis, TippingPointAnalysis, GEEAnalysis, RateAnalysis,
-          ProportionsAnalysis],
+          ProportionsAnalysis, ResponderImputationAnalysis],
     Field(discriminator="method"),
 ]
 # Method name -> the plan model of its analysis.  The runner's registry must carry the
@@ -533,11 +550,13 @@ ANALYSIS_METHODS: dict[str, type[_AnalysisBase]] = {
     "gee": GEEAnalysis,
     "rate": RateAnalysis,
     "proportions": ProportionsAnalysis,
+    "responder_imputation": ResponderImputationAnalysis,
 }
 # Which endpoint types each method analyses.
 METHOD_ENDPOINT_TYPES: dict[str, tuple[str, ...]] = {
     "mmrm": ("continuous",), "ancova": ("continuous",), "multiple_imputation": ("continuous",),
     "tipping_point": ("continuous",), "gee": ("binary", "count"), "rate": ("count",), "proportions": ("binary",),
+    "responder_imputation": ("binary",),
 }
 
 
@@ -631,6 +650,10 @@ def _endpoint_issues(endpoint: Endpoint) -> Iterator[RuleIssue]:
             yield RuleIssue(("analyses", *path, "method"), f"method {analysis.method!r} does not analyse "
                             f"{endpoint.type} endpoints", expected=_one_of(fitting), got=repr(analysis.method),
                             code="plan.method_endpoint_type")
+        elif analysis.method == "responder_imputation" and endpoint.response and endpoint.response.threshold is None:
+            yield RuleIssue(("analyses", *path, "method"), "responder_imputation imputes the underlying score, so "
+                            "the response must be derived by a threshold", expected="response: {threshold, direction}",
+                            got="flag_column", code="plan.responder_imputation_flag")
     if endpoint.range is not None and endpoint.range[0] >= endpoint.range[1]:
         yield RuleIssue(("range",), "range must be [low, high] with low < high",
                         expected="low < high", got=f"[{endpoint.range[0]:g}, {endpoint.range[1]:g}]",

@@ -153,4 +153,5 @@ METHODS: dict[str, AnalysisMethod] = {
     "gee": _failing_on_numbers(methods_responder.run_gee),
     "rate": _failing_on_numbers(methods_responder.run_rate),
     "proportions": _failing_on_numbers(methods_responder.run_proportions),
+    "responder_imputation": _failing_on_numbers(methods_responder.run_responder_imputation),
 }

@@ -172,3 +172,31 @@ def run_proportions(data, analysis, context: RunContext) -> dict[str, Any]:
 def _effect_words(effect: str) -> str:
     return {"risk_difference": "Risk difference", "risk_ratio": "Risk ratio", "odds_ratio": "Odds ratio",
             "rate_ratio": "Rate ratio", "rate_difference": "Rate difference"}[effect]
+
+
+def run_responder_imputation(data, analysis, context: RunContext) -> dict[str, Any]:
+    """Impute the continuous score (values after an intercurrent event follow the plan's
+    assumption, every other missing value MAR), then count responders by the threshold."""
+    from trialcut.stats.responder_imputation import impute_responders
+
+    options = analysis.options
+    frame = data.frame
+    after_event = frame["intercurrent_event"].notna() if "intercurrent_event" in frame.columns else False
+    if "outcome_set_missing" in frame.columns:
+        after_event = after_event | frame["outcome_set_missing"].fillna(False).astype(bool)
+    differences = impute_responders(
+        frame.assign(_after_event=after_event), subject=data.subject, arm=data.arm, visit=data.visit,
+        outcome=data.score, visits=list(data.visits), reference=data.reference, arms=list(data.arms),
+        threshold=data.threshold, direction=data.direction, covariates=tuple(options.covariates),
+        assumption=options.assumption, event="_after_event", n_imputations=options.imputations,
+        burn_in=options.burn_in, thinning=options.thinning, chains=options.chains,
+        seed_sequence=context.seed_sequence(analysis.id), confidence_level=options.confidence_level)
+    return {"tables": {"differences": table(_shared(differences.rename(columns={"t": "z"}).assign(
+                           effect="risk_difference")).assign(df=differences["df"]),
+                       f"Risk difference by visit, pooled over {options.imputations} imputations of the score "
+                       "(Rubin's rules on the difference scale)")},
+            "fit": {"assumption": options.assumption, "imputations": options.imputations,
+                    "covariates": ", ".join(options.covariates) or "none", "score": data.score,
+                    "threshold": data.threshold, "direction": data.direction,
+                    "pooling_scale": "risk difference"},
+            "diagnostics": {}}
