@@ -281,3 +281,18 @@ def test_trajectory_panel_titles_put_the_count_on_its_own_line():
                                      y_label="Change from baseline in a score with a long name").decode("utf-8")
     texts = re.findall(r">([^<>]+)</text>", svg)
     assert "Lorvatide 10 mg" in texts and "(n = 1)" in texts
+
+
+def test_with_two_endpoints_every_table_title_is_still_unique(results):
+    # With the responder and count endpoints in the demo, "Missing values of the primary analysis by arm and
+    # visit; full analysis set" and the flow tables appeared once per endpoint under the same title.
+    two = copy.deepcopy(results)
+    second = copy.deepcopy(two["endpoints"][0])
+    second["id"], second["label"] = "second_score", "Change from baseline in a second score (invented)"
+    for analysis in second["analyses"]:
+        analysis["id"] = f"{analysis['id']}_second"
+    two["endpoints"].append(second)
+    document = build_document(two, draw=False)
+    titles = [t.title for t in [*document.tables, *document.csv_tables]]
+    repeated = sorted({t for t in titles if titles.count(t) > 1})
+    assert not repeated, repeated

@@ -107,7 +107,10 @@ class EndpointContext:
         return ", ".join(parts)
 
     def title(self, what: str, analysis: Mapping[str, Any] | None = None) -> str:
-        """A unique title: what the table shows, of which analysis, for which estimand and population."""
+        """A unique title: what the table shows, of which analysis, for which estimand and population
+        (and of which endpoint, when the plan has more than one: their tables otherwise read alike)."""
+        if len(self.results.get("endpoints") or []) > 1:
+            what = f"{what} ({_short(self.label)})"
         if analysis is None:
             return f"{what}; {_lower_first(self.population_label(self.population))}"
         scope = self.scope(analysis)

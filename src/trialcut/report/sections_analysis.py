@@ -302,7 +302,7 @@ def primary_analysis(section: Section, context: EndpointContext, analysis: Mappi
     section.paragraph(_model_description(context, analysis))
     section.paragraph(AVERAGING_RULE)
     section.table(_covariate_summary(context, fit, analysis))
-    _fallbacks(section, context, fit, options)
+    _fallbacks(section, context, fit, options, analysis)
     ci = f"{level} confidence interval"
     model = _model_footnote(context, analysis)
     if tables.get("marginal_means"):
@@ -495,7 +495,7 @@ def _model_footnote(context: EndpointContext, analysis: Mapping[str, Any]) -> st
 
 
 
-def _fallbacks(section: Section, context: EndpointContext, fit, options) -> None:
+def _fallbacks(section: Section, context: EndpointContext, fit, options, analysis=None) -> None:
     planned = list(options.get("covariance") or [])
     if planned:
         section.paragraph("Covariance structures in the plan, tried in this order until one converges: "
@@ -506,7 +506,8 @@ def _fallbacks(section: Section, context: EndpointContext, fit, options) -> None
                  "status": _attempt_status(a),
                  "reason": a.get("reason") or a.get("message") or a.get("error") or ""} for a in attempts]
         section.table(from_records(rows, ("structure", "status", "reason"), slug=f"{context.slug}_structures_tried",
-                                   title="Covariance structures tried", number_format=context.number_format,
+                                   title=context.title("Covariance structures tried", analysis),
+                                   number_format=context.number_format,
                                    labels={"structure": "Structure", "status": "Outcome",
                                            "reason": "Reason it was set aside"}))
     if fit.get("structure") and planned and fit.get("structure") != planned[0]:

@@ -5,6 +5,8 @@ Reads results.json only (``data.cut_off``, ``endpoints[].flow``, ``analyses[].le
 """
 from __future__ import annotations
 
+import re
+
 from typing import Any, Mapping
 
 from trialcut.report.blocks import Section
@@ -87,10 +89,17 @@ def _flow_table(section: Section, results, endpoint, entry, slug: str, number_fo
                    "used by a fit and those left out, by reason. Every other count in this report derives from "
                    "this table.")
     part.table(from_results_table(
-        shown, slug=slug, number_format=number_format, title=f"Participant flow: {who}", hide=("step",),
+        shown, slug=slug, number_format=number_format, hide=("step",),
+        title=(f"Participant flow ({_endpoint_words(endpoint)}): {who}" if name_endpoint else f"Participant flow: {who}"),
         labels={"visit": "Visit", "label": "Step"},
         kinds={"visit": "text", "label": "text", **{arm: "count" for arm in arms}}))
     _left_out(part, endpoint, entry, slug, number_format)
+
+
+def _endpoint_words(endpoint: Mapping[str, Any]) -> str:
+    """The endpoint's label without its explanation in brackets (its id when it has none)."""
+    label = str(endpoint.get("label") or endpoint.get("id"))
+    return re.sub(r"\s*\([^()]*\)\s*$", "", label).strip() or label
 
 
 def _left_out(section: Section, endpoint, entry, slug: str, number_format: NumberFormat) -> None:
