@@ -93,7 +93,12 @@ def measure(size: int) -> dict:
 
 
 def run() -> list[dict]:
-    measured = {size: measure(size) for size in sizes()}
+    measured = {}
+    for size in sizes():
+        measured[size] = measure(size)
+        print(f"bench_scale: {size} participants: " + ", ".join(f"{key} {value:.4g}" for key, value in
+                                                              measured[size].items() if key != "size"),
+              file=sys.stderr, flush=True)   # the large size takes minutes: show each size when done
     rows = []
     for size, m in measured.items():
         rows.append({"figure": f"run the demo plan, {size} participants: wall time", "value": round(m["wall"], 1),
