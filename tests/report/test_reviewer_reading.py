@@ -296,3 +296,27 @@ def test_with_two_endpoints_every_table_title_is_still_unique(results):
     titles = [t.title for t in [*document.tables, *document.csv_tables]]
     repeated = sorted({t for t in titles if titles.count(t) > 1})
     assert not repeated, repeated
+
+
+def test_subgroup_tests_of_two_endpoints_have_titles_of_their_own(results):
+    # The demo's three endpoints each printed "Test of equal effects across the levels of Sex (...)".
+    two = copy.deepcopy(results)
+    second = copy.deepcopy(two["endpoints"][0])
+    second["id"], second["label"] = "second_score", "Change from baseline in a second score (invented)"
+    for analysis in second["analyses"]:
+        analysis["id"] = f"{analysis['id']}_second"
+    two["endpoints"].append(second)
+    for endpoint in two["endpoints"]:
+        endpoint["subgroups"] = [{
+            "id": "sex", "label": "Sex", "column": "SEX", "analysis": endpoint["analyses"][0]["id"],
+            "caution": "Subgroup results are exploratory.", "notes": [],
+            "levels": {"title": f"{endpoint['label']}: effect within each level of Sex",
+                       "columns": ["level", "arm", "estimate", "lower", "upper", "p"],
+                       "data": [["F", "Lorvatide 10 mg", -1.0, -2.0, 0.0, 0.05]]},
+            "interaction": {"title": "Test of equal effects across the levels of Sex",
+                            "columns": ["arm", "statistic", "num_df", "p"],
+                            "data": [["Lorvatide 10 mg", 0.03, 1, 0.86]]}}]
+    document = build_document(two, draw=False)
+    titles = [t.title for t in [*document.tables, *document.csv_tables]]
+    tests = [t for t in titles if t.startswith("Test of equal effects")]
+    assert len(tests) == 2 and len(set(tests)) == 2, tests

@@ -84,7 +84,11 @@ def subgroups(section: Section, context: EndpointContext, endpoint: Mapping[str,
         child.table(from_results_table(entry["levels"], slug=f"{context.slug}_subgroup_{entry.get('id')}",
                                        number_format=context.number_format, title=entry["levels"].get("title")))
         child.table(from_results_table(entry["interaction"], slug=f"{context.slug}_subgroup_{entry.get('id')}_test",
-                                       number_format=context.number_format, title=entry["interaction"].get("title")))
+                                       number_format=context.number_format,
+                                       # Every endpoint has this test per factor: the title names the endpoint.
+                                       title=context.title(str(entry["interaction"].get("title")
+                                                               or "Test of equal effects across the levels"),
+                                                           primary)))
         rows = _forest_rows(entry, primary, context)
         if rows:
             child.figure(_forest(entry, rows, primary, context))
