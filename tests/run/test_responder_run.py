@@ -96,3 +96,35 @@ def test_count_endpoint_rate_and_gee(tmp_path):
         assert summary.loc[arm, "exposure"] == pytest.approx(2.0 * per_visit.loc[arm, "n"])
     assert summary["events"].sum() > 0
     assert _table(rate, "differences")["effect"].iloc[0] == "rate_ratio"
+
+
+def test_multiplicity_across_continuous_and_count_endpoints(tmp_path):
+    # Holm over a continuous and a count endpoint: the adjusted p-values follow Holm's rule
+    # (Holm 1979) applied by hand to the two raw p-values each analysis reports.
+    plan = yaml.safe_load((BASE / "plan.yaml").read_text())
+    continuous = plan["endpoints"][0]
+    continuous["analyses"]["sensitivity"] = []
+    count = {"id": "episodes", "label": "Score read as a count", "type": "count", "parameter": "FBS",
+             "analysed": "value", "primary_visit": "Week 12", "exposure": "EXPWK",
+             "analyses": {"primary": {"id": "rate_main", "label": "Rate", "method": "rate", "estimand": "primary"}}}
+    plan["multiplicity"] = {"method": "holm", "alpha": 0.05, "hypotheses": [
+        {"id": "score", "analysis": "mmrm_primary", "arm": "Lorvatide 20 mg", "visit": "Week 12"},
+        {"id": "events", "analysis": "rate_main", "arm": "Lorvatide 20 mg", "visit": "Week 12"}]}
+    (tmp_path / "plan.yaml").write_text(yaml.safe_dump(plan, sort_keys=False))
+    data = pd.read_csv(BASE / "data.csv")
+    data["EXPWK"] = np.where(data["ABLFL"] == "Y", np.nan, 2.0)
+    data.to_csv(tmp_path / "data.csv", index=False)
+    out = tmp_path / "out"
+    plan_path = tmp_path / "plan.yaml"
+    plan_path.write_text(yaml.safe_dump({**plan, "endpoints": [continuous, count]}, sort_keys=False))
+    assert main(["run", str(plan_path), "--data", str(tmp_path / "data.csv"), "--cut", "c1", "--out", str(out),
+                 "--unlocked"]) == 0
+    results = json.loads(next(out.glob("*/*/*/results.json")).read_text())
+    hypotheses = pd.DataFrame(results["multiplicity"]["hypotheses"]["data"],
+                              columns=results["multiplicity"]["hypotheses"]["columns"]).set_index("id")
+    raw = hypotheses["p"].astype(float)
+    assert raw.notna().all()
+    ordered = raw.sort_values()
+    holm = np.maximum.accumulate([min(1.0, p * (len(raw) - i)) for i, p in enumerate(ordered)])
+    for (name, _), expected in zip(ordered.items(), holm):
+        assert hypotheses.loc[name, "adjusted_p"] == pytest.approx(expected, rel=1e-12)

@@ -22,7 +22,6 @@ from trialcut.run.context import RunContext
 from trialcut.run.tables import plain, table
 
 SHARED_COLUMNS = ("arm", "reference", "visit", "estimate", "se", "df", "t", "p", "lower", "upper", "effect")
-PERIOD = "Whole period"
 
 
 def _shared(frame: pd.DataFrame, visit: Any = None) -> pd.DataFrame:
@@ -125,8 +124,10 @@ def run_rate(data, analysis, context: RunContext) -> dict[str, Any]:
                    family=options.family)
     level = options.confidence_level
     tables = {
-        "differences": table(_shared(fit.differences(options.effect, level), visit=PERIOD),
-                             f"{_effect_words(options.effect)} over the whole period"),
+        # Labelled with the primary visit, the end of the period, so that multiplicity hypotheses and
+        # the side-by-side summaries find it as they find any other endpoint's primary estimate.
+        "differences": table(_shared(fit.differences(options.effect, level), visit=data.primary_visit),
+                             f"{_effect_words(options.effect)} over the whole period up to {data.primary_visit}"),
         "rates": table(fit.rates(level), "Standardised event rate per unit of exposure by arm"),
         "summary": table(fit.summary(), "Participants, events and exposure by arm (whole period)"),
         "observed_rates": table(observed_rates(data), _rates_title(data)),
