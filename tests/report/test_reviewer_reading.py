@@ -320,3 +320,22 @@ def test_subgroup_tests_of_two_endpoints_have_titles_of_their_own(results):
     titles = [t.title for t in [*document.tables, *document.csv_tables]]
     tests = [t for t in titles if t.startswith("Test of equal effects")]
     assert len(tests) == 2 and len(set(tests)) == 2, tests
+
+
+def test_an_all_analyses_summary_of_rate_ratios_is_not_called_a_difference(results):
+    # The count endpoint's summary said "Estimated difference from Placebo" and "each arm minus Placebo"
+    # of rate ratios, and its forest plot marked no effect at 0.
+    from trialcut.report.sections_analysis import sensitivity
+
+    primary = _gee_analysis()
+    primary["fit"]["effect"] = "rate_ratio"
+    row = primary["tables"]["differences"]["data"][0]
+    row[3], row[8], row[9], row[10] = 0.62, 0.41, 0.93, "rate_ratio"
+    section = Section("sensitivity", "Sensitivity")
+    sensitivity(section, _context(results), primary, [])
+    table = next(t for t in _section_tables(section) if "every analysis" in t.title)
+    assert table.title.startswith("Estimated rate ratio to Placebo")
+    assert any(note.startswith("Ratios are each arm over Placebo") for note in table.footnotes)
+    figure = next(b.content for b in section.blocks if b.kind == "figure")
+    assert figure.title.startswith("Estimated rate ratio to Placebo")
+    assert dict(zip([c.label for c in table.header()], _texts(table)[0]))["Estimate"] == "0.620"

@@ -393,7 +393,8 @@ def tipping_chart(cells: Sequence[Mapping[str, Any]], *, arms: Sequence[str], al
 
 
 def forest_chart(rows: Sequence[Mapping[str, Any]], *, arms: Sequence[str], x_label: str,
-                 favours: tuple[str, str] | None = None, label=lambda value: f"{value:.1f}") -> bytes:
+                 favours: tuple[str, str] | None = None, label=lambda value: f"{value:.1f}",
+                 no_effect: float | None = 0.0) -> bytes:
     """One band per analysis, one line per arm inside it: the estimate and its confidence interval,
     the numbers at the right, the primary analysis in bold and the side each arm is favoured on."""
     import textwrap
@@ -424,7 +425,8 @@ def forest_chart(rows: Sequence[Mapping[str, Any]], *, arms: Sequence[str], x_la
                 if row.get("lower") is not None else label(row["estimate"])
             axes.text(1.02, y, numbers, transform=axes.get_yaxis_transform(), va="center", ha="left",
                       fontsize=7, color=style["color"], fontweight="bold" if row["label"] in primary else "normal")
-        axes.axvline(0, color=INK, linewidth=0.8, linestyle=(0, (4, 3)))
+        if no_effect is not None:     # 0 for a difference, 1 for a ratio, none for a rate itself
+            axes.axvline(no_effect, color=INK, linewidth=0.8, linestyle=(0, (4, 3)))
         axes.set_yticks(centres, [wrapped[l] for l in labels], fontsize=7.5)
         for tick, text in zip(axes.get_yticklabels(), labels):
             if text in primary:

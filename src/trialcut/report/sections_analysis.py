@@ -28,6 +28,8 @@ METHOD_WORDS = {
     "rate": "Regression of each participant's events over the whole period on arm and covariates, with the "
             "time at risk as offset",
     "proportions": "Proportions of responders compared at each visit, without a model over the visits",
+    "responder_imputation": "Multiple imputation of the underlying score, each completed dataset turned into "
+                            "responders by the plan's rule and compared, the results pooled by Rubin's rules",
 }
 # Binary and count analyses give proportions, rates and their contrasts: a risk difference of 0.07 shown
 # to the 1 decimal of a mean reads 0.1, so their numbers keep three decimals (EFFECT_DECIMALS).
@@ -35,10 +37,12 @@ EFFECT_WORDS = {"risk_difference": "risk difference", "risk_ratio": "risk ratio"
                 "rate_ratio": "rate ratio", "rate_difference": "rate difference"}
 EFFECT_KIND = "proportion"
 EFFECT_NUMBER_COLUMNS = ("estimate", "se", "lower", "upper", "proportion", "rate", "crude_rate")
-NON_CONTINUOUS_METHODS = ("gee", "rate", "proportions")
+NON_CONTINUOUS_METHODS = ("gee", "rate", "proportions", "responder_imputation")
 FIT_WORDS = {"binomial": "binomial", "negative_binomial": "negative binomial", "poisson": "Poisson",
              "non_response": "a missing value counts as no response", "exchangeable": "exchangeable",
-             "independence": "independence", "ar1": "first-order autoregressive", **EFFECT_WORDS}
+             "independence": "independence", "ar1": "first-order autoregressive",
+             "at_most": "a response is a value at or below the threshold",
+             "at_least": "a response is a value at or above the threshold", **EFFECT_WORDS}
 STRUCTURE_WORDS = {
     "unstructured": "unstructured", "toeplitz": "Toeplitz", "heterogeneous_toeplitz": "heterogeneous Toeplitz",
     "ar1": "first-order autoregressive", "heterogeneous_ar1": "heterogeneous first-order autoregressive",
@@ -670,13 +674,20 @@ def sensitivity(section: Section, context: EndpointContext, primary, others: Seq
             "where it is a multiple imputation under missing at random.")
         columns = ("label", "scope", "arm", "estimate", "se", "df", "lower", "upper", "p")
         labels = {"label": "Analysis", "scope": "Role; estimand; population", "arm": "Arm (N)"}
+        # A binary or count endpoint's contrasts keep the decimals of proportions and rates.
+        scale = ({c: EFFECT_KIND for c in ("estimate", "se", "lower", "upper")}
+                 if primary.get("method") in NON_CONTINUOUS_METHODS else {})
         summary = from_results_table({"columns": list(columns), "data": [[r[c] for c in columns] for r in rows]},
                                      slug=f"{context.slug}_estimates_summary", number_format=context.number_format,
-                                     wide=True,
+                                     wide=True, kinds=scale,
                                      title=_summary_title(context, [primary, *others]),
                                      labels=labels, intervals={f"{level} confidence interval": ("lower", "upper")})
+        ratio = _ratio_words(rows)
+        if ratio:   # a rate or odds ratio is not a difference: its title, note and axis say so
+            summary = replace(summary, title=summary.title.replace("Estimated difference from", f"Estimated {ratio} to"))
         summary = context.standalone(summary, notes=[
-            f"Differences are each arm minus {context.reference}. {_levels_sentence([primary, *others])} "
+            (f"Ratios are each arm over {context.reference}." if ratio
+             else f"Differences are each arm minus {context.reference}.") + f" {_levels_sentence([primary, *others])} "
             "Models and degrees of freedom: see each analysis' section; DF is each analysis' own "
             "(Kenward–Roger, residual or Barnard–Rubin)."])
         populations = _populations_of([primary, *others], context)
@@ -685,14 +696,19 @@ def sensitivity(section: Section, context: EndpointContext, primary, others: Seq
         section.table(summary)
         favours = context.favours_words()
         section.figure(_figure(
-            "forest", f"Estimated difference from {context.reference} at {context.primary_visit} with {level} "
+            "forest", (f"Estimated {ratio} to" if ratio else "Estimated difference from")
+                      + f" {context.reference} at {context.primary_visit} with {level} "
                       "confidence intervals, every analysis",
             f"Forest plot of {len(rows)} estimated differences from {context.reference} at "
             f"{context.primary_visit} with {level} confidence intervals; a dashed line marks no difference; "
             "the primary analysis is marked.",
-            lambda: draw.forest_chart(rows, arms=context.arms, x_label=f"Difference from {context.reference} "
-                                      f"(arm minus {context.reference})", favours=favours,
-                                      label=lambda v: context.number_format.cell(v, "mean")), context,
+            lambda: draw.forest_chart(rows, arms=context.arms,
+                                      x_label=(f"{ratio.capitalize()} to {context.reference} (arm / {context.reference})"
+                                               if ratio else f"Difference from {context.reference} "
+                                               f"(arm minus {context.reference})"),
+                                      favours=None if ratio else favours, no_effect=1.0 if ratio else 0.0,
+                                      label=lambda v: context.number_format.cell(v, EFFECT_KIND if scale else "mean")),
+            context,
             note=f"Numbers at the right: estimate ({level} confidence interval). The primary analysis is in bold. "
                  + (f"Direction: {favours[0]} to the left, {favours[1]} to the right." if favours else "")))
     if not others:
@@ -707,6 +723,17 @@ def sensitivity(section: Section, context: EndpointContext, primary, others: Seq
             mmrm_sensitivity(child, context, analysis)
         else:
             generic_analysis(child, context, analysis)
+
+
+RATIO_EFFECTS = ("risk_ratio", "odds_ratio", "rate_ratio")
+
+
+def _ratio_words(rows: Sequence[Mapping[str, Any]]) -> str:
+    """'rate ratio' (or 'ratio' when they differ) when every row of the summary is a ratio; else ''."""
+    effects = {r.get("effect") for r in rows}
+    if not effects or not effects <= set(RATIO_EFFECTS):
+        return ""
+    return EFFECT_WORDS[next(iter(effects))] if len(effects) == 1 else "ratio"
 
 
 def _populations_of(analyses: Sequence[Mapping[str, Any]], context: EndpointContext) -> list[str]:
@@ -763,7 +790,7 @@ def _estimates_at_primary_visit(context: EndpointContext, analyses) -> list[dict
                              "arm": f"{row.get('arm')} (N = {n})" if n is not None else row.get("arm"),
                              "arm_code": row.get("arm"), "estimate": row.get("estimate"), "se": row.get("se"),
                              "df": row.get("df"), "lower": row.get("lower"), "upper": row.get("upper"),
-                             "p": row.get("p")})
+                             "p": row.get("p"), "effect": row.get("effect")})
     return rows
 
 
