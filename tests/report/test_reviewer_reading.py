@@ -339,3 +339,38 @@ def test_an_all_analyses_summary_of_rate_ratios_is_not_called_a_difference(resul
     figure = next(b.content for b in section.blocks if b.kind == "figure")
     assert figure.title.startswith("Estimated rate ratio to Placebo")
     assert dict(zip([c.label for c in table.header()], _texts(table)[0]))["Estimate"] == "0.620"
+
+
+def test_subgroup_tables_leave_out_columns_that_say_nothing(results):
+    # The demo's subgroup tables showed "Status: ok" and an empty "Note" on every row, the raw test name
+    # "equal_effects", and rate ratios of 0.85 as "0.9".
+    from trialcut.report.sections_responder import subgroups
+
+    endpoint = copy.deepcopy(results["endpoints"][0])
+    primary = _gee_analysis()
+    endpoint["analyses"] = [primary]
+    endpoint["subgroups"] = [{
+        "id": "sex", "label": "Sex", "caution": "Exploratory.", "notes": [],
+        "levels": {"title": "Effect within each level of Sex", "columns": [
+            "level", "arm", "reference", "n_arm", "n_reference", "status", "estimate", "se", "lower", "upper", "p",
+            "note"], "data": [["F", "Lorvatide 10 mg", "Placebo", 50, 49, "ok", 0.85, 0.17, 0.61, 1.19, 0.355, ""]]},
+        "interaction": {"title": "Test of equal effects across the levels of Sex",
+                        "columns": ["arm", "test", "statistic", "num_df", "p"],
+                        "data": [["Lorvatide 10 mg", "equal_effects", 0.96, 1, 0.327]]}}]
+    section = Section("subgroups", "Subgroups")
+    subgroups(section, _context(results), endpoint)
+    levels, interaction = _section_tables(section)[:2]
+    header = [c.label for c in levels.header()]
+    assert not {"Status", "Note", "Reference"} & set(header)
+    assert dict(zip(header, _texts(levels)[0]))["Estimate"] == "0.850"
+    assert "equal_effects" not in sum(_texts(interaction), [])
+
+
+def test_a_whole_period_primary_estimate_is_in_the_all_analyses_summary(results):
+    # The count endpoint's primary (a rate over the whole period) was missing from "every analysis".
+    from trialcut.report.sections_analysis import _estimates_at_primary_visit
+
+    primary = _gee_analysis()
+    primary["tables"]["differences"]["data"][0][2] = "Whole period"
+    rows = _estimates_at_primary_visit(_context(results), [primary])
+    assert len(rows) == 1 and rows[0]["label"].endswith(": whole period") and rows[0]["primary"]

@@ -781,9 +781,13 @@ def _estimates_at_primary_visit(context: EndpointContext, analyses) -> list[dict
         counts = context.population_counts(analysis.get("population"))
         differences = (analysis.get("tables") or {}).get("differences")
         for row in rows_as_dicts(differences):
-            if row.get("visit") in (context.primary_visit, None) and row.get("estimate") is not None:
+            # An estimate over the whole period (not at a scheduled visit) stands in for the primary visit,
+            # said in its label: a count endpoint's primary analysis was missing from the summary.
+            whole = row.get("visit") is not None and row.get("visit") not in context.visits
+            if (row.get("visit") in (context.primary_visit, None) or whole) and row.get("estimate") is not None:
                 n = counts.get(row.get("arm"))
-                rows.append({"label": label, "primary": analysis.get("role") == "primary",
+                rows.append({"label": f"{label}: {str(row.get('visit')).lower()}" if whole else label,
+                             "primary": analysis.get("role") == "primary",
                              "scope": "; ".join([str(analysis.get("role") or "sensitivity").capitalize(),
                                                  _short_label(context.estimand_label(analysis.get("estimand"))),
                                                  context.population_label(analysis.get("population"))]),

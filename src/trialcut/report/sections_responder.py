@@ -82,9 +82,11 @@ def subgroups(section: Section, context: EndpointContext, endpoint: Mapping[str,
         for note in entry.get("notes") or []:
             child.paragraph(str(note))
         child.table(from_results_table(entry["levels"], slug=f"{context.slug}_subgroup_{entry.get('id')}",
-                                       number_format=context.number_format, title=entry["levels"].get("title")))
+                                       number_format=context.number_format, title=entry["levels"].get("title"),
+                                       **_subgroup_layout(entry["levels"], primary)))
         child.table(from_results_table(entry["interaction"], slug=f"{context.slug}_subgroup_{entry.get('id')}_test",
                                        number_format=context.number_format,
+                                       hide=("test",) if _only_test(entry["interaction"], "equal_effects") else (),
                                        # Every endpoint has this test per factor: the title names the endpoint.
                                        title=context.title(str(entry["interaction"].get("title")
                                                                or "Test of equal effects across the levels"),
@@ -92,6 +94,26 @@ def subgroups(section: Section, context: EndpointContext, endpoint: Mapping[str,
         rows = _forest_rows(entry, primary, context)
         if rows:
             child.figure(_forest(entry, rows, primary, context))
+
+
+def _only_test(table: Mapping[str, Any], name: str) -> bool:
+    """Whether every row is the test the title already names (its column then says nothing)."""
+    return all(row.get("test") == name for row in rows_as_dicts(table))
+
+
+def _subgroup_layout(levels: Mapping[str, Any], primary) -> dict[str, Any]:
+    """Columns that say nothing (every status 'ok', every note empty, the reference arm) left out, and a
+    binary or count effect with the decimals of proportions and ratios (0.85, not 0.9)."""
+    columns = list(levels.get("columns") or [])
+    rows = levels.get("data") or []
+
+    def constant(name, values):
+        return name in columns and all(r[columns.index(name)] in values for r in rows)
+    hide = [c for c, values in (("status", ("ok",)), ("note", ("", None)), ("reference", ())) if c in columns
+            and (constant(c, values) or c == "reference")]
+    kinds = ({c: "proportion" for c in ("estimate", "se", "lower", "upper") if c in columns}
+             if (primary or {}).get("method") in ("gee", "rate", "proportions") else {})
+    return {"hide": tuple(hide), "kinds": kinds, "labels": {"n_arm": "N in arm", "n_reference": "N in reference arm"}}
 
 
 def _effect(primary) -> str:
