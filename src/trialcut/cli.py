@@ -9,6 +9,7 @@ from __future__ import annotations
 import argparse
 import contextlib
 import importlib
+import os
 import signal
 import sys
 import threading
@@ -190,7 +191,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         if debug:
             traceback.print_exc()
             return 3
-        log = Path(tempfile.gettempdir()) / f"trialcut-fault-{time.strftime('%Y%m%dT%H%M%S')}.log"
+        # The process id keeps two faults of the same second (two runs at once) from sharing a log.
+        log = Path(tempfile.gettempdir()) / f"trialcut-fault-{time.strftime('%Y%m%dT%H%M%S')}-{os.getpid()}.log"
         log.write_text(traceback.format_exc(), encoding="utf-8")
         print(f"internal error: this is a fault in trialcut, not in your input; details in {log}",
               file=sys.stderr)
