@@ -374,3 +374,24 @@ def test_a_whole_period_primary_estimate_is_in_the_all_analyses_summary(results)
     primary["tables"]["differences"]["data"][0][2] = "Whole period"
     rows = _estimates_at_primary_visit(_context(results), [primary])
     assert len(rows) == 1 and rows[0]["label"].endswith(": whole period") and rows[0]["primary"]
+
+
+def test_a_table_of_rate_ratios_is_titled_as_ratios(results):
+    from trialcut.report.sections_analysis import generic_analysis
+
+    analysis = _gee_analysis()
+    analysis["tables"]["differences"]["data"][0][10] = "rate_ratio"
+    section = Section("rate", "Rate")
+    generic_analysis(section, _context(results), analysis)
+    titles = [t.title for t in _section_tables(section)]
+    assert any(t.startswith("Rate ratios to Placebo by visit") for t in titles), titles
+    assert not any(t.startswith("Differences from") for t in titles)
+
+
+def test_the_timing_table_names_subgroup_steps_by_the_endpoint_label(results):
+    # The demo's appendix listed "Subgroups fbs_change": an identifier where a reader expects words.
+    from trialcut.report.sections_audit import _step_labels
+
+    label = _step_labels(results)
+    endpoint = results["endpoints"][0]
+    assert label(f"subgroups {endpoint['id']}") == f"Subgroup analyses of {endpoint['label']}"

@@ -858,9 +858,11 @@ def generic_analysis(section: Section, context: EndpointContext, analysis) -> No
     detail = []
     for name, source in (analysis.get("tables") or {}).items():
         if name == "differences":
+            ratio = _ratio_words(rows_as_dicts(source))
+            what = (f"{ratio.capitalize()}s to {context.reference} by visit" if ratio
+                    else f"Differences from {context.reference} by visit")
             section.table(_differences_table(context, source, f"{analysis.get('id')}_differences",
-                                             context.title(f"Differences from {context.reference} by visit",
-                                                           analysis),
+                                             context.title(what, analysis),
                                              f"{level} confidence interval", analysis=analysis))
             continue
         if name == "pooling":

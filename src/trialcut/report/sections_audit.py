@@ -89,6 +89,8 @@ def _step_labels(results: Mapping[str, Any]):
             return f"Analysis: {analyses[name]}"
         if kind == "endpoint" and name in endpoints:
             return f"All analyses of {endpoints[name]}"
+        if kind == "subgroups" and name in endpoints:
+            return f"Subgroup analyses of {endpoints[name]}"
         if step == "analyses":
             return "All analyses of the plan"
         return step[:1].upper() + step[1:]
