@@ -395,3 +395,28 @@ def test_the_timing_table_names_subgroup_steps_by_the_endpoint_label(results):
     label = _step_labels(results)
     endpoint = results["endpoints"][0]
     assert label(f"subgroups {endpoint['id']}") == f"Subgroup analyses of {endpoint['label']}"
+
+
+def test_comparison_gives_each_endpoint_its_table_and_decimals(results):
+    # The demo's comparison put three endpoints' estimates in one table at the score's 1 decimal: risk
+    # differences read 0.2 and rate ratios 0.8, with no column saying which endpoint a row was.
+    from trialcut.report.compare import _estimates_section
+
+    def row(endpoint, effect, estimate):
+        return {"endpoint": endpoint, "analysis": "a", "label": "An analysis", "role": "primary", "arm": "Lorvatide 10 mg",
+                "reference": "Placebo", "visit": "Week 12", "decimals": 0, "effect": effect,
+                "estimate_a": estimate, "estimate_b": estimate, "se_a": 0.08, "se_b": 0.06, "df_a": None, "df_b": None,
+                "lower_a": 0.1, "upper_a": 0.4, "lower_b": 0.1, "upper_b": 0.4, "n_a": "87/85", "n_b": "100/97",
+                "change": 0.0}
+    two = copy.deepcopy(results)
+    second = copy.deepcopy(two["endpoints"][0])
+    second["id"], second["label"] = "responder", "Responders (invented)"
+    two["endpoints"].append(second)
+    section = _estimates_section([row(two["endpoints"][0]["id"], None, -2.71), row("responder", "risk_difference", 0.238)],
+                                 NumberFormat.from_results(results), two)
+    tables = _section_tables(section)
+    assert len(tables) == 2 and tables[1].title.endswith(": Responders (invented)")
+    header = [c.label for c in tables[1].header()]
+    assert dict(zip(header, _texts(tables[1])[0]))["Estimate A"] == "0.238"
+    score = NumberFormat.from_results(results).cell(-2.71, "mean")   # the score keeps its own decimals
+    assert dict(zip([c.label for c in tables[0].header()], _texts(tables[0])[0]))["Estimate A"] == score

@@ -206,7 +206,7 @@ def _estimates(results: Mapping[str, Any]) -> dict[tuple, dict[str, Any]]:
                 out[key] = {"endpoint": endpoint.get("id"), "analysis": analysis.get("id"),
                             "label": analysis.get("label") or analysis.get("id"), "role": analysis.get("role"),
                             "arm": row.get("arm"), "reference": row.get("reference"), "visit": row.get("visit"),
-                            "decimals": endpoint.get("decimals"),
+                            "decimals": endpoint.get("decimals"), "effect": row.get("effect"),
                             "n": f"{n_arm}/{n_reference}" if n_arm is not None and n_reference is not None else None,
                             "n_analysed": fit.get("n_subjects"),
                             **{k: row.get(k) for k in ("estimate", "se", "df", "lower", "upper", "p")}}
@@ -235,8 +235,8 @@ def compare_estimates(results_a: Mapping[str, Any], results_b: Mapping[str, Any]
         both = a or b
         change = (b["estimate"] - a["estimate"]
                   if a.get("estimate") is not None and b.get("estimate") is not None else None)
-        rows.append({**{k: both[k] for k in ("endpoint", "analysis", "label", "role", "arm", "reference", "visit",
-                                             "decimals")},
+        rows.append({**{k: both.get(k) for k in ("endpoint", "analysis", "label", "role", "arm", "reference",
+                                                 "visit", "decimals", "effect")},
                      **{f"{k}_a": a.get(k) for k in ESTIMATE_KEYS}, **{f"{k}_b": b.get(k) for k in ESTIMATE_KEYS},
                      "change": change})
     return rows
@@ -551,27 +551,42 @@ def _estimates_section(rows: Sequence[Mapping[str, Any]], endpoint_format: Numbe
                       f"beside run B; the change is B minus A. N is the number of participants of the analysis' "
                       f"population in the arm and in the reference arm; the interval is the {level} confidence "
                       "interval.")
+    # One table per endpoint: a risk difference or rate ratio shown with a score's 1 decimal reads 0.2 or
+    # 0.8, and rows of three endpoints in one table do not say which endpoint each belongs to.
+    labels = {e.get("id"): e.get("label") or e.get("id") for e in results_b.get("endpoints") or []}
+    groups = list(dict.fromkeys(r.get("endpoint") for r in rows))
+    for endpoint in groups:
+        mine = [r for r in rows if r.get("endpoint") == endpoint]
+        scale = "proportion" if any(r.get("effect") for r in mine) else None
+        title = "Differences from the reference arm in both runs" + (
+            f": {labels.get(endpoint, endpoint)}" if len(groups) > 1 else "")
+        section.table(_estimates_table(mine, endpoint_format, title, f"estimates_compared_{groups.index(endpoint) + 1}"
+                                       if len(groups) > 1 else "estimates_compared", scale))
+    return section
+
+
+def _estimates_table(rows, endpoint_format: NumberFormat, title: str, slug: str, scale: str | None) -> ReportTable:
+    mean, sd = (scale, scale) if scale else ("mean", "sd")
     table = from_records(rows, ("label", "arm", "n_a", "estimate_a", "se_a", "df_a", "lower_a", "upper_a",
                                 "n_b", "estimate_b", "se_b", "df_b", "lower_b", "upper_b", "change"),
-                         slug="estimates_compared", title="Differences from the reference arm in both runs",
+                         slug=slug, title=title,
                          number_format=endpoint_format,
                          kinds={"label": "text", "arm": "text", "n_a": "text", "n_b": "text",
-                                "estimate_a": "mean", "estimate_b": "mean", "se_a": "sd", "se_b": "sd",
-                                "df_a": "df", "df_b": "df", "change": "mean"})
+                                "estimate_a": mean, "estimate_b": mean, "se_a": sd, "se_b": sd,
+                                "df_a": "df", "df_b": "df", "change": mean})
     display = []
     for side in ("a", "b"):
         upper = side.upper()
         display += [ReportColumn((f"n_{side}",), f"N in {upper}", "text"),
-                    ReportColumn((f"estimate_{side}",), f"Estimate {upper}", "mean"),
-                    ReportColumn((f"se_{side}",), f"Standard error {upper}", "sd"),
+                    ReportColumn((f"estimate_{side}",), f"Estimate {upper}", mean),
+                    ReportColumn((f"se_{side}",), f"Standard error {upper}", sd),
                     ReportColumn((f"df_{side}",), f"DF {upper}", "df"),
-                    ReportColumn((f"lower_{side}", f"upper_{side}"), f"Confidence interval {upper}", "mean")]
+                    ReportColumn((f"lower_{side}", f"upper_{side}"), f"Confidence interval {upper}", mean)]
     display = [ReportColumn(("label",), "Analysis", "text", row_header=True), ReportColumn(("arm",), "Arm", "text"),
-               *display, ReportColumn(("change",), "B − A", "mean")]
-    section.table(_replace_display(table, display, note="B − A: the estimate of run B minus that of run A. "
-                                                        "Abbreviations: DF: degrees of freedom; N: participants "
-                                                        "in the arm / in the reference arm."))
-    return section
+               *display, ReportColumn(("change",), "B − A", mean)]
+    return _replace_display(table, display, note="B − A: the estimate of run B minus that of run A. "
+                                                 "Abbreviations: DF: degrees of freedom; N: participants "
+                                                 "in the arm / in the reference arm.")
 
 
 def _replace_display(table: ReportTable, display: Sequence[ReportColumn], note: str = "") -> ReportTable:
