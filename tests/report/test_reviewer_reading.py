@@ -420,3 +420,19 @@ def test_comparison_gives_each_endpoint_its_table_and_decimals(results):
     assert dict(zip(header, _texts(tables[1])[0]))["Estimate A"] == "0.238"
     score = NumberFormat.from_results(results).cell(-2.71, "mean")   # the score keeps its own decimals
     assert dict(zip([c.label for c in tables[0].header()], _texts(tables[0])[0]))["Estimate A"] == score
+
+
+def test_the_pattern_chart_key_with_visits_not_yet_due_stays_inside_the_figure():
+    # At the interim cut the key gained "light grey: visit not yet due" and ran past the right edge.
+    from trialcut.report import figures
+
+    drawn = []
+    original = figures._svg
+    try:
+        figures._svg = lambda figure: drawn.append(figure) or original(figure)
+        figures.pattern_chart([{"arm": "Lorvatide 20 mg", "pattern": "XX--", "count": 11},
+                               {"arm": "Placebo", "pattern": "X.XX", "count": 1}],
+                              arms=["Placebo", "Lorvatide 20 mg"], visits=["Week 2", "Week 4", "Week 8", "Week 12"])
+    finally:
+        figures._svg = original
+    assert drawn and figures.clipped_texts(drawn[0]) == [], figures.clipped_texts(drawn[0])

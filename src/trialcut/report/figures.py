@@ -295,10 +295,11 @@ def pattern_chart(rows: Sequence[Mapping[str, Any]], *, arms, visits) -> bytes:
         axes.spines[:].set_visible(False)
         axes.tick_params(length=0)
         not_due = any(NOT_YET_DUE_MARK in str(r.get("pattern") or "") for r in ordered)
-        axes.set_xlabel("Filled: value observed; open: missing" + ("; light grey: visit not yet due at the cut-off"
-                        if not_due else "") + ". Number at right: participants.")
+        # Short words and a smaller size: with the not-yet-due tile the key ran past the figure's right edge.
+        axes.set_xlabel("Filled: observed; open: missing" + ("; light grey: not yet due at the cut-off"
+                        if not_due else "") + ".\nNumber at right: participants.", fontsize=8)
 
-    return _draw(draw, height=height)
+    return _draw(draw, height=height, layout=None)     # fixed margins, widened by make_room until the key fits
 
 
 def _tile(x: float, y: float, colour: str, filled: bool):
