@@ -1090,11 +1090,14 @@ class TippingReading:
             "δ* = δᵢ + (α − pᵢ)(δᵢ₊₁ − δᵢ)/(pᵢ₊₁ − pᵢ).",
         ]
         if base is not None:
-            lower = base["estimate"] < 0
+            below = base["estimate"] < 0
             better = self.context.better
+            # The plan's better key says which way hurts the treatment; only without it does the
+            # sign of the estimate stand in (an arm can sit on the worse side of the reference).
+            lower = better == "lower" if better in ("lower", "higher") else below
             words.append(
-                f"Direction: the estimated differences at no shift are {'negative' if lower else 'positive'} "
-                f"(the active arms {'below' if lower else 'above'} {self.context.reference}"
+                f"Direction: the estimated differences at no shift are {'negative' if below else 'positive'} "
+                f"(the active arms {'below' if below else 'above'} {self.context.reference}"
                 + (f", and {better} values are better for this endpoint" if better else "") + "). "
                 f"A {'positive' if lower else 'negative'} δ (the active arms' imputed values made "
                 f"{'higher' if lower else 'lower'}) and a {'negative' if lower else 'positive'} δᵣ "

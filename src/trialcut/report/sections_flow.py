@@ -17,6 +17,12 @@ from trialcut.report.tables import from_results_table, rows_as_dicts
 _DUE_PARTS_PREFIXES = ("observed_", "composite_", "missing_")
 _LEFT_OUT_STEPS = ("no_visit_due", "all_values_set_aside", "all_due_values_missing")
 LONGEST_LISTING = 40
+# The same missing value can sit under different events in two estimands' tables; a reader must
+# be told why (the rule itself is in DEVELOPERS.md, "governing" event).
+ATTRIBUTION_NOTE = ("A missing value is counted under one intercurrent event only: the earliest event whose "
+                    "strategy in this estimand changes the outcome (hypothetical or composite), or else the "
+                    "earliest event. The same missing value can therefore sit under different events in the "
+                    "tables of different estimands.")
 
 
 def flow_section(results: Mapping[str, Any], number_format: NumberFormat) -> Section:
@@ -92,7 +98,8 @@ def _flow_table(section: Section, results, endpoint, entry, slug: str, number_fo
         shown, slug=slug, number_format=number_format, hide=("step",),
         title=(f"Participant flow ({_endpoint_words(endpoint)}): {who}" if name_endpoint else f"Participant flow: {who}"),
         labels={"visit": "Visit", "label": "Step"},
-        kinds={"visit": "text", "label": "text", **{arm: "count" for arm in arms}}))
+        kinds={"visit": "text", "label": "text", **{arm: "count" for arm in arms}},
+        footnotes=(ATTRIBUTION_NOTE,)))
     _left_out(part, endpoint, entry, slug, number_format)
 
 
@@ -108,7 +115,7 @@ def _left_out(section: Section, endpoint, entry, slug: str, number_format: Numbe
     listing = next((a.get("left_out") for a in analyses if a.get("left_out")), None)
     if not listing or not listing.get("data"):
         return
-    names = ", ".join(a.get("id") for a in analyses)
+    names = ", ".join(str(a.get("label") or a.get("id")) for a in analyses)
     count = len(listing["data"])
     table = from_results_table(listing, slug=f"{slug}_left_out", number_format=number_format,
                                title=f"Participants without any value used ({names})",

@@ -38,7 +38,7 @@ def multiplicity_by_look(section: Section, results: Mapping[str, Any], number_fo
     hidden = ("tested", "id", *(("weight",) if len(weights) <= 1 else ()))
     section.table(from_results_table(
         hypotheses, slug="multiplicity", title=hypotheses.get("title") or "Tests of the hypotheses",
-        number_format=number_format, hide=hidden,
+        number_format=number_format, hide=hidden, wide=True,
         labels={"id": "Hypothesis", "analysis": "Analysis", "weight": "Weight", "p": "Nominal p-value",
                 "local_alpha": "Alpha held", "boundary_z": "Boundary |z|", "boundary_p": "Boundary p-value",
                 "crossed_alone": "Crosses at its own initial alpha", "crossed_adjusted": decision},
