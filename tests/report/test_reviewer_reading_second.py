@@ -84,3 +84,79 @@ def test_tipping_direction_follows_the_plans_better_key(results, better, estimat
     cells = [{"arm": "Active", "shift": 0.0, "reference_shift": 0.0, "estimate": estimate, "p": 0.01}]
     words = " ".join(TippingReading(context, {"options": {}}, cells, 0.05).method_words())
     assert f"{against} (the active arms' imputed values made" in words
+
+
+# --------------------------------------------------------------------------- binary endpoint
+def test_responders_by_arm_and_visit_count_ones_over_non_missing():
+    # Checked against pandas' own crosstab of the same invented 0/1 values (a general-purpose library).
+    import numpy as np
+    import pandas as pd
+
+    from trialcut.stats.descriptive import responders_by_arm_visit
+
+    rng = np.random.default_rng(11)
+    frame = pd.DataFrame({"s": np.repeat(np.arange(40), 2), "a": np.repeat(["P", "A"], 40),
+                          "v": np.tile(["W1", "W2"], 40)})
+    frame["r"] = np.where(rng.random(80) < 0.2, np.nan, (rng.random(80) < 0.4).astype(float))
+    table = responders_by_arm_visit(frame, subject="s", arm="a", visit="v", column="r")
+    kept = frame.dropna(subset=["r"])
+    expected = pd.crosstab([kept["a"], kept["v"]], kept["r"])
+    for row in table.itertuples():
+        assert row.responders == expected.loc[(row.arm, row.visit), 1.0]
+        assert row.n == expected.loc[(row.arm, row.visit)].sum()
+        assert row.proportion == pytest.approx(row.responders / row.n)
+
+
+def _binary_results(results) -> dict:
+    changed = copy.deepcopy(results)
+    endpoint = changed["endpoints"][0]
+    endpoint.update(type="binary", label="Response, score improved by 8 points (lower is better)")
+    endpoint["descriptive"] = {"title": "Responders", "columns": ["arm", "visit", "n", "not_yet_due", "responders",
+                                                                   "proportion"],
+                               "data": [["Placebo", "Week 12", 40, 0, 10, 0.25],
+                                        ["Lorvatide 20 mg", "Week 12", 50, 0, 30, 0.6]]}
+    return changed
+
+
+def test_a_binary_endpoint_shows_responders_and_plots_the_proportion_not_the_score(results):
+    from trialcut.report.sections_analysis import descriptive
+
+    changed = _binary_results(results)
+    context = EndpointContext(changed, changed["endpoints"][0], NumberFormat.from_results(changed))
+    assert context.y_label == "Proportion responding"
+    section = Section("descriptive", "Descriptive statistics")
+    descriptive(section, context)
+    table = _section_tables(section)[0]
+    labels = [c.label for c in table.header()]
+    assert "Responders" in labels and "Proportion responding" in labels and "Mean" not in " ".join(labels)
+    figures = [b.content for b in section.blocks if b.kind == "figure"]
+    assert [f.title.startswith("Observed proportion responding") for f in figures] == [True]   # no trajectories
+    # A continuous endpoint keeps its score summary, its axis and its trajectories.
+    plain = EndpointContext(results, results["endpoints"][0], NumberFormat.from_results(results))
+    assert plain.y_label != "Proportion responding"
+    section = Section("descriptive", "Descriptive statistics")
+    descriptive(section, plain)
+    assert len([b for b in section.blocks if b.kind == "figure"]) == 2
+
+
+def test_a_run_of_a_binary_endpoint_records_its_type_and_its_responders(tmp_path):
+    # Responders counted by hand from the bad-input cases' base cut with plain pandas.
+    import pandas as pd
+
+    from tests.run.test_responder_run import BASE, _run
+
+    endpoint = {"id": "responder", "label": "Responder", "type": "binary", "parameter": "FBS", "analysed": "change",
+                "primary_visit": "Week 12",
+                "response": {"threshold": -4, "direction": "at_most", "missing": "leave_out"},
+                "analyses": {"primary": {"id": "at_week_12", "label": "Week 12", "method": "proportions",
+                                         "estimand": "primary"}}}
+    entry = _run(tmp_path, [endpoint])["endpoints"][0]
+    assert entry["type"] == "binary"
+    shown = pd.DataFrame(entry["descriptive"]["data"], columns=entry["descriptive"]["columns"])
+    assert {"responders", "proportion"} <= set(shown.columns) and "mean" not in shown.columns
+    data = pd.read_csv(BASE / "data.csv")
+    week12 = data[(data["AVISIT"] == "Week 12") & (data["FASFL"] == "Y") & data["CHG"].notna()]
+    expected = week12.assign(r=week12["CHG"] <= -4).groupby("TRT01P")["r"].agg(["sum", "size"])
+    at_12 = shown[shown["visit"] == "Week 12"].set_index("arm")
+    for arm, row in expected.iterrows():
+        assert at_12.loc[arm, "responders"] == row["sum"] and at_12.loc[arm, "n"] == row["size"]

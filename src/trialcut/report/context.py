@@ -42,6 +42,7 @@ class EndpointContext:
         self.primary_visit = endpoint.get("primary_visit")
         self.label = endpoint.get("label") or self.slug
         self.analysed = endpoint.get("analysed", "change")
+        self.type = endpoint.get("type") or "continuous"   # results made before the key: continuous
         self.settings = plan.get("report") or {}
         self.columns = plan.get("columns") or {}
         run = results.get("run") or {}
@@ -58,6 +59,8 @@ class EndpointContext:
     @property
     def y_label(self) -> str:
         """The axis title of a value plotted over visits: what is plotted, not the score's range."""
+        if self.type == "binary":   # what is plotted is the response, not the score it may come from
+            return "Proportion responding"
         name = re.sub(r"\s*\([^()]*\)\s*$", "", self.label).strip()
         if self.analysed == "change":
             if not name.lower().startswith("change"):

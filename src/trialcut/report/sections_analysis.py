@@ -118,7 +118,10 @@ def missing_data(section: Section, context: EndpointContext) -> None:
                    "is not counted as missing.",
                    "Due = observed + missing. Set aside: values observed after an intercurrent event that the "
                    "primary estimand's strategy does not use; they are part of the observed count, and the "
-                   "primary analysis treats them as missing (see the participant-flow table)."]))
+                   "primary analysis treats them as missing (see the participant-flow table).",
+                   *(["A missing value is a due visit without the value the response is read from; the "
+                      "endpoint's rule counts it as non-response or leaves it out (see the table of "
+                      "responders)."] if context.type == "binary" else [])]))
     patterns = endpoint.get("missing_patterns")
     if patterns:
         section.paragraph(
@@ -173,6 +176,9 @@ def _marks(pattern: Any) -> Any:
 # --------------------------------------------------------------------------- descriptive
 def descriptive(section: Section, context: EndpointContext) -> None:
     source = context.endpoint.get("descriptive")
+    if source and context.type == "binary":
+        _responders(section, context, source)
+        return   # the trajectories of a score say nothing about the response; none is drawn
     if not source:
         section.notice("The results carry no descriptive statistics for this endpoint.")
     else:
@@ -190,6 +196,38 @@ def descriptive(section: Section, context: EndpointContext) -> None:
             notes=["Observed data only (no imputation, no estimand strategy applied)."]))
         section.figure(_observed_means_figure(context, rows_as_dicts(source)))
     section.figure(_trajectories_figure(context))
+
+
+def _responders(section: Section, context: EndpointContext, source: Mapping[str, Any]) -> None:
+    """A binary endpoint's observed response: responders over those with a response, and its figure."""
+    population = _lower_first_word(context.population_label(context.population))
+    section.paragraph(
+        f"The response as derived for this endpoint at each visit in the {population}: responders over the "
+        "participants with a response (n). Nothing is imputed or modelled here; the endpoint's rule for a due "
+        "visit without a value (non-response or left out) is already applied.")
+    section.table(context.standalone(from_results_table(
+        source, slug=f"{context.slug}_descriptive", number_format=context.number_format,
+        title=context.title("Responders by arm and visit, observed"),
+        labels={"n": "n with a response", "not_yet_due": "Not yet due", "responders": "Responders",
+                "proportion": "Proportion responding"},
+        kinds={"n": "count", "not_yet_due": "count", "responders": "count", "proportion": "proportion"}),
+        notes=["Observed data only (no imputation, no model)."]))
+    points = []
+    for row in rows_as_dicts(source):
+        n, share = row.get("n"), row.get("proportion")
+        if share is None or not n or (isinstance(share, float) and math.isnan(share)):
+            continue
+        half = math.sqrt(share * (1 - share) / n)
+        points.append({"arm": row.get("arm"), "visit": row.get("visit"), "centre": share,
+                       "lower": share - half, "upper": share + half})
+    section.figure(_figure(
+        "observed_means", "Observed proportion responding ± standard error by arm and visit",
+        f"Line chart of the observed proportion responding ({context.label}) with bars of one standard error, "
+        f"for {len(context.arms)} arms at {len(context.visits)} visits.",
+        lambda: draw.profile_chart(points, arms=context.arms, visits=context.visits,
+                                   visit_days=context.visit_days, y_label=context.y_label), context,
+        note=f"Responses observed in the {population}; n per arm and visit as in the table of responders. "
+             "Standard error: √(p(1 − p)/n)."))
 
 
 def _variable_words(context: EndpointContext) -> dict[str, str]:

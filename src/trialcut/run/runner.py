@@ -83,8 +83,6 @@ def _analysis_population(plan, analysis) -> str:
 
 
 def _run_endpoint(plan, cut, endpoint, context, timer, run_warnings) -> dict[str, Any]:
-    from trialcut.stats.descriptive import describe_by_arm_visit
-
     primary = endpoint.analyses.primary
     primary_population = _analysis_population(plan, primary)
     observed = cut.analysis_data(endpoint.id, population_id=primary_population)
@@ -98,11 +96,8 @@ def _run_endpoint(plan, cut, endpoint, context, timer, run_warnings) -> dict[str
     entry: dict[str, Any] = {
         "id": endpoint.id, "label": endpoint.label, "analysed": endpoint.analysed,
         "primary_visit": endpoint.primary_visit, "decimals": endpoint.decimals, "better": endpoint.better,
-        "population": primary_population,
-        "descriptive": table(flow.with_not_yet_due(_with_baseline_rows(
-                                 describe_by_arm_visit(observed.frame, columns=tuple(columns), **roles),
-                                 observed, plan.visits.baseline, roles["arms"]), primary_flow),
-                             "Summary statistics by arm and visit (observed data)"),
+        "type": endpoint.type, "population": primary_population,
+        "descriptive": _descriptive(plan, endpoint, observed, columns, roles, primary_flow),
         "missing_by_visit": table(flow.missing_by_visit(primary_flow, primary_data.arms),
                                   "Missing outcomes by arm and visit (visits not yet due apart)"),
         "missing_patterns": table(flow.patterns(primary_data, events, primary_data.arms),
@@ -118,6 +113,20 @@ def _run_endpoint(plan, cut, endpoint, context, timer, run_warnings) -> dict[str
     with timer.time(f"subgroups {endpoint.id}"):   # the plan's subgroup factors (trialcut.run.subgroups)
         entry["subgroups"] = subgroup_results(plan, cut, endpoint, context, METHODS, primary_population)
     return entry
+
+
+def _descriptive(plan, endpoint, observed, columns, roles, primary_flow) -> dict[str, Any]:
+    """Observed values by arm and visit; for a binary endpoint its derived response, not the score."""
+    from trialcut.stats.descriptive import describe_by_arm_visit, responders_by_arm_visit
+
+    if endpoint.type == "binary":
+        derived = derive_outcome(endpoint, observed)
+        summary = responders_by_arm_visit(derived.frame, column=derived.outcome, **roles)
+        return table(flow.with_not_yet_due(summary, primary_flow),
+                     "Responders by arm and visit (observed data)")
+    summary = describe_by_arm_visit(observed.frame, columns=tuple(columns), **roles)
+    return table(flow.with_not_yet_due(_with_baseline_rows(summary, observed, plan.visits.baseline, roles["arms"]),
+                                       primary_flow), "Summary statistics by arm and visit (observed data)")
 
 
 def _with_baseline_rows(summary: pd.DataFrame, observed, label: str, arms: list) -> pd.DataFrame:

@@ -29,6 +29,7 @@ MISSING_MARK = "."
 SUMMARY_COLUMNS = ("arm", "visit", "variable", "n", "mean", "sd", "median", "q1", "q3", "min", "max")
 MISSING_COLUMNS = ("arm", "visit", "expected", "observed", "missing", "percent_missing")
 PATTERN_COLUMNS = ("arm", "pattern", "count", "share", "monotone")
+RESPONSE_COLUMNS = ("arm", "visit", "n", "responders", "proportion")
 
 
 def describe_by_arm_visit(
@@ -62,6 +63,39 @@ def describe_by_arm_visit(
     table = pd.DataFrame(rows, columns=list(SUMMARY_COLUMNS))
     table.attrs["quantile_definition"] = QUANTILE_DEFINITION
     return table
+
+
+def responders_by_arm_visit(
+    frame: pd.DataFrame,
+    *,
+    subject: str,
+    arm: str,
+    visit: str,
+    column: str,
+    visits: Sequence | None = None,
+    arms: Sequence | None = None,
+) -> pd.DataFrame:
+    """n with a 0/1 response, responders and their proportion per arm x visit.
+
+    A binary endpoint's mean and quartiles of 0/1 values say nothing a reader needs; the count
+    of responders over those with a response is the usual summary (common practice).  A cell
+    with no response has n = 0 and a NaN proportion.
+    """
+    _require_columns(frame, (subject, arm, visit, column))
+    _require_one_row_per_visit(frame, subject, visit)
+    visits = _ordered_levels(frame, visit, visits)
+    arms = _ordered_levels(frame, arm, arms)
+    groups = {key: part for key, part in frame.groupby([arm, visit], sort=False, observed=True)}
+    rows = []
+    for arm_level in arms:
+        for visit_level in visits:
+            part = groups.get((arm_level, visit_level))
+            values = np.array([], dtype=float) if part is None else _numeric(part[column], column)
+            values = values[~np.isnan(values)]
+            responders = int((values == 1).sum())
+            rows.append((arm_level, visit_level, int(values.size), responders,
+                         responders / values.size if values.size else float("nan")))
+    return pd.DataFrame(rows, columns=list(RESPONSE_COLUMNS))
 
 
 def missing_by_visit(
