@@ -201,6 +201,7 @@ def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: P
         "id": run_id, "study_id": plan.study.id, "cut": cut_label, "started_utc": started,
         "finished_utc": None, "tool_version": __version__, "unlocked": lock["status"] != "locked",
         "dummy_arms_seed": dummy_arms_seed, "seed": plan.seed, "cut_off": cut.summary()["cut_off"]["date"],
+        "earlier_looks": earlier_looks(out_root / "registry.sqlite", plan, cut_label),
     }
     executor, close_executor = _executor(workers, scheduler)
     try:
@@ -302,6 +303,36 @@ def _record(out_root: Path, plan, cut_label, run_id, results, audit, loaded, raw
                           on_wait=_registry_wait_printer(out_root / "registry.sqlite"))
     _print_chain_head(recorded.row)
     return Path(recorded.folder)
+
+
+def earlier_looks(registry: Path, plan, cut_label: str) -> list[dict[str, Any]]:
+    """The information fraction each earlier planned look reached, read from its latest recorded run.
+
+    A later look recomputes its boundaries with these fractions, so that it and the interim
+    report agree about the same look; a look with no run in the registry is left out (the run
+    then uses its planned fraction and says so).
+    """
+    from trialcut.record.registry import list_runs
+
+    spending = getattr(plan.multiplicity, "alpha_spending", None)
+    looks = [str(look.cut) for look in spending.looks] if spending else []
+    if cut_label not in looks or not Path(registry).is_file():
+        return []
+    found = []
+    for cut in looks[:looks.index(cut_label)]:
+        rows = list_runs(Path(registry), study=plan.study.id, cut=cut)
+        rows = [r for r in rows if not r.dummy_arms] or rows   # real treatment codes first
+        for row in reversed(rows):
+            try:
+                results = json.loads((row.folder_path(Path(registry)) / "results.json").read_text(encoding="utf-8"))
+            except (OSError, ValueError):
+                continue   # a folder moved or unreadable: the next older run of that cut may serve
+            facts = (results.get("multiplicity") or {}).get("sequential") or {}
+            if facts.get("planned_look") and facts.get("cut") == cut:
+                found.append({"cut": cut, "run_id": row.record_id,
+                              "information_reached": facts.get("information_reached")})
+                break
+    return found
 
 
 def check_registry(out_root: Path) -> None:

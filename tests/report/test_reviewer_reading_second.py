@@ -160,3 +160,51 @@ def test_a_run_of_a_binary_endpoint_records_its_type_and_its_responders(tmp_path
     at_12 = shown[shown["visit"] == "Week 12"].set_index("arm")
     for arm, row in expected.iterrows():
         assert at_12.loc[arm, "responders"] == row["sum"] and at_12.loc[arm, "n"] == row["size"]
+
+
+# --------------------------------------------------------------------------- group-sequential consistency
+def test_a_later_look_recomputes_an_earlier_look_at_the_fraction_it_reached():
+    # The demo's final report recomputed look 1 at 0.500 while the interim had used 0.493. Expected
+    # boundaries come from the statistics layer (checked against published tables in
+    # tests/external/test_group_sequential_reference.py).
+    from trialcut.run.interim import interim_multiplicity
+    from trialcut.run.tables import frame_of
+    from trialcut.stats.group_sequential import boundaries
+
+    from tests.run.test_interim import _cut, _hypotheses, _plan
+
+    run = {"cut": "final", "earlier_looks": [{"cut": "interim", "run_id": "r1", "information_reached": 0.493}]}
+    out = interim_multiplicity(_plan(), _cut(n_due=93), {"run": run}, _hypotheses(0.02, 0.03))
+    facts = out["sequential"]
+    assert facts["fractions_used"] == [0.493, 1.0]
+    expected = boundaries([0.493, 1.0], alpha=0.05, spending="obrien_fleming_type")
+    assert frame_of(facts["boundaries"])["boundary_z"].tolist() == pytest.approx(list(expected.z))
+    assert any("0.493, the fraction it reached (run r1)" in c for c in facts["cautions"])
+    # Without a recorded earlier run the planned fraction is used, and the report says so.
+    out = interim_multiplicity(_plan(), _cut(n_due=93), {"run": {"cut": "final"}}, _hypotheses(0.02, 0.03))
+    assert out["sequential"]["fractions_used"] == [0.5, 1.0]
+    assert any("0.500, its planned fraction" in c for c in out["sequential"]["cautions"])
+
+
+def test_the_command_layer_reads_the_fraction_an_earlier_look_reached_from_the_registry(tmp_path):
+    import json
+
+    from trialcut.commands import earlier_looks
+    from trialcut.record.registry import append_run
+
+    from tests.run.test_interim import _plan
+
+    plan = _plan()
+    folder = tmp_path / "run1"
+    folder.mkdir()
+    (folder / "results.json").write_text(json.dumps({"multiplicity": {"sequential": {
+        "cut": "interim", "planned_look": True, "information_reached": 0.493}}}))
+    (folder / "MANIFEST.sha256").write_text("")
+    registry = tmp_path / "registry.sqlite"
+    append_run(registry, {"kind": "run", "record_id": "20261202T000000Z-abcdef", "study_id": plan.study.id,
+                          "cut": "interim", "folder": "run1", "plan_sha256": "0" * 64, "lock_status": "locked",
+                          "dummy_arms": False, "data_sha256": "0" * 64, "manifest_sha256": "0" * 64})
+    assert earlier_looks(registry, plan, "final") == [
+        {"cut": "interim", "run_id": "20261202T000000Z-abcdef", "information_reached": 0.493}]
+    assert earlier_looks(registry, plan, "interim") == []          # the first look has nothing before it
+    assert earlier_looks(tmp_path / "none.sqlite", plan, "final") == []

@@ -2,7 +2,8 @@
 
 Which look a cut is comes from its label (``trialcut run --cut``) matched against the plan's
 ``multiplicity.alpha_spending.looks``.  At a planned look the information fraction reached is
-measured on the data, the boundaries are recomputed for it (earlier looks enter at their
+measured on the data, the boundaries are recomputed for it (earlier looks enter at the
+fractions they reached, as the registry recorded them in ``run.earlier_looks``, else at their
 planned fractions; the final look spends whatever alpha is left, so it uses fraction 1),
 and the hypotheses go through the plan's multiplicity procedure as a graph whose local tests
 are group-sequential (Maurer & Bretz 2013; Holm and Bonferroni are graphs, Hochberg is run as
@@ -45,7 +46,8 @@ def interim_multiplicity(plan, cut, results: dict[str, Any], hypotheses: list[di
         return base | {"hypotheses": _nominal_table(hypotheses)}
     index = looks.index(cut_label)
     facts.update(look=index + 1, planned_look=True)
-    fractions = _fractions_used(spending, index, information["fraction"], facts["cautions"])
+    earlier = _earlier_reached(spending, index, (results.get("run") or {}).get("earlier_looks"))
+    fractions = _fractions_used(spending, index, information["fraction"], facts["cautions"], earlier)
     if fractions is None:
         facts["cautions"].insert(0, "The boundaries for this look could not be computed; the p-values below "
                                     "are nominal and no hypothesis may be judged on them.")
@@ -86,8 +88,40 @@ def _nominal_table(hypotheses: list[dict[str, Any]]) -> dict[str, Any] | None:
     return table(pd.DataFrame(rows), "Nominal p-values (not a planned look: no decision)")
 
 
-def _fractions_used(spending, index: int, reached: float | None, cautions: list[str]) -> list[float] | None:
+def _earlier_reached(spending, index: int, recorded) -> list[tuple[float, str] | None]:
+    """Per earlier look, (fraction reached, run id) as the registry recorded it, or None.
+
+    ``run.earlier_looks`` is filled by the command layer from the earlier runs of the study; a
+    fraction that is not a number in (0, 1) is not used.
+    """
+    by_cut = {str(e.get("cut")): e for e in recorded or [] if isinstance(e, dict)}
+    found = []
+    for look in spending.looks[:index]:
+        entry = by_cut.get(str(look.cut)) or {}
+        value = entry.get("information_reached")
+        usable = isinstance(value, (int, float)) and 0 < value < 1
+        found.append((float(value), str(entry.get("run_id") or "?")) if usable else None)
+    return found
+
+
+def _earlier_fractions(spending, index: int, earlier, cautions: list[str]) -> list[float]:
+    """The fractions of the earlier looks: the ones they reached when recorded, else planned; said plainly."""
     planned = [look.information for look in spending.looks[:index]]
+    used = [e[0] if e else p for e, p in zip(earlier, planned)]
+    if any(b <= a for a, b in zip(used, used[1:])):   # out of order: the spending needs increasing fractions
+        used, earlier = planned, [None] * len(planned)
+    if planned:
+        said = [f"look {n} ({look.cut}) at {t:.3f}, " + (f"the fraction it reached (run {e[1]})" if e else
+                                                         "its planned fraction (no earlier run of that cut "
+                                                         "recorded in the registry)")
+                for n, (look, t, e) in enumerate(zip(spending.looks, used, earlier), start=1)]
+        cautions.append("Earlier looks enter the boundaries at " + "; ".join(said) + ".")
+    return used
+
+
+def _fractions_used(spending, index: int, reached: float | None, cautions: list[str],
+                    earlier=None) -> list[float] | None:
+    planned = _earlier_fractions(spending, index, earlier or [None] * index, cautions)
     if index == len(spending.looks) - 1:
         # The final analysis spends what is left of alpha, whatever information it reached.
         return planned + [1.0]
@@ -99,12 +133,10 @@ def _fractions_used(spending, index: int, reached: float | None, cautions: list[
                         "spends all of alpha.")
         reached = 1.0
     if planned and reached <= planned[-1]:
-        cautions.append(f"The information fraction reached ({reached:.3f}) is not beyond the planned fraction "
-                        f"of the previous look ({planned[-1]:g}).")
+        which = "planned fraction" if planned[-1] == spending.looks[index - 1].information else "fraction reached"
+        cautions.append(f"The information fraction reached ({reached:.3f}) is not beyond the {which} "
+                        f"of the previous look ({planned[-1]:.3f}).")
         return None
-    if planned:
-        cautions.append("Earlier looks enter the boundaries at their planned information fractions; if an "
-                        "earlier look reached a different fraction, recompute with the fractions reached.")
     return planned + [reached]
 
 
