@@ -165,8 +165,12 @@ def _primary_failures(run_folder: Path) -> int:
 def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: Path, unlocked: bool = False,
                 dummy_arms_seed: int | None = None, workers: int = 1, scheduler: str | None = None,
                 command_line: list[str] | None = None, started: str | None = None,
-                cut_off=None) -> tuple[Path, Path]:
-    """Load, check, run, render and record one data cut. Returns (run folder, report.html)."""
+                cut_off=None, looks_before: list[dict[str, Any]] | None = None) -> tuple[Path, Path]:
+    """Load, check, run, render and record one data cut. Returns (run folder, report.html).
+
+    ``looks_before``: the earlier looks' fractions reached as a run recorded them (a reproduction
+    passes its run's own); by default they are read from the registry under ``out_root``.
+    """
     from trialcut.data.prepare import prepare_cut
     from trialcut.data.readers import read_cut
     from trialcut.plan.load import load_plan
@@ -201,7 +205,8 @@ def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: P
         "id": run_id, "study_id": plan.study.id, "cut": cut_label, "started_utc": started,
         "finished_utc": None, "tool_version": __version__, "unlocked": lock["status"] != "locked",
         "dummy_arms_seed": dummy_arms_seed, "seed": plan.seed, "cut_off": cut.summary()["cut_off"]["date"],
-        "earlier_looks": earlier_looks(out_root / "registry.sqlite", plan, cut_label),
+        "earlier_looks": (looks_before if looks_before is not None
+                          else earlier_looks(out_root / "registry.sqlite", plan, cut_label)),
     }
     executor, close_executor = _executor(workers, scheduler)
     try:

@@ -208,3 +208,34 @@ def test_the_command_layer_reads_the_fraction_an_earlier_look_reached_from_the_r
         {"cut": "interim", "run_id": "20261202T000000Z-abcdef", "information_reached": 0.493}]
     assert earlier_looks(registry, plan, "interim") == []          # the first look has nothing before it
     assert earlier_looks(tmp_path / "none.sqlite", plan, "final") == []
+
+
+def test_a_reproduction_uses_the_fractions_its_run_recorded_not_its_scratch_registry(tmp_path, monkeypatch):
+    # A reproduction runs into an empty scratch registry: reading the earlier looks from there would
+    # put look 1 back at its planned fraction and change every boundary of the final look.
+    import json
+
+    import trialcut.commands as commands
+    from trialcut.commands_reproduce import reproduce_run
+
+    recorded = [{"cut": "interim", "run_id": "r1", "information_reached": 0.493}]
+    folder = tmp_path / "run"
+    (folder / "plan").mkdir(parents=True)
+    (folder / "plan" / "plan.yaml").write_text("")
+    (folder / "results.json").write_text(json.dumps({
+        "run": {"id": "r2", "cut": "final", "unlocked": False, "dummy_arms_seed": None, "earlier_looks": recorded},
+        "plan": {"file": "plan.yaml"}, "data": {}}))
+    (folder / "audit.json").write_text("{}")
+    seen = {}
+
+    class Stop(Exception):
+        pass
+
+    def execute_run(**kwargs):
+        seen.update(kwargs)
+        raise Stop
+
+    monkeypatch.setattr(commands, "execute_run", execute_run)
+    with pytest.raises(Stop):
+        reproduce_run(folder, tmp_path / "data.csv", tmp_path / "scratch", 1e-9)
+    assert seen["looks_before"] == recorded
