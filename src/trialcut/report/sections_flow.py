@@ -115,7 +115,7 @@ def _left_out(section: Section, endpoint, entry, slug: str, number_format: Numbe
     listing = next((a.get("left_out") for a in analyses if a.get("left_out")), None)
     if not listing or not listing.get("data"):
         return
-    names = ", ".join(str(a.get("label") or a.get("id")) for a in analyses)
+    names = "; ".join(str(a.get("label") or a.get("id")) for a in analyses)   # labels hold commas
     count = len(listing["data"])
     table = from_results_table(listing, slug=f"{slug}_left_out", number_format=number_format,
                                title=f"Participants without any value used ({names})",
