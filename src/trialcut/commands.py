@@ -553,6 +553,21 @@ def verified_input(folder: Path, registry: Path | None, purpose: str) -> Path:
     return registry
 
 
+def verified_run(folder: Path, registry: Path | None, command: str, purpose: str):
+    """Verify a sealed run folder and find its registry row; returns (registry, row).
+
+    approve, qc and bundle take runs only: any other sealed record is refused (exit 2)."""
+    from trialcut.record.registry import find_record
+
+    registry = verified_input(folder, registry, purpose)
+    row = find_record(registry, Path(folder).resolve().name)
+    if row is None or row.kind != "run":
+        raise InputError(f"{folder} is not a recorded run", [Problem(
+            code=f"{command}.not_a_run", file=str(folder), message=f"'{command}' takes runs only",
+            hint="pass a run folder (see 'trialcut history')")])
+    return registry, row
+
+
 def command_render(args) -> int:
     from trialcut.record.runfolder import new_run_id
     from trialcut.record.seal import record_folder

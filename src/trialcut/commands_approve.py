@@ -5,24 +5,17 @@ from __future__ import annotations
 from pathlib import Path
 
 from trialcut.commands_key import project_keyring, signer_from
-from trialcut.errors import InputError, Problem
 
 
 def command_approve(args) -> int:
-    from trialcut.commands import console, verified_input
-    from trialcut.record.registry import find_record
+    from trialcut.commands import console, verified_run
     from trialcut.record.signing import checked_role
     from trialcut.record.signoff import approve_run, check_signoff
 
     role = checked_role(args.role)
     keyring = project_keyring(args)
     signer = signer_from(args, keyring, role=role)   # a bad key writes nothing
-    registry = verified_input(args.run_folder, args.registry, "approve")
-    row = find_record(registry, Path(args.run_folder).resolve().name)
-    if row is None or row.kind != "run":
-        raise InputError(f"{args.run_folder} is not a recorded run", [Problem(
-            code="approve.not_a_run", file=str(args.run_folder),
-            message="only runs are approved", hint="pass a run folder (see 'trialcut history')")])
+    registry, row = verified_run(args.run_folder, args.registry, "approve", "approve")
     recorded = approve_run(args.run_folder, row, registry, signer, keyring, role, args.note)
     console.print(f"[green]approved[/green] run {row.record_id} as {role}, signed by {signer.name}")
     console.print(f"  approval record: {recorded.folder}", markup=False)

@@ -43,17 +43,11 @@ def data_file_of(run_folder: Path, given: Path | None) -> Path:
 
 
 def command_bundle(args) -> int:
-    from trialcut.commands import console, verified_input
+    from trialcut.commands import console, verified_run
     from trialcut.record.bundle import build_bundle
-    from trialcut.record.registry import find_record
     from trialcut.record.signing import keyring_path
 
-    registry = verified_input(args.run_folder, args.registry, "bundle")
-    row = find_record(registry, Path(args.run_folder).resolve().name)
-    if row is None or row.kind != "run":
-        raise InputError(f"{args.run_folder} is not a recorded run", [Problem(
-            code="bundle.not_a_run", file=str(args.run_folder), message="only runs are bundled",
-            hint="pass a run folder (see 'trialcut history')")])
+    registry, row = verified_run(args.run_folder, args.registry, "bundle", "bundle")
     data = data_file_of(args.run_folder, args.data) if args.include_data else None
     keyring = keyring_path(args.keyring)
     if args.keyring is not None and not keyring.is_file():

@@ -23,20 +23,14 @@ def add_qc_parser(commands) -> None:
 
 
 def command_qc(args) -> int:
-    from trialcut.commands import console, verified_input
+    from trialcut.commands import console, verified_run
     from trialcut.record.qc import MATCH, compare, read_qc_file, record_qc, run_values, tolerances_of
-    from trialcut.record.registry import find_record
 
     if not Path(args.against).is_file():
         raise InputError(f"no QC file at {args.against}", [Problem(
             code="qc.missing_file", file=str(args.against), message="the QC file does not exist",
             hint="pass the second programmer's CSV with --against")])
-    registry = verified_input(args.run_folder, args.registry, "check")
-    row = find_record(registry, Path(args.run_folder).resolve().name)
-    if row is None or row.kind != "run":
-        raise InputError(f"{args.run_folder} is not a recorded run", [Problem(
-            code="qc.not_a_run", file=str(args.run_folder), message="only runs are checked",
-            hint="pass a run folder (see 'trialcut history')")])
+    registry, row = verified_run(args.run_folder, args.registry, "qc", "check")
     results = json.loads((Path(args.run_folder) / "results.json").read_text(encoding="utf-8"))
     values = run_values(results)
     outcome = compare(values, read_qc_file(args.against, values), tolerances_of(results))
