@@ -113,7 +113,7 @@ def _record(args, loaded, scenarios, summary, outcomes, root_seed, seconds):
     from trialcut import __version__
     from trialcut.record.runfolder import new_run_id
     from trialcut.record.seal import record_folder
-    from trialcut.report.sections_simulation import render_simulation
+    from trialcut.report.simulation_report import render_simulation
     from trialcut.run.simulate import work_key
 
     plan = loaded.plan

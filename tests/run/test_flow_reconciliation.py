@@ -114,10 +114,16 @@ def _used(table, visit, arm="Total") -> int:
 def _descriptive(endpoint, primary, arms) -> list[str]:
     analysed = "CHG" if endpoint["analysed"] == "change" else "AVAL"
     rows = frame_of(endpoint["descriptive"])
-    rows = rows[rows["variable"] == analysed]
-    problems = [f"descriptive n at {row.visit}/{row.arm} is {row.n}, the flow records "
-                f"{_recorded(primary, row.visit, row.arm)}"
-                for row in rows.itertuples() if row.n != _recorded(primary, row.visit, row.arm)]
+    if "variable" in rows.columns:      # a binary endpoint's responder table has one row per arm x visit
+        rows = rows[rows["variable"] == analysed]
+    expected = _recorded
+    if endpoint.get("type") == "binary":
+        # a response exists for every used value; with missing_response non_response every due visit has one
+        expected = ((lambda table, visit, arm: _count(table, visit, "due", arm))
+                    if endpoint["missing_response"] == "non_response" else _used)
+    problems = [f"descriptive n at {row.visit}/{row.arm} is {row.n}, the flow gives "
+                f"{expected(primary, row.visit, row.arm)}"
+                for row in rows.itertuples() if row.n != expected(primary, row.visit, row.arm)]
     if "not_yet_due" in rows.columns:
         problems += [f"descriptive 'not yet due' at {row.visit}/{row.arm} is not the flow's"
                      for row in rows.itertuples()

@@ -97,11 +97,12 @@ def _run_endpoint(plan, cut, endpoint, context, timer, run_warnings) -> dict[str
         "id": endpoint.id, "label": endpoint.label, "analysed": endpoint.analysed,
         "primary_visit": endpoint.primary_visit, "decimals": endpoint.decimals, "better": endpoint.better,
         "type": endpoint.type, "population": primary_population,
+        "missing_response": endpoint.response.missing if endpoint.type == "binary" else None,
         "descriptive": _descriptive(plan, endpoint, observed, columns, roles, primary_flow),
         "missing_by_visit": table(flow.missing_by_visit(primary_flow, primary_data.arms),
                                   "Missing outcomes by arm and visit (visits not yet due apart)"),
         "missing_patterns": table(flow.patterns(primary_data, events, primary_data.arms),
-                                  "Patterns of values used (X), missing or set aside (.) and not yet due (-)"),
+                                  "Patterns of values used, missing or set aside, and visits not yet due"),
         "flow": flows,
         "trajectories": _trajectory_sample(observed, plan.report.trajectories_sample, context),
         "analyses": [],
@@ -122,8 +123,9 @@ def _descriptive(plan, endpoint, observed, columns, roles, primary_flow) -> dict
     if endpoint.type == "binary":
         derived = derive_outcome(endpoint, observed)
         summary = responders_by_arm_visit(derived.frame, column=derived.outcome, **roles)
-        return table(flow.with_not_yet_due(summary, primary_flow),
-                     "Responders by arm and visit (observed data)")
+        counted = ("a visit due by the cut-off without a response counts as non-response"
+                   if endpoint.response.missing == "non_response" else "visits without a response left out")
+        return table(flow.with_not_yet_due(summary, primary_flow), f"Responders by arm and visit ({counted})")
     summary = describe_by_arm_visit(observed.frame, columns=tuple(columns), **roles)
     return table(flow.with_not_yet_due(_with_baseline_rows(summary, observed, plan.visits.baseline, roles["arms"]),
                                        primary_flow), "Summary statistics by arm and visit (observed data)")
