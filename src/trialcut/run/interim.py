@@ -204,13 +204,14 @@ def _participant_information(plan, cut, spending) -> dict[str, Any]:
     data = cut.analysis_data(endpoint.id, population_id=population)
     frame = data.frame[data.frame[data.visit].astype(str) == str(data.primary_visit)]
     cautions = []
+    counted_in = plan.population(population).label.lower() if population else "analysis population"
     if "due" in frame.columns and getattr(data, "due_judged", False):
         counted = frame.loc[frame["due"].fillna(False).astype(bool), data.subject]
-        basis = (f"participants in the {population} population whose {data.primary_visit} visit is due at the "
+        basis = (f"participants in the {counted_in} whose {data.primary_visit} visit is due at the "
                  f"cut-off, over the {spending.planned_participants} planned")
     else:
         counted = frame.loc[frame[data.outcome].notna(), data.subject]
-        basis = (f"participants in the {population} population with an observed {data.primary_visit} value, over "
+        basis = (f"participants in the {counted_in} with an observed {data.primary_visit} value, over "
                  f"the {spending.planned_participants} planned")
         cautions.append("The data carry no due dates, so information is counted by participants observed at the "
                         "primary visit; participants whose visit was due but missed are not counted.")
