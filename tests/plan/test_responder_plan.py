@@ -44,6 +44,9 @@ def test_a_threshold_response_loads(tmp_path):
     ({"threshold": -5, "missing": "non_response"}, "a threshold needs its direction"),
     ({"threshold": -5, "direction": "at_most", "flag_column": "RESPFL", "missing": "leave_out"}, "exactly one"),
     ({"flag_column": "RESPFL"}, "missing"),
+    ({"threshold": -5, "direction": "at_most", "flag_values": ["R", "N"], "missing": "leave_out"},
+     "flag_values name the values of flag_column"),
+    ({"flag_column": "RESPFL", "flag_values": ["R", "R"], "missing": "leave_out"}, "two different values"),
 ])
 def test_response_rules_are_checked_with_their_place(tmp_path, response, fragment):
     with pytest.raises(PlanError) as caught:

@@ -58,7 +58,7 @@ def _base_fields(data: AnalysisData) -> dict:
 def _binary(endpoint, data: AnalysisData, source: str) -> DiscreteAnalysisData:
     rule, frame = endpoint.response, data.frame.copy()
     if rule.flag_column is not None:
-        response = _read_flags(frame, rule.flag_column, data, source)
+        response = _read_flags(frame, rule.flag_column, data, source, rule.flag_values)
     else:
         values = frame[data.outcome].astype(float)
         reached = values <= rule.threshold if rule.direction == "at_most" else values >= rule.threshold
@@ -74,20 +74,25 @@ def _binary(endpoint, data: AnalysisData, source: str) -> DiscreteAnalysisData:
                                 threshold=rule.threshold, direction=rule.direction)
 
 
-def _read_flags(frame: pd.DataFrame, column: str, data: AnalysisData, source: str) -> pd.Series:
+def _read_flags(frame: pd.DataFrame, column: str, data: AnalysisData, source: str,
+                labels: tuple[str, str] | None = None) -> pd.Series:
+    """The flag column as 1/0: the plan's two values (response first) when it names them, else Y/N or 1/0."""
+    values = {labels[0].strip(): 1.0, labels[1].strip(): 0.0} if labels else FLAG_VALUES
+    allowed = f"{labels[0]} or {labels[1]} (the plan's flag_values)" if labels else "Y/N or 1/0"
     if column not in frame.columns:
         raise DataError(f"{source}: column {column!r} (the binary endpoint's flag_column) is not in the data", [
             Problem("data.response_column", "the response flag column is missing", file=source, field=column,
-                    expected="a column of Y/N or 1/0", got="no such column")])
+                    expected=f"a column of {allowed}", got="no such column")])
     raw = frame[column]
     text = raw.map(lambda v: None if pd.isna(v) or (isinstance(v, str) and not v.strip()) else str(v).strip())
-    mapped = text.map(FLAG_VALUES)
+    mapped = text.map(values)
     bad = text.notna() & mapped.isna()
     if bad.any():
-        raise DataError(f"{source}: column {column!r} must hold a response (Y/N or 1/0)", [
-            Problem("data.response_values", "binary outcome values other than Y/N or 1/0", file=source, field=column,
-                    expected="Y, N, 1 or 0", got=", ".join(sorted(set(text[bad].head(5)))),
-                    rows=_rows(frame, bad, data))])
+        raise DataError(f"{source}: column {column!r} must hold a response ({allowed})", [
+            Problem("data.response_values", f"binary outcome values other than {allowed}", file=source,
+                    field=column, expected=allowed, got=", ".join(sorted(set(text[bad].head(5)))),
+                    rows=_rows(frame, bad, data), hint="name the column's own two values in response.flag_values"
+                    if not labels else "correct the values or the plan's flag_values")])
     return mapped.astype(float)
 
 

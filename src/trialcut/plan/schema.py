@@ -575,7 +575,9 @@ class ResponseRule(Strict):
     """How a binary endpoint's response (1) or non-response (0) is found at each visit."""
 
     flag_column: str | None = Field(default=None, description=(
-        "A column of the data holding the response itself: Y/N or 1/0."))
+        "A column of the data holding the response itself: Y/N or 1/0 unless flag_values names its two values."))
+    flag_values: tuple[str, str] | None = Field(default=None, description=(
+        "The flag column's two values, the one meaning response first, e.g. [Responder, Non-responder]."))
     threshold: float | None = Field(default=None, description=(
         "Response when the analysed value (the change or the value, as 'analysed' says) reaches this."))
     direction: Literal["at_most", "at_least"] | None = Field(default=None, description=(
@@ -595,6 +597,13 @@ def _response_issues(rule: ResponseRule) -> Iterator[RuleIssue]:
         yield RuleIssue((), "a response is read from flag_column or derived by threshold, exactly one of them",
                         expected="flag_column, or threshold with direction", got="both" if rule.threshold is not None
                         else "neither", code="plan.response_source")
+    if rule.flag_values is not None and rule.flag_column is None:
+        yield RuleIssue(("flag_values",), "flag_values name the values of flag_column", expected="flag_column as well",
+                        got="flag_values alone", code="plan.response_flag_values")
+    if rule.flag_values is not None and rule.flag_values[0].strip() == rule.flag_values[1].strip():
+        yield RuleIssue(("flag_values",), "response and non-response need two different values",
+                        expected="two different values", got=f"{rule.flag_values[0]!r} twice",
+                        code="plan.response_flag_values")
     if rule.threshold is not None and rule.direction is None:
         yield RuleIssue(("direction",), "a threshold needs its direction", expected="at_most or at_least",
                         got="none", hint="at_most when lower values are better", code="plan.response_direction")
