@@ -167,11 +167,11 @@ def test_simple_degrees_of_freedom(long_frame):
     p = len(residual.term_names)
     assert set(residual.fixed_effects.df) == {residual.n_obs - p}
     split = tc.fit_mmrm(long_frame, df="participant_split", **ROLES)
-    # between: participants - (intercept, arm); within: observations - participants - 6 visit columns
-    between, within = split.n_subjects - 2, split.n_obs - split.n_subjects - 6
-    assert dict(zip(split.fixed_effects.term, split.fixed_effects.df))["BtheB vs TAU at 2m"] == between
-    assert dict(zip(split.fixed_effects.term, split.fixed_effects.df))["4m vs 2m in TAU"] == within
-    assert split.joint_tests().set_index("term").den_df["arm_by_visit"] == within
+    # participants' part: participants - (intercept, arm); the rest: observations - participants - 6 visit columns
+    across_participants, inside_participants = split.n_subjects - 2, split.n_obs - split.n_subjects - 6
+    assert dict(zip(split.fixed_effects.term, split.fixed_effects.df))["BtheB vs TAU at 2m"] == across_participants
+    assert dict(zip(split.fixed_effects.term, split.fixed_effects.df))["4m vs 2m in TAU"] == inside_participants
+    assert split.joint_tests().set_index("term").den_df["arm_by_visit"] == inside_participants
 
 
 def test_satterthwaite_one_df_test_agrees_with_f_test(long_frame):
@@ -243,7 +243,7 @@ def _edit(frame, **changes):
      ["changes within participant"]),
     (lambda d: d, {"method": "ml", "df": "kenward_roger"}, ["'kenward_roger' needs method 'reml'"]),
     (lambda d: d, {"method": "ml", "df": "kenward_roger", "second_derivatives": False}, ["needs method 'reml'"]),
-    (lambda d: d, {"df": "between_within"}, ["unknown degrees-of-freedom method", "participant_split"]),
+    (lambda d: d, {"df": "two_level"}, ["unknown degrees-of-freedom method", "participant_split"]),
     (lambda d: d, {"second_derivatives": "no"}, ["second_derivatives must be True, False or 'bias_corrected'"]),
     (lambda d: d, {"covariance": "unstructred"}, ["unknown structure 'unstructred'", "unstructured"]),
     (lambda d: d, {"df": "containment"}, ["unknown degrees-of-freedom method"]),

@@ -50,35 +50,14 @@ Identifier = Annotated[str, Field(pattern=r"^[A-Za-z][A-Za-z0-9_]*$", max_length
 
 PLAN_FORMAT_VERSION = 2
 
-# What format 2 renamed, so that a plan written for format 1 is told exactly what to change.
-RENAMED_KEYS = {"conf_level": "confidence_level"}
-RENAMED_DF_METHODS = {
-    "kenward_roger_linear": "write df: kenward_roger with second_derivatives: false",
-    "between_within": "write df: participant_split",
-}
-FORMAT_CHANGES = {
-    1: "format 2 renamed conf_level to confidence_level (every analysis), df: between_within to "
-       "df: participant_split, and df: kenward_roger_linear to df: kenward_roger with second_derivatives: false",
-}
+# Format 2 gave the confidence-level key and two degrees-of-freedom methods plain names of our own;
+# a format-1 plan is refused, and check then names any key or value it does not know.
+OLDER_FORMATS = (1,)
 
 
 class Strict(BaseModel):
     # NaN and infinity never mean anything in a plan and would break the canonical JSON.
     model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
-
-    @model_validator(mode="before")
-    @classmethod
-    def _renamed_keys(cls, data: Any) -> Any:
-        # A key that format 2 renamed gets its new name as the fix, not a generic "unknown key".
-        if isinstance(data, dict):
-            issues = [RuleIssue(
-                (old,), f"key {old!r} was renamed in plan format {PLAN_FORMAT_VERSION}", expected=repr(new),
-                got=repr(old), hint=f"rename it to {new}", code="plan.renamed_key")
-                for old, new in RENAMED_KEYS.items() if old in data and new in cls.model_fields]
-            if issues and "df" in cls.model_fields:    # raising here skips the field's own check
-                issues += _renamed_df_issues(data.get("df"), ("df",))
-            _raise_issues(issues)
-        return data
 
     @model_validator(mode="before")
     @classmethod
@@ -337,7 +316,7 @@ class MMRMOptions(Strict):
     second_derivatives: bool | Literal["bias_corrected"] = Field(default=True, description=(
         "Kenward-Roger only: false leaves out the second-derivative term (which is zero for structures "
         "linear in their variances and covariances, and depends on the parametrisation for the others); "
-        "bias_corrected corrects it for the bias of the covariance-parameter estimates (Kenward & Roger "
+        "bias_corrected corrects it for the bias of the estimated variances and correlations (Kenward & Roger "
         "2009), which makes the adjustment independent of the parametrisation."))
     robust: bool = False
     confidence_level: float = Field(default=0.95, gt=0, lt=1)
@@ -346,12 +325,6 @@ class MMRMOptions(Strict):
     @classmethod
     def _one_name_is_a_list(cls, value: Any) -> Any:
         return (value,) if isinstance(value, str) else value
-
-    @field_validator("df", mode="before")
-    @classmethod
-    def _renamed_df(cls, value: Any) -> Any:
-        _raise_issues(_renamed_df_issues(value, ()))
-        return value
 
     @model_validator(mode="after")
     def _kenward_roger_needs_reml(self) -> "MMRMOptions":
@@ -362,14 +335,6 @@ class MMRMOptions(Strict):
                 got=f"method {self.method}", hint="set method: reml, or choose df: satterthwaite",
                 code="plan.kenward_roger_needs_reml")])
         return self
-
-
-def _renamed_df_issues(value: Any, path: tuple) -> list[RuleIssue]:
-    if not (isinstance(value, str) and value in RENAMED_DF_METHODS):
-        return []
-    return [RuleIssue(path, f"df {value!r} was renamed in plan format {PLAN_FORMAT_VERSION}",
-                      expected=_one_of(DF_METHODS), got=repr(value), hint=RENAMED_DF_METHODS[value],
-                      code="plan.renamed_value")]
 
 
 class AncovaOptions(Strict):
@@ -824,12 +789,13 @@ class AnalysisPlan(Strict):
     @field_validator("format", mode="before")
     @classmethod
     def _older_format(cls, value: Any) -> Any:
-        # An older plan is told what changed and what to rename, not just "expected 2".
-        if isinstance(value, int) and not isinstance(value, bool) and value in FORMAT_CHANGES:
+        # An older plan is told it is older, not just "expected 2".
+        if isinstance(value, int) and not isinstance(value, bool) and value in OLDER_FORMATS:
             _raise_issues([RuleIssue(
                 (), f"the plan is written in plan format {value}; this version of trialcut reads format "
                 f"{PLAN_FORMAT_VERSION}", expected=f"format: {PLAN_FORMAT_VERSION}", got=f"format: {value}",
-                hint=f"{FORMAT_CHANGES[value]}; make those changes, then write format: {PLAN_FORMAT_VERSION}",
+                hint=f"write format: {PLAN_FORMAT_VERSION}, then run 'trialcut check': it names every key or value "
+                "format 2 does not know, with the allowed ones (README, 'Plan format 2')",
                 code="plan.old_format")])
         return value
 

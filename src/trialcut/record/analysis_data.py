@@ -36,7 +36,7 @@ def write_analysis_data(folder: Path, datasets: Sequence, *, study_id: str, crea
 
 
 def _dataset_name(endpoint: str) -> str:
-    # Dataset-JSON names are short upper-case words (as in a SAS transport file).
+    # Dataset-JSON names are short upper-case words (the standard's own convention).
     return ("AD" + "".join(ch for ch in endpoint.upper() if ch.isalnum()))[:8]
 
 

@@ -597,7 +597,7 @@ def _confidence_words(results: Mapping[str, Any]) -> str:
     for endpoint in results.get("endpoints") or []:
         for analysis in endpoint.get("analyses") or []:
             fit = analysis.get("fit") or {}
-            level = fit.get("confidence_level") or fit.get("conf_level") or \
+            level = fit.get("confidence_level") or \
                 (analysis.get("options") or {}).get("confidence_level")
             if level:
                 return f"{100 * float(level):g}%"

@@ -62,7 +62,7 @@ ASSUMPTION_WORDS = {
 }
 FACT_LABELS = {"complete_df": "Complete-data DF", "burn_in": "Burn-in iterations",
                "thinning": "Iterations between imputations", "chains": "Independent chains",
-               "conf_level": "Confidence level", "confidence_level": "Confidence level",
+               "confidence_level": "Confidence level",
                "visits": "Visits", "covariates": "Covariates", "outcome": "Outcome column",
                "reference": "Reference arm", "assumption": "Assumption", "imputations": "Imputations",
                "alpha": "Two-sided significance level", "visit": "Visit",
@@ -922,9 +922,8 @@ def generic_analysis(section: Section, context: EndpointContext, analysis) -> No
         fit["assumption"] = ASSUMPTION_WORDS.get(fit["assumption"], fit["assumption"])
     if method in NON_CONTINUOUS_METHODS:
         fit = {k: (FIT_WORDS.get(v, v) if isinstance(v, str) else v) for k, v in fit.items()}
-    for key in ("conf_level", "confidence_level"):
-        if key in fit:
-            fit[key] = _level_text({"confidence_level": fit[key]})
+    if "confidence_level" in fit:
+        fit["confidence_level"] = _level_text({"confidence_level": fit["confidence_level"]})
     if fit and not detail_shown:
         section.paragraph(_facts_sentence(fit, context.number_format))
     elif fit:
@@ -1259,7 +1258,7 @@ def _failed(section: Section, analysis) -> bool:
 
 
 def _level_text(options: Mapping[str, Any]) -> str:
-    level = options.get("confidence_level") or options.get("conf_level") or 0.95
+    level = options.get("confidence_level") or 0.95
     return f"{100 * float(level):g}%"
 
 

@@ -51,14 +51,9 @@ FIXED_EFFECT_COLUMNS = ("term", "estimate", "se", "df", "t", "p")
 MEAN_COLUMNS = ("arm", "visit", "estimate", "se", "df", "lower", "upper")
 DIFFERENCE_COLUMNS = ("arm", "reference", "visit", "estimate", "se", "df", "t", "p", "lower", "upper")
 JOINT_COLUMNS = ("term", "num_df", "den_df", "F", "p")
-# Kenward-Roger's second-derivative term corrected for the bias of the covariance-parameter
-# estimates (Kenward & Roger 2009; see trialcut.stats.mmrm_inference).
+# Kenward-Roger's second-derivative term corrected for the bias of the estimated
+# variances and correlations (Kenward & Roger 2009; see trialcut.stats.mmrm_inference).
 BIAS_CORRECTED = "bias_corrected"
-# Earlier names of the degrees-of-freedom methods, so that an old call is told what to write now.
-RENAMED_DF_METHODS = {
-    "kenward_roger_linear": "write df='kenward_roger', second_derivatives=False",
-    "between_within": "write df='participant_split'",
-}
 RESIDUAL_COLUMNS = ("subject", "visit", "fitted", "residual", "scaled_residual")
 
 
@@ -307,8 +302,7 @@ def _check_arguments(covariance, method, df, second_derivatives, robust, max_ite
                                 field="method", expected=" or ".join(ESTIMATION_METHODS), got=repr(method)))
     if df not in DF_METHODS:
         problems.append(Problem("mmrm.unknown_df", f"df: unknown degrees-of-freedom method {df!r}",
-                                field="df", expected="one of " + ", ".join(DF_METHODS), got=repr(df),
-                                hint=RENAMED_DF_METHODS.get(df)))
+                                field="df", expected="one of " + ", ".join(DF_METHODS), got=repr(df)))
     elif df == "kenward_roger" and method != "reml":
         problems.append(Problem("mmrm.kenward_roger_needs_reml", f"df {df!r} needs method 'reml'",
                                 field="df", got=f"method {method!r}",
