@@ -48,18 +48,11 @@ def describe_by_arm_visit(
     A cell with no observed value has n = 0 and NaN statistics.
     """
     columns = tuple(columns)
-    _require_columns(frame, (subject, arm, visit, *columns))
-    _require_one_row_per_visit(frame, subject, visit)
-    visits = _ordered_levels(frame, visit, visits)
-    arms = _ordered_levels(frame, arm, arms)
-    groups = {key: part for key, part in frame.groupby([arm, visit], sort=False, observed=True)}
     rows = []
-    for arm_level in arms:
-        for visit_level in visits:
-            part = groups.get((arm_level, visit_level))
-            for column in columns:
-                values = np.array([], dtype=float) if part is None else _numeric(part[column], column)
-                rows.append((arm_level, visit_level, column, *_summary(values)))
+    for arm_level, visit_level, part in _cells(frame, subject, arm, visit, columns, visits, arms):
+        for column in columns:
+            values = np.array([], dtype=float) if part is None else _numeric(part[column], column)
+            rows.append((arm_level, visit_level, column, *_summary(values)))
     table = pd.DataFrame(rows, columns=list(SUMMARY_COLUMNS))
     table.attrs["quantile_definition"] = QUANTILE_DEFINITION
     return table
@@ -81,21 +74,25 @@ def responders_by_arm_visit(
     of responders over those with a response is the usual summary (common practice).  A cell
     with no response has n = 0 and a NaN proportion.
     """
-    _require_columns(frame, (subject, arm, visit, column))
+    rows = []
+    for arm_level, visit_level, part in _cells(frame, subject, arm, visit, (column,), visits, arms):
+        values = np.array([], dtype=float) if part is None else _numeric(part[column], column)
+        values = values[~np.isnan(values)]
+        responders = int((values == 1).sum())
+        rows.append((arm_level, visit_level, int(values.size), responders,
+                     responders / values.size if values.size else float("nan")))
+    return pd.DataFrame(rows, columns=list(RESPONSE_COLUMNS))
+
+
+def _cells(frame, subject, arm, visit, columns, visits, arms):
+    """(arm level, visit level, rows or None) for every arm x visit in order, after checking the frame."""
+    _require_columns(frame, (subject, arm, visit, *columns))
     _require_one_row_per_visit(frame, subject, visit)
     visits = _ordered_levels(frame, visit, visits)
-    arms = _ordered_levels(frame, arm, arms)
     groups = {key: part for key, part in frame.groupby([arm, visit], sort=False, observed=True)}
-    rows = []
-    for arm_level in arms:
+    for arm_level in _ordered_levels(frame, arm, arms):
         for visit_level in visits:
-            part = groups.get((arm_level, visit_level))
-            values = np.array([], dtype=float) if part is None else _numeric(part[column], column)
-            values = values[~np.isnan(values)]
-            responders = int((values == 1).sum())
-            rows.append((arm_level, visit_level, int(values.size), responders,
-                         responders / values.size if values.size else float("nan")))
-    return pd.DataFrame(rows, columns=list(RESPONSE_COLUMNS))
+            yield arm_level, visit_level, groups.get((arm_level, visit_level))
 
 
 def missing_by_visit(
