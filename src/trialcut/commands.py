@@ -28,9 +28,12 @@ def command_check(args) -> int:
     loaded = load_plan(args.plan)
     plan = loaded.plan
     check_names(plan)
-    console.print(f"[green]ok[/green] {args.plan}: plan {plan.version} of study {plan.study.id}")
-    console.print(f"  canonical hash {loaded.canonical_hash}")
     line, lock_error = _lock_line(loaded)
+    # 'ok' only when a run would go ahead: a plan that reads but whose lock would stop the run
+    # must not open with a word a reader takes for a pass.
+    verdict = "[green]ok[/green]" if lock_error is None else "[red]not runnable as locked[/red]"
+    console.print(f"{verdict} {args.plan}: plan {plan.version} of study {plan.study.id}")
+    console.print(f"  canonical hash {loaded.canonical_hash}")
     console.print(f"  lock: {line}")
     for endpoint in plan.endpoints:
         names = [endpoint.analyses.primary.id] + [a.id for a in endpoint.analyses.sensitivity]
