@@ -703,6 +703,7 @@ def command_demo(args) -> int:
     plan_path = plan_dir / "demo.yaml"
     source = _repo_file("analysis_plans/demo.yaml")
     if not plan_path.exists() or plan_path.read_text() != source.read_text():
+        _set_aside_earlier_demo_plan(plan_path)
         plan_path.write_text(source.read_text(encoding="utf-8"), encoding="utf-8")
     from trialcut.demo_trust import approve_and_check_final, lock_demo_plan
 
@@ -733,6 +734,25 @@ def command_demo(args) -> int:
     for line in trust:
         console.print(f"  {line}", markup=False)
     return 0
+
+
+def _set_aside_earlier_demo_plan(plan_path: Path) -> None:
+    """The shipped demo plan changed since an earlier demo locked it under the same version: a
+    lock records amendments under new versions only, so the earlier plan and its lock move to
+    plan/superseded/<UTC time>/ and the new plan starts a lock chain of its own (each earlier
+    run folder keeps its own copy of the plan and lock)."""
+    from trialcut.plan.lock import lock_file_for
+    from trialcut.record.registry import utc_now
+
+    earlier = [path for path in (plan_path, lock_file_for(plan_path)) if path.exists()]
+    if len(earlier) < 2:
+        return
+    target = plan_path.parent / "superseded" / utc_now().replace(":", "")
+    target.mkdir(parents=True, exist_ok=True)
+    for path in earlier:
+        path.rename(target / path.name)
+    console.print(f"  the shipped demo plan changed since the last demo: set the earlier plan and its lock aside "
+                  f"in {target}")
 
 
 def _remove_unsealed_demo_comparisons(folder: Path) -> None:

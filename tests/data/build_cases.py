@@ -424,6 +424,10 @@ def build_issue10() -> None:
           "declares, and exits 2 as 'run' would, naming the change.", "changed since it was locked",
           argv=["check", "{case}/plan.yaml"], files={"plan.yaml": _plan_edit()}, lock_first=True,
           edit_after_lock=[{"file": "plan.yaml", "old": "seed: 7", "new": "seed: 8"}])
+    _case("lock_amendment_same_version", "Locking an edited plan under the version already locked is refused "
+          "with the version line: an amendment needs a version of its own.", "was already locked",
+          argv=["lock", "{case}/plan.yaml", "--by", "tester", "--reason", "amendment"], files={"plan.yaml": _plan_edit()},
+          lock_first=True, edit_after_lock=[{"file": "plan.yaml", "old": "seed: 7", "new": "seed: 8"}])
     _case("check_plan_not_locked_yet", "'check' on a valid plan that is simply not locked yet exits 0.", "",
           argv=["check", "{case}/plan.yaml"], exit=0, files={"plan.yaml": _plan_edit()})
 

@@ -91,9 +91,9 @@ def test_a_lock_needs_who_and_why(base_text, write_plan, by, reason):
 def test_amendments_form_a_chain(base_text, write_plan):
     path = write_plan(base_text)
     first = lock_plan(load_plan(path), by="A", reason="first", now=NOON)
-    path.write_text(replace_once(base_text, "seed: 7", "seed: 8"), encoding="utf-8")
+    path.write_text(amended(base_text, "seed: 8", "1.1"), encoding="utf-8")
     second = lock_plan(load_plan(path), by="B", reason="amendment 1: new seed", now=NOON + timedelta(days=1))
-    path.write_text(replace_once(base_text, "seed: 7", "seed: 9"), encoding="utf-8")
+    path.write_text(amended(base_text, "seed: 9", "1.2"), encoding="utf-8")
     third = lock_plan(load_plan(path), by="C", reason="amendment 2", now=NOON + timedelta(days=2))
     chain = read_chain(lock_file_for(path))
     assert chain == (first, second, third)
@@ -104,8 +104,26 @@ def test_amendments_form_a_chain(base_text, write_plan):
     summary = status.summary()
     assert (summary["sha256"], summary["locked_by"], summary["reason"]) == (third.plan_sha256, "C", "amendment 2")
     assert [a["reason"] for a in summary["amendments"]] == ["first", "amendment 1: new seed", "amendment 2"]
-    assert [a["version"] for a in summary["amendments"]] == ["1.0"] * 3
+    assert [a["version"] for a in summary["amendments"]] == ["1.0", "1.1", "1.2"]
     json.dumps(summary)     # results are plain JSON
+
+
+def amended(base_text: str, seed_line: str, version: str) -> str:
+    """The base plan with another seed under a new version, as an amendment is written."""
+    return replace_once(replace_once(base_text, "seed: 7", seed_line), 'version: "1.0"', f'version: "{version}"')
+
+
+def test_an_amendment_under_the_same_version_is_refused_with_the_version_line(base_text, write_plan):
+    # Common practice: an amended plan carries a new version, so each version names one content.
+    path = write_plan(base_text)
+    lock_plan(load_plan(path), by="A", reason="first", now=NOON)
+    path.write_text(replace_once(base_text, "seed: 7", "seed: 8"), encoding="utf-8")
+    with pytest.raises(LockError) as caught:
+        lock_plan(load_plan(path), by="B", reason="same version", now=NOON + timedelta(days=1))
+    (problem,) = caught.value.problems
+    assert (problem.code, problem.field, caught.value.exit_status) == ("lock.version_not_changed", "version", 2)
+    assert problem.line == base_text.splitlines().index('version: "1.0"') + 1
+    assert len(read_chain(lock_file_for(path))) == 1     # nothing appended
 
 
 def test_an_edited_plan_names_the_changed_fields_and_the_remedy(base_text, write_plan):
@@ -135,7 +153,7 @@ def test_an_unlocked_plan_is_refused(base_text, write_plan):
 def locked_twice(base_text, write_plan):
     path = write_plan(base_text)
     lock_plan(load_plan(path), by="A", reason="first", now=NOON)
-    path.write_text(replace_once(base_text, "seed: 7", "seed: 8"), encoding="utf-8")
+    path.write_text(amended(base_text, "seed: 8", "1.1"), encoding="utf-8")
     lock_plan(load_plan(path), by="B", reason="second", now=NOON + timedelta(days=1))
     lock_file = lock_file_for(path)
     return path, lock_file, json.loads(lock_file.read_text(encoding="utf-8"))
@@ -221,7 +239,7 @@ def test_lock_times_are_utc(base_text, write_plan):
     eastern = timezone(timedelta(hours=-5))
     record = lock_plan(load_plan(path), by="A", reason="first", now=datetime(2026, 11, 30, 7, 0, 0, tzinfo=eastern))
     assert record.locked_utc == "2026-11-30T12:00:00Z"
-    path.write_text(replace_once(base_text, "seed: 7", "seed: 8"), encoding="utf-8")
+    path.write_text(amended(base_text, "seed: 8", "1.1"), encoding="utf-8")
     naive = lock_plan(load_plan(path), by="A", reason="second", now=datetime(2026, 12, 1, 8, 30, 0))
     assert naive.locked_utc == "2026-12-01T08:30:00Z"      # a time without a zone is taken as UTC
     assert sorted(p.name for p in path.parent.iterdir()) == ["plan.yaml", "plan.yaml.lock.json"]

@@ -149,6 +149,7 @@ def lock_plan(loaded: LoadedPlan, by: str, reason: str, now: datetime | None = N
             [Problem(code="lock.already_locked", message="this exact plan is already locked", file=str(lock_file),
                      field=f"records[{len(chain) - 1}]", got=f"sha256 {latest.plan_sha256[:12]}…",
                      hint="edit the plan first; a lock records a change of meaning, not a repeat")])
+    _require_new_version(loaded, chain, lock_file)
     fields = {
         "plan_file": loaded.path.name,
         "plan_version": loaded.plan.version,
@@ -165,6 +166,24 @@ def lock_plan(loaded: LoadedPlan, by: str, reason: str, now: datetime | None = N
         record = replace(record, signature=sign(SIGNATURE_PURPOSE, record.record_sha256))
     _write_chain(lock_file, (*chain, record))
     return record
+
+
+def _require_new_version(loaded: LoadedPlan, chain: tuple, lock_file: Path) -> None:
+    """An amendment carries a version of its own: two locked plans with different content under
+    one version number leave a reader unable to say which plan a report ran (common practice:
+    a protocol or plan amendment gets a new version)."""
+    earlier = [index for index, record in enumerate(chain) if record.plan_version == loaded.plan.version]
+    if earlier:
+        record = chain[earlier[-1]]
+        raise LockError(
+            f"{loaded.path}: version {loaded.plan.version} was already locked at {record.locked_utc} "
+            f"with other content",
+            [Problem(code="lock.version_not_changed", message="an amendment needs a new plan version",
+                     file=str(loaded.path), field="version", line=(loaded.position("version") or (None,))[0],
+                     got=repr(loaded.plan.version),
+                     expected=f"a version other than {', '.join(sorted({r.plan_version for r in chain}))}",
+                     hint="raise 'version:' in the plan (e.g. 1.0 -> 1.1), then lock again with the "
+                          "amendment's reason")])
 
 
 def _require_words(loaded: LoadedPlan, **words: str) -> None:
