@@ -111,6 +111,20 @@ def test_every_efficacy_table_has_n_per_arm_and_footnotes(rendered, results):
             assert re.search(r"Model: |Imputation under ", notes), table["caption"]
 
 
+def test_every_table_of_a_model_fit_stands_alone(rendered, results):
+    # The supporting tables of a fit (covariance and correlation matrices, structures tried, covariate
+    # values, the fit's facts) are read on their own too: N per arm and the source, like the efficacy ones.
+    parser = Captions()
+    parser.feed(rendered["report.html"].read_text(encoding="utf-8"))
+    arms = [a["code"] for a in results["plan"]["arms"]["list"]]
+    supporting = [t for t in parser.tables if re.search(r"matrix between visits|Covariance structures tried|"
+                                                        r"Covariate values used|Fit of the model", t["caption"])]
+    assert len(supporting) >= 4, [t["caption"] for t in parser.tables]
+    for table in supporting:
+        assert all(re.search(rf"{re.escape(arm)} N = \d+", table["head"][0]) for arm in arms), table["caption"]
+        assert "Source: " in " ".join(table["footnotes"]), table["caption"]
+
+
 def test_no_axis_label_or_other_text_is_clipped(results, monkeypatch):
     """Every text's drawn extent lies inside its figure (matplotlib's renderer bounding boxes)."""
     drawn = []

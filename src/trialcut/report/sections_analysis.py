@@ -343,10 +343,12 @@ def primary_analysis(section: Section, context: EndpointContext, analysis: Mappi
     level = _level_text(options)
     section.paragraph(_model_description(context, analysis))
     section.paragraph(AVERAGING_RULE)
-    section.table(_covariate_summary(context, fit, analysis))
+    model = _model_footnote(context, analysis)
+    # Every table stands alone (N per arm, model, source), the supporting ones too: a reviewer may
+    # read the covariance matrix or the fit's facts without the pages around them.
+    section.table(context.standalone(_covariate_summary(context, fit, analysis), analysis, notes=[model]))
     _fallbacks(section, context, fit, options, analysis)
     ci = f"{level} confidence interval"
-    model = _model_footnote(context, analysis)
     if tables.get("marginal_means"):
         section.table(context.standalone(from_results_table(
             tables["marginal_means"], slug=f"{context.slug}_model_means", number_format=number_format,
@@ -379,14 +381,16 @@ def primary_analysis(section: Section, context: EndpointContext, analysis: Mappi
             group = name.split("_", 1)[1] if "_" in name else ""
             what = f"Estimated {name.split('_')[0]} matrix between visits" + (f" ({group})" if group else "")
             columns = tables[name].get("columns") or []
-            section.table(from_results_table(tables[name], slug=f"{context.slug}_{name}",
-                                             title=context.title(what, analysis), number_format=number_format,
-                                             kinds={c: kind for c in columns[1:]}, labels={"visit": "Visit"}))
-    section.table(_model_fit_facts(context, fit, analysis))
+            section.table(context.standalone(from_results_table(
+                tables[name], slug=f"{context.slug}_{name}", title=context.title(what, analysis),
+                number_format=number_format, kinds={c: kind for c in columns[1:]}, labels={"visit": "Visit"}),
+                analysis, notes=[model]))
+    section.table(context.standalone(_model_fit_facts(context, fit, analysis), analysis, notes=[model]))
     known = {"marginal_means", "differences", "joint_tests", "fixed_effects"}
     for name, source in tables.items():
         if name not in known and not name.startswith(("covariance", "correlation")):
-            section.table(from_results_table(source, slug=f"{context.slug}_{name}", number_format=number_format))
+            section.table(context.standalone(from_results_table(source, slug=f"{context.slug}_{name}",
+                                                                number_format=number_format), analysis, notes=[model]))
     section.figure(_model_profile_figure(context, tables.get("marginal_means"), level, analysis))
     section.figure(_residual_figure(context, analysis))
 
@@ -547,11 +551,10 @@ def _fallbacks(section: Section, context: EndpointContext, fit, options, analysi
         rows = [{"structure": STRUCTURE_WORDS.get(a.get("structure"), a.get("structure")),
                  "status": _attempt_status(a),
                  "reason": a.get("reason") or a.get("message") or a.get("error") or ""} for a in attempts]
-        section.table(from_records(rows, ("structure", "status", "reason"), slug=f"{context.slug}_structures_tried",
-                                   title=context.title("Covariance structures tried", analysis),
-                                   number_format=context.number_format,
-                                   labels={"structure": "Structure", "status": "Outcome",
-                                           "reason": "Reason it was set aside"}))
+        section.table(context.standalone(from_records(
+            rows, ("structure", "status", "reason"), slug=f"{context.slug}_structures_tried",
+            title=context.title("Covariance structures tried", analysis), number_format=context.number_format,
+            labels={"structure": "Structure", "status": "Outcome", "reason": "Reason it was set aside"}), analysis))
     if fit.get("structure") and planned and fit.get("structure") != planned[0]:
         section.notice(f"The first planned structure did not converge; the fallback "
                        f"{STRUCTURE_WORDS.get(fit['structure'], fit['structure'])} was used.")
@@ -927,12 +930,10 @@ def generic_analysis(section: Section, context: EndpointContext, analysis) -> No
     if fit and not detail_shown:
         section.paragraph(_facts_sentence(fit, context.number_format))
     elif fit:
-        section.table(facts_table([(_fact_label(k), v,
-                                    "text" if isinstance(v, str) else ("count" if isinstance(v, int) else "general"))
-                                   for k, v in fit.items()],
-                                  slug=f"{context.slug}_{analysis.get('id')}_facts",
-                                  title=context.title("Settings and facts", analysis),
-                                  number_format=context.number_format))
+        section.table(context.standalone(facts_table(
+            [(_fact_label(k), v, "text" if isinstance(v, str) else ("count" if isinstance(v, int) else "general"))
+             for k, v in fit.items()], slug=f"{context.slug}_{analysis.get('id')}_facts",
+            title=context.title("Settings and facts", analysis), number_format=context.number_format), analysis))
     section.csv_only(detail)
 
 
