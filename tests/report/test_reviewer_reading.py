@@ -364,6 +364,11 @@ def test_subgroup_tables_leave_out_columns_that_say_nothing(results):
     assert not {"Status", "Note", "Reference"} & set(header)
     assert dict(zip(header, _texts(levels)[0]))["Estimate"] == "0.850"
     assert "equal_effects" not in sum(_texts(interaction), [])
+    # Each stands alone: N per arm of the population, how the levels were fitted, what the statistic is.
+    for table in (levels, interaction):
+        assert " N = " in table.counts and any(n.startswith("Source: ") for n in table.footnotes), table.title
+    assert "Chi-square" in [c.label for c in interaction.header()]
+    assert any("Cochran" in note for note in interaction.footnotes)
 
 
 def test_a_whole_period_primary_estimate_is_in_the_all_analyses_summary(results):

@@ -118,7 +118,8 @@ def test_every_table_of_a_model_fit_stands_alone(rendered, results):
     parser.feed(rendered["report.html"].read_text(encoding="utf-8"))
     arms = [a["code"] for a in results["plan"]["arms"]["list"]]
     supporting = [t for t in parser.tables if re.search(r"matrix between visits|Covariance structures tried|"
-                                                        r"Covariate values used|Fit of the model", t["caption"])]
+                                                        r"Covariate values used|Fit of the model|effect within each level|"
+                                                        r"Test of equal effects", t["caption"])]
     assert len(supporting) >= 4, [t["caption"] for t in parser.tables]
     for table in supporting:
         assert all(re.search(rf"{re.escape(arm)} N = \d+", table["head"][0]) for arm in arms), table["caption"]

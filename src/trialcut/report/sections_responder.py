@@ -81,19 +81,29 @@ def subgroups(section: Section, context: EndpointContext, endpoint: Mapping[str,
         child = section.child(f"subgroup_{entry.get('id')}", f"Subgroups: {entry.get('label')}")
         for note in entry.get("notes") or []:
             child.paragraph(str(note))
-        child.table(from_results_table(entry["levels"], slug=f"{context.slug}_subgroup_{entry.get('id')}",
-                                       number_format=context.number_format, title=entry["levels"].get("title"),
-                                       **_subgroup_layout(entry["levels"], primary)))
-        child.table(from_results_table(entry["interaction"], slug=f"{context.slug}_subgroup_{entry.get('id')}_test",
-                                       number_format=context.number_format,
-                                       hide=("test",) if _only_test(entry["interaction"], "equal_effects") else (),
-                                       # Every endpoint has this test per factor: the title names the endpoint.
-                                       title=context.title(str(entry["interaction"].get("title")
-                                                               or "Test of equal effects across the levels"),
-                                                           primary)))
+        # Both tables stand alone (N per arm of the population, how the levels were fitted, source).
+        child.table(context.standalone(from_results_table(
+            entry["levels"], slug=f"{context.slug}_subgroup_{entry.get('id')}", number_format=context.number_format,
+            title=entry["levels"].get("title"), **_subgroup_layout(entry["levels"], primary)), primary,
+            notes=[SUBGROUP_FIT_NOTE, entry.get("caution") or ""]))
+        child.table(context.standalone(from_results_table(
+            entry["interaction"], slug=f"{context.slug}_subgroup_{entry.get('id')}_test",
+            number_format=context.number_format, labels={"statistic": "Chi-square", "levels_fitted": "Levels fitted"},
+            hide=("test",) if _only_test(entry["interaction"], "equal_effects") else (),
+            # Every endpoint has this test per factor: the title names the endpoint.
+            title=context.title(str(entry["interaction"].get("title") or "Test of equal effects across the levels"),
+                                primary)), primary, notes=[INTERACTION_NOTE]))
         rows = _forest_rows(entry, primary, context)
         if rows:
             child.figure(_forest(entry, rows, primary, context))
+
+
+SUBGROUP_FIT_NOTE = ("Each level: the primary analysis fitted again on the participants of that level, with the "
+                     "factor left out of the covariates and strata. N in arm, N in reference arm: participants of "
+                     "the level in each arm.")
+INTERACTION_NOTE = ("Chi-square: the weighted sum of squared deviations of the levels' estimates from their "
+                    "inverse-variance weighted mean (Cochran's Q; ratios on the log scale), referred to a "
+                    "chi-square distribution with the levels fitted minus one degrees of freedom.")
 
 
 def _only_test(table: Mapping[str, Any], name: str) -> bool:
