@@ -134,6 +134,25 @@ def test_group_sequential_columns_keep_one_number_of_decimals_each(results):
     assert "0.493" in sentence and "2.790" in sentence and "0.00526" in sentence
 
 
+def test_an_interim_look_says_so_on_every_page_and_first_among_the_cautions(results):
+    # An interim must never be read as a final (common practice for group-sequential reports): the
+    # running header of every page, the cover's kicker and the first caution name the look.
+    interim = copy.deepcopy(results)
+    interim["multiplicity"] = _sequential(1)
+    document = build_document(interim, draw=False)
+    assert document.header_text.startswith("INTERIM LOOK 1 OF 2 · ")
+    assert "not the final analysis" in document.kicker and "Interim look 1 of 2" in document.kicker
+    assert document.cautions[0].startswith("Interim look 1 of 2: not the final analysis; decisions")
+    assert any("qualified statistician" in c for c in document.cautions[1:])
+    unplanned = copy.deepcopy(interim)
+    unplanned["multiplicity"]["sequential"]["planned_look"] = False
+    assert build_document(unplanned, draw=False).header_text.startswith("NOT A PLANNED LOOK · ")
+    final = copy.deepcopy(interim)
+    final["multiplicity"] = _sequential(2)
+    document = build_document(final, draw=False)
+    assert not document.marks and document.kicker == "Efficacy analyses run from a prespecified, locked plan"
+
+
 def test_comparison_never_calls_an_interim_crossing_a_rejection(results):
     final = _sequential(2)
     final["sequential"] = {**final["sequential"], "cut": "final"}

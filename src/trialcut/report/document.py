@@ -49,6 +49,9 @@ class Document:
             return "Exploratory run of a plan that was not locked: not for decisions"
         if "DUMMY TREATMENT CODES" in self.marks:
             return "Dry run with dummy treatment codes: not the real assignment"
+        look = next((m for m in self.marks if m.startswith(("INTERIM LOOK", "NOT A PLANNED LOOK"))), None)
+        if look:
+            return f"{look.capitalize()} of a prespecified, locked plan: not the final analysis"
         return "Efficacy analyses run from a prespecified, locked plan"
 
 
@@ -129,14 +132,23 @@ def build_document(results: Mapping[str, Any], audit: Mapping[str, Any] | None =
 
 
 def _cautions(results: Mapping[str, Any]) -> list[str]:
-    """The cautions; an unlocked or dry run does not claim to come from a prespecified plan."""
+    """The cautions; an unlocked or dry run does not claim to come from a prespecified plan, and an
+    interim look (or a cut that is no planned look) opens with that before anything else."""
     marks = sections_front.marks(results)
-    if not marks:
-        return list(CAUTIONS)
-    first = ("These results were produced by software from a plan that was not locked" if "UNLOCKED PLAN" in marks
-             else "These results were produced by software with dummy treatment codes (a dry run)")
-    return [first + ": they are exploratory, not for decisions. They require review by a qualified statistician "
-            "before anyone relies on them.", *CAUTIONS[1:]]
+    if "UNLOCKED PLAN" in marks or "DUMMY TREATMENT CODES" in marks:
+        first = ("These results were produced by software from a plan that was not locked" if "UNLOCKED PLAN" in marks
+                 else "These results were produced by software with dummy treatment codes (a dry run)")
+        cautions = [first + ": they are exploratory, not for decisions. They require review by a qualified "
+                    "statistician before anyone relies on them.", *CAUTIONS[1:]]
+    else:
+        cautions = list(CAUTIONS)
+    look = sections_front.look_banner(results)
+    if look is None:
+        return cautions
+    rule = ("decisions at this look follow the group-sequential boundaries in the multiple comparisons section, "
+            "not the nominal p-values of the analysis tables" if look.startswith("INTERIM") else
+            "the plan's looks do not include this cut, so no hypothesis can be rejected from it")
+    return [f"{look.replace(' — ', ': ', 1).capitalize()}; {rule}.", *cautions]
 
 
 def map_figures(document: Document, change) -> Document:

@@ -68,7 +68,24 @@ def banners(results: Mapping[str, Any]) -> list[str]:
         out.append("UNLOCKED PLAN — exploratory run, not for decisions")
     if run.get("dummy_arms_seed") is not None:
         out.append("DUMMY TREATMENT CODES — arm labels are not the real assignment")
+    look = look_banner(results)
+    if look:
+        out.append(look)
     return out
+
+
+def look_banner(results: Mapping[str, Any]) -> str | None:
+    """An interim look, or a cut that is no planned look, says so on every page: its p-values must
+    never be read as those of the final analysis (only the final look needs no mark)."""
+    sequential = (results.get("multiplicity") or {}).get("sequential")
+    if not isinstance(sequential, Mapping):
+        return None
+    if not sequential.get("planned_look"):
+        return "NOT A PLANNED LOOK — nominal p-values only, no decision"
+    look, looks = sequential.get("look"), sequential.get("looks")
+    if isinstance(look, int) and isinstance(looks, int) and look < looks:
+        return f"INTERIM LOOK {look} OF {looks} — not the final analysis"
+    return None
 
 
 def marks(results: Mapping[str, Any]) -> list[str]:
