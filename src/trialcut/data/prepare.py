@@ -24,7 +24,7 @@ Choices (documented because the report states them):
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 import datetime as dt
 from typing import Any
 
@@ -109,6 +109,10 @@ class DataCut:
     reason_column: str | None = None
     cut_off: CutOff | None = None
     blinding: ArmBlinding | None = None
+    # Analysis data built once per (endpoint, estimand, population) and per (endpoint,
+    # population) before the estimand's strategies: a run asks for the same frames dozens of
+    # times (flows, every analysis, subgroups, the analysis dataset).  Not part of the value.
+    _built: dict = field(default_factory=dict, init=False, repr=False, compare=False)
 
     # ------------------------------------------------------------------ summaries
     def summary(self) -> dict[str, Any]:
@@ -238,28 +242,51 @@ class DataCut:
     # ------------------------------------------------------------------ analysis data
     def analysis_data(self, endpoint_id: str, estimand_id: str | None = None,
                       population_id: str | None = None) -> AnalysisData:
+        """The analysis data of an endpoint under an estimand's strategies, in a population.
+
+        Built once per (endpoint, estimand, population) and handed out as a fresh copy each
+        time, so a caller that adds or changes columns never changes what the next one gets.
+        """
         plan = self.plan
         endpoint = _find(plan.endpoints, endpoint_id, "endpoint")
         estimand = _find(plan.estimands, estimand_id, "estimand") if estimand_id else None
         population_id = population_id or (estimand.population if estimand else None)
         population = _find(plan.populations, population_id, "population") if population_id else None
-        subjects = self.subjects
-        if population is not None:
-            subjects = subjects[_members(subjects, population)]
-        frame = self._grid(endpoint, subjects)
+        key = ("data", endpoint.id, estimand.id if estimand else None, population.id if population else None)
+        if key not in self._built:
+            self._built[key] = self._build_analysis_data(endpoint, estimand, population)
+        built = self._built[key]
+        return replace(built, frame=built.frame.copy())
+
+    def _build_analysis_data(self, endpoint, estimand, population) -> AnalysisData:
+        plan = self.plan
         outcome = _outcome_column(plan, endpoint)
-        frame[OBSERVED] = frame[outcome].notna()
-        frame[DUE] = due_flags(frame, subject=plan.columns.subject, visit=plan.columns.visit,
-                               observed=frame[OBSERVED], schedule=plan.visits.schedule, cut_off=self.cut_off)
-        frame = _apply_events(plan, estimand, frame, outcome, self._visit_days())
+        frame = _apply_events(plan, estimand, self._observed_grid(endpoint, population), outcome, self._visit_days())
         cols = plan.columns
         return AnalysisData(
             frame=frame.reset_index(drop=True), subject=cols.subject, arm=cols.arm, visit=cols.visit,
-            outcome=_outcome_column(plan, endpoint), baseline=_baseline_column(plan),
+            outcome=outcome, baseline=_baseline_column(plan),
             visits=plan.visit_labels, visit_days=self._visit_days(), arms=plan.arm_codes,
             reference=plan.arms.reference, primary_visit=endpoint.primary_visit,
             population=population.id if population else None, estimand=estimand.id if estimand else None,
             endpoint=endpoint.id, due_judged=bool(self.cut_off and self.cut_off.judged))
+
+    def _observed_grid(self, endpoint, population) -> pd.DataFrame:
+        """The participant × visit grid of a population with its observed and due flags (shared, never changed:
+        ``_apply_events`` works on a copy)."""
+        key = ("grid", endpoint.id, population.id if population else None)
+        if key in self._built:
+            return self._built[key]
+        plan = self.plan
+        subjects = self.subjects
+        if population is not None:
+            subjects = subjects[_members(subjects, population)]
+        frame = self._grid(endpoint, subjects)
+        frame[OBSERVED] = frame[_outcome_column(plan, endpoint)].notna()
+        frame[DUE] = due_flags(frame, subject=plan.columns.subject, visit=plan.columns.visit,
+                               observed=frame[OBSERVED], schedule=plan.visits.schedule, cut_off=self.cut_off)
+        self._built[key] = frame
+        return frame
 
     def _visit_days(self) -> dict[str, float | None]:
         return {v.label: v.day for v in self.plan.visits.schedule}
@@ -269,8 +296,9 @@ class DataCut:
         cols, plan = self.plan.columns, self.plan
         records = self._endpoint_records(endpoint)
         post = records[records[ROLE_COLUMN] == "post"].drop(columns=[ROLE_COLUMN])
-        ids = subjects[cols.subject].tolist()
-        grid = pd.DataFrame([(s, v) for s in ids for v in plan.visit_labels], columns=[cols.subject, cols.visit])
+        labels = np.array(plan.visit_labels, dtype=object)
+        ids = subjects[cols.subject].to_numpy()
+        grid = pd.DataFrame({cols.subject: np.repeat(ids, len(labels)), cols.visit: np.tile(labels, len(ids))})
         subject_columns = [c for c in subjects.columns if c != cols.subject]
         record_columns = [c for c in post.columns if c not in subject_columns or c == cols.subject]
         frame = grid.merge(post[record_columns], on=[cols.subject, cols.visit], how="left")
