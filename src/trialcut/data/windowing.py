@@ -47,10 +47,12 @@ def windows_from_schedule(schedule: Sequence[Any]) -> tuple[Window, ...]:
 def assign_visits(days: pd.Series, participants: pd.Series, windows: Sequence[Window],
                   parameters: pd.Series | None = None) -> WindowAssignment:
     """Assign each record (one study day each) to a visit and choose one record per visit."""
-    visit = pd.Series(_windows_of(days.to_numpy(dtype=float), windows), index=days.index, dtype=object)
+    labels = _windows_of(days.to_numpy(dtype=float), windows)
+    visit = pd.Series(labels, index=days.index, dtype=object)
     keys = _group_keys(participants, parameters)
+    # Over the plain list: a pandas lookup per record cost more than the assignment itself.
     log = [_entry(keys[position], None, None, [day], _unassigned_reason(day))
-           for position, day in enumerate(days.to_numpy(dtype=float)) if visit.iloc[position] is None]
+           for position, (day, label) in enumerate(zip(days.to_numpy(dtype=float), labels)) if label is None]
     planned = {w.label: w.day for w in windows}
     frame = pd.DataFrame({"key": pd.Series(keys, index=days.index, dtype=object), "visit": visit,
                           "day": days.astype(float), "position": np.arange(len(days))}, index=days.index)

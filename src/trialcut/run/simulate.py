@@ -66,7 +66,6 @@ def run_batch(batch: TrialBatch) -> list[dict[str, Any]]:
 
 def run_trial(plan, scenario, seed: np.random.SeedSequence, index: int) -> dict[str, Any]:
     from trialcut.data.prepare import prepare_cut
-    from trialcut.data.readers import raw_from_frame
     from trialcut.data.scenario_trials import simulate_scenario_trial
 
     data_seed, analysis_seed = seed.spawn(2)
@@ -74,7 +73,7 @@ def run_trial(plan, scenario, seed: np.random.SeedSequence, index: int) -> dict[
     outcome: dict[str, Any] = {"trial": index, "full_difference": trial.full_difference,
                                "left_by_primary": trial.left_by_primary, "analyses": {}, "rejected": {}}
     try:
-        cut = prepare_cut(plan, raw_from_frame(trial.frame, f"{scenario.id}-trial-{index}.csv"), cut_off=trial.cut_off)
+        cut = prepare_cut(plan, _raw(trial.frame, f"{scenario.id}-trial-{index}.csv"), cut_off=trial.cut_off)
     except DataError as error:    # the plan's data checks refused this trial: counted, never hidden
         outcome["data_error"] = error.render().splitlines()[0]
         return outcome
@@ -83,6 +82,17 @@ def run_trial(plan, scenario, seed: np.random.SeedSequence, index: int) -> dict[
     outcome["analyses"] = {entry["id"]: _estimates(plan, entry) for entry in entries}
     outcome["rejected"] = _rejections(plan, cut, entries)
     return outcome
+
+
+def _raw(frame, name: str):
+    """The trial as a data cut in memory.  Unlike ``raw_from_frame`` it carries no content hash:
+    writing every trial out as CSV to hash it cost more than its fit, and nothing reads it (a
+    simulated trial is never recorded; its seed reproduces it)."""
+    from trialcut.data.readers import RawCut
+
+    manifest = {"file": name, "format": "memory", "size": None, "sha256": None, "rows": int(len(frame)),
+                "columns": [str(c) for c in frame.columns]}
+    return RawCut(frame, manifest, 1, "record", True)
 
 
 def _analyse(plan, cut, analysis, context) -> dict[str, Any]:

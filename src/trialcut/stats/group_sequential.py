@@ -22,6 +22,7 @@ tests).  Tests are two-sided and symmetric: a look rejects when |Z_k| ≥ c_k.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import lru_cache
 from typing import Callable, Sequence
 
 import numpy as np
@@ -191,6 +192,15 @@ def boundaries(fractions: Sequence[float], *, alpha: float, spending: str, param
                route: str = "integration") -> Boundaries:
     """Lan–DeMets boundaries at the given (actual) information fractions for a two-sided level ``alpha``."""
     t = check_fractions(fractions)
+    # A pure function of its settings with a frozen result: the graph test asks for the same local
+    # levels many times per look, and a simulation for the same looks in every trial.
+    return _boundaries(tuple(map(float, t)), alpha, spending, parameter, route)
+
+
+@lru_cache(maxsize=512, typed=True)
+def _boundaries(fractions: tuple[float, ...], alpha: float, spending: str, parameter: float | None,
+                route: str) -> Boundaries:
+    t = np.array(fractions, dtype=float)
     cumulative = alpha_spent(t, alpha=alpha, spending=spending, parameter=parameter)
     increments = np.diff(np.concatenate([[0.0], cumulative]))
     return _solve(t, increments, route, cumulative=cumulative, alpha=alpha, spending=spending, parameter=parameter)
