@@ -279,7 +279,7 @@ def _check_types(state: _State) -> None:
         state.record("numeric_columns", "numeric columns holding values that are not numbers", "error", bad_total)
     for name in text_columns(state.plan):
         if state.has(name):
-            state.work[name] = state.work[name].map(_clean_text)
+            state.work[name] = _clean_texts(state.work[name])
     if not state.raw.typed:
         _parse_other_numbers(state)
 
@@ -318,6 +318,20 @@ def _clean_text(value: Any) -> Any:
         value = int(value)          # a numeric code written as 3.0 means "3"
     text = str(value).strip()
     return text if text else None
+
+
+def _clean_texts(values: pd.Series) -> pd.Series:
+    """``values.map(_clean_text)``, cleaning each distinct text once: a cut repeats a few hundred
+    ids and a handful of labels thousands of times.  Anything but plain text and plain gaps takes
+    the general route (1 and True are one key to pandas but different texts)."""
+    codes, uniques = pd.factorize(values)          # gaps get code -1
+    if not len(values) or not all(type(u) is str for u in uniques):
+        return values.map(_clean_text)
+    gaps = values.to_numpy(dtype=object)[codes < 0]
+    if not all(v is None or v is pd.NA or (isinstance(v, float) and v != v) for v in gaps):
+        return values.map(_clean_text)
+    cleaned = np.array([_clean_text(u) for u in uniques] + [None], dtype=object)
+    return pd.Series(cleaned[codes].tolist(), index=values.index, name=values.name)
 
 
 def _parse_other_numbers(state: _State) -> None:

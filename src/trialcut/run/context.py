@@ -29,6 +29,9 @@ class RunContext:
     root_seed: int
     executor: Executor = field(default_factory=InlineExecutor)
     progress: ProgressCallback | None = None
+    # A simulated trial reads only the comparisons with the reference and how the fit ended: a
+    # method may then leave out what only a report shows (other tables, residuals, fit records).
+    estimates_only: bool = False
 
     def seed_sequence(self, analysis_id: str) -> np.random.SeedSequence:
         """One independent stream per analysis, stable across runs and worker counts.

@@ -41,8 +41,12 @@ def run_mmrm(data, analysis, context: RunContext) -> dict[str, Any]:
         visit_times=_visit_times(data.visit_days),
     )
     level = options.confidence_level
+    differences = table(fit.differences(confidence_level=level), "Differences from the reference arm")
+    if context.estimates_only:
+        return {"tables": {"differences": differences},
+                "fit": {"structure": fit.structure, "converged": fit.converged}, "diagnostics": {}}
     tables = {
-        "differences": table(fit.differences(confidence_level=level), "Differences from the reference arm"),
+        "differences": differences,
         "marginal_means": table(fit.marginal_means(confidence_level=level), "Model-estimated means by arm and visit"),
         "joint_tests": table(fit.joint_tests(), "Tests of each effect, all its coefficients at once"),
         "fixed_effects": table(fit.fixed_effects, "Estimated coefficients of the model"),

@@ -77,7 +77,7 @@ def run_trial(plan, scenario, seed: np.random.SeedSequence, index: int) -> dict[
     except DataError as error:    # the plan's data checks refused this trial: counted, never hidden
         outcome["data_error"] = error.render().splitlines()[0]
         return outcome
-    context = RunContext(root_seed=int(analysis_seed.generate_state(1)[0]))
+    context = RunContext(root_seed=int(analysis_seed.generate_state(1)[0]), estimates_only=True)
     entries = [_analyse(plan, cut, analysis, context) for analysis in selected_analyses(plan, scenario)]
     outcome["analyses"] = {entry["id"]: _estimates(plan, entry) for entry in entries}
     outcome["rejected"] = _rejections(plan, cut, entries)
