@@ -201,7 +201,11 @@ def _participant_information(plan, cut, spending) -> dict[str, Any]:
     endpoint = plan.endpoints[0]
     primary = endpoint.analyses.primary
     population = primary.population or plan.estimand(primary.estimand).population
-    data = cut.analysis_data(endpoint.id, population_id=population)
+    # Strategies change values, never rows or due-ness: the primary analysis' data (built already)
+    # serve for counting due visits; counting observed values needs the values as recorded.
+    data = cut.analysis_data(endpoint.id, estimand_id=primary.estimand, population_id=population)
+    if not getattr(data, "due_judged", False):
+        data = cut.analysis_data(endpoint.id, population_id=population)
     frame = data.frame[data.frame[data.visit].astype(str) == str(data.primary_visit)]
     cautions = []
     counted_in = plan.population(population).label.lower() if population else "analysis population"
