@@ -25,7 +25,7 @@ from trialcut.report.blocks import Block, Section
 from trialcut.report.tables import ReportTable
 
 # Style ids (python-docx derives them from the names given to add_style).
-TABLE_TEXT_ID, TABLE_NOTE_ID, LIST_ID = "Tabletext", "Tablenote", "ListBullet"
+TABLE_TEXT_ID, TABLE_NOTE_ID, LIST_ID, CAPTION_ID = "Tabletext", "Tablenote", "ListBullet", "Caption"
 FONT = "DejaVu Sans"          # the stylesheet's first family, the one the PDF uses
 INK, MUTED, ACCENT = "1F2A33", "55636E", "0F6F6B"
 ACCENT_SOFT, RULE, STRIPE, WARN, WARN_SOFT = "E6F0EF", "C7D0D5", "F5F7F8", "9A3412", "FFF4E5"
@@ -35,6 +35,7 @@ HEADING_POINTS = {1: 21, 2: 15, 3: 12, 4: 10.5, 5: 10}
 MARGINS_MM = (24, 15, 20, 15)
 PAPER_MM = {"A4": (210, 297), "Letter": (215.9, 279.4)}
 EARLIEST_ZIP_TIME = (1980, 1, 1, 0, 0, 0)
+_W_NAMESPACE = 'xmlns:w="http://schemas.openxmlformats.org/wordprocessingml/2006/main"'
 
 
 def write_docx(document, target: Path, *, pictures: Mapping[str, bytes] | None = None,
@@ -240,16 +241,14 @@ def _title_page(word, document, kicker: str | None) -> None:
     run = word.add_paragraph().add_run(kicker.upper())
     run.font.size = Pt(8.5)
     _colour(run, MUTED)
-    word.add_paragraph(document.title, style="Title")
+    _paragraph(word, document.title, "Title")
     if document.facts:
-        table = word.add_table(rows=0, cols=2)
+        grid = _GridXml(_twips([0.3, 0.7], _text_width(word.sections[-1])), fixed=False)
         for label, value in document.facts:
-            cells = table.add_row().cells
-            _cell_text(cells[0], str(label), bold=True, colour=MUTED)
-            _cell_text(cells[1], str(value))
-        _widths(table, [0.3, 0.7], _text_width(word.sections[-1]))
+            grid.cells([_cell_xml(str(label), bold=True, colour=MUTED), _cell_xml(str(value))], keep_whole=False)
+        grid.add_to(word)
     if document.cautions:
-        word.add_heading("Before you read", level=2)
+        _paragraph(word, "Before you read", "Heading2")
         for caution in document.cautions:
             _paragraph(word, caution, LIST_ID)
     word.add_paragraph("Editable copy of the report rendered by trialcut from the run's results.json; the PDF "
@@ -260,15 +259,15 @@ def _title_page(word, document, kicker: str | None) -> None:
 def _contents(word, document) -> None:
     from docx.enum.text import WD_BREAK
 
-    word.add_heading("Contents", level=2)
+    _paragraph(word, "Contents", "Heading2")
     for number, section in enumerate(document.sections, start=1):
         _contents_entries(word, section, str(number), depth=0)
     if document.tables:
-        word.add_heading("Tables", level=3)
+        _paragraph(word, "Tables", "Heading3")
         for table in document.tables:
             _paragraph(word, f"{table.number}  {table.title}", TABLE_NOTE_ID)
     if document.figures:
-        word.add_heading("Figures", level=3)
+        _paragraph(word, "Figures", "Heading3")
         for figure in document.figures:
             _paragraph(word, f"{figure.number}  {figure.title}", TABLE_NOTE_ID)
     word.add_paragraph().add_run().add_break(WD_BREAK.PAGE)
@@ -289,6 +288,8 @@ class _Writer:
     def __init__(self, word, document, pictures: dict[str, bytes]):
         self.word, self.document, self.pictures = word, document, pictures
         self.landscape = False      # the orientation of the page being filled
+        self.room = _text_width(word.sections[-1])     # its text width (finding the section walks the body)
+        self.next_shape_id = 0      # the id of the next picture, once the first one is placed
         self.fresh_page = False     # a section break has just started a new page
 
     def _orient(self, landscape: bool) -> None:
@@ -305,7 +306,7 @@ class _Writer:
         if level == 1 and number != "1" and not self.fresh_page and not getattr(self.document, "compact", False):
             self.word.add_paragraph().add_run().add_break(WD_BREAK.PAGE)
         self.fresh_page = False
-        heading = self.word.add_heading(level=min(level + 1, 5))
+        heading = _paragraph(self.word, "", f"Heading{min(level + 1, 5)}")
         run = heading.add_run(f"{number}  ")
         _colour(run, ACCENT)
         heading.add_run(section.title)
@@ -338,55 +339,34 @@ class _Writer:
 
     # ------------------------------------------------------------------ tables
     def table(self, table: ReportTable) -> None:
-        caption = self.word.add_paragraph(style="Caption")
+        caption = _paragraph(self.word, "", CAPTION_ID)
         if table.number:
             number = caption.add_run(f"{table.number}  ")
             _colour(number, ACCENT)
         caption.add_run(table.title)
         body = table.body()
         columns = table.header()
-        counts = getattr(table, "counts", "")
-        grid = self.word.add_table(rows=0, cols=len(columns))
-        grid.autofit = False
-        if counts:
-            row = grid.add_row()
-            merged = row.cells[0].merge(row.cells[-1]) if len(columns) > 1 else row.cells[0]
-            _cell_text(merged, counts, bold=True)
-            self._header_row(row)
-        row = grid.add_row()
-        for cell, column in zip(row.cells, columns):
-            _cell_text(cell, column.label, bold=True, right=column.numeric)
-        self._header_row(row, last=True)
-        for position, values in enumerate(body):
-            row = grid.add_row()
-            _keep_row_whole(row)
-            for cell, (text, column) in zip(row.cells, values):
-                _cell_text(cell, text, right=column.numeric)
-                _cell_rules(cell, stripe=position % 2 == 1)
         shares = [float(width.rstrip("%")) / 100 for width in table.column_widths(body)]
-        _widths(grid, shares, _text_width(self.word.sections[-1]))
+        grid = _GridXml(_twips(shares, self.room), fixed=True)
+        counts = getattr(table, "counts", "")
+        if counts:
+            grid.spanning_row(counts, bold=True, fill=ACCENT_SOFT, header=True)
+        grid.row([(column.label, column.numeric) for column in columns], bold=True, fill=ACCENT_SOFT,
+                 rule=(ACCENT, 12), header=True)
+        for position, values in enumerate(body):
+            grid.row([(text, column.numeric) for text, column in values], fill=STRIPE if position % 2 else None,
+                     rule=(RULE, 6))
+        grid.add_to(self.word)
         for line in [table.note, *getattr(table, "footnotes", ())]:
             if line:
                 _paragraph(self.word, str(line), TABLE_NOTE_ID)
-
-    def _header_row(self, row, last: bool = False) -> None:
-        from docx.oxml import OxmlElement
-
-        # Children in the order the format's schema requires (cantSplit before tblHeader,
-        # tcBorders before shd): word processors reject a file that breaks it.
-        _keep_row_whole(row)
-        row._tr.get_or_add_trPr().append(OxmlElement("w:tblHeader"))     # repeated at the top of every page
-        for cell in row.cells:
-            cell_properties = cell._tc.get_or_add_tcPr()
-            if last:
-                _border(cell_properties, {"bottom": (ACCENT, 12)}, "w:tcBorders")
-            _shade(cell_properties, ACCENT_SOFT)
 
     def _new_page_section(self, *, landscape: bool) -> None:
         from docx.enum.section import WD_SECTION
 
         section = self.word.add_section(WD_SECTION.NEW_PAGE)
         _page(section, self.document.paper, landscape=landscape)
+        self.room = _text_width(section)
 
     # ------------------------------------------------------------------ figures
     def figure(self, figure) -> None:
@@ -396,11 +376,10 @@ class _Writer:
         if picture is None:
             self.word.add_paragraph(f"{figure.title}: {figure.note or 'not drawn.'}")
             return
-        width = min(_text_width(self.word.sections[-1]), Mm(170))
         paragraph = self.word.add_paragraph()
         paragraph.paragraph_format.keep_with_next = True
-        paragraph.add_run().add_picture(io.BytesIO(picture), width=width)
-        caption = self.word.add_paragraph(style="Caption")
+        paragraph.add_run()._r.add_drawing(self._inline_picture(picture, min(self.room, Mm(170))))
+        caption = _paragraph(self.word, "", CAPTION_ID)
         number = caption.add_run(f"{figure.number}  ")
         _colour(number, ACCENT)
         caption.add_run(figure.title)
@@ -408,48 +387,128 @@ class _Writer:
             _paragraph(self.word, figure.note, TABLE_NOTE_ID)
 
 
+    def _inline_picture(self, picture: bytes, width: int):
+        """The picture as python-docx's ``add_picture`` places it, numbered from a counter:
+        python-docx numbers each picture by searching the whole document for the highest id
+        so far, which grows with every table before it."""
+        from docx.oxml.shape import CT_Inline
+
+        part = self.word.part
+        if not self.next_shape_id:
+            self.next_shape_id = part.next_id
+        relation, image = part.get_or_add_image(io.BytesIO(picture))
+        cx, cy = image.scaled_dimensions(width, None)
+        inline = CT_Inline.new_pic_inline(self.next_shape_id, relation, image.filename, cx, cy)
+        self.next_shape_id += 1
+        return inline
+
+
 def _paragraph(word, text: str, style_id: str):
+    """A paragraph in a style named by its id (python-docx looks a style name up by walking
+    every style of the document, each time)."""
     paragraph = word.add_paragraph(text)
     paragraph._p.style = style_id
     return paragraph
 
 
-def _cell_text(cell, text: str, *, bold: bool = False, right: bool = False, colour: str | None = None) -> None:
-    from docx.enum.text import WD_ALIGN_PARAGRAPH
-
-    paragraph = cell.paragraphs[0]
-    paragraph._p.style = TABLE_TEXT_ID       # by id: python-docx's lookup by name is slow per cell
-    run = paragraph.add_run(text)
-    run.bold = bold or None
-    if colour:
-        _colour(run, colour)
-    if right:
-        paragraph.alignment = WD_ALIGN_PARAGRAPH.RIGHT
-
-
-def _cell_rules(cell, *, stripe: bool) -> None:
-    properties = cell._tc.get_or_add_tcPr()
-    _border(properties, {"bottom": (RULE, 6)}, "w:tcBorders")
-    if stripe:
-        _shade(properties, STRIPE)
+# --------------------------------------------------------------------------- tables as XML
+# A report has thousands of cells: python-docx's per-cell calls (add_row, cell.paragraphs,
+# get_or_add_tcPr, one lookup per property) cost seconds, so each table's WordprocessingML is
+# written as text and parsed once (python-docx's own parser, so the elements are its classes).
+# Element order inside each property element follows the format's schema (tcW, gridSpan,
+# tcBorders, shd; cantSplit before tblHeader; b before color): word processors reject a file
+# that breaks it.
+_TABLE_LOOK = ('<w:tblLook w:firstColumn="1" w:firstRow="1" w:lastColumn="0" w:lastRow="0" w:noHBand="0" '
+               'w:noVBand="1" w:val="04A0"/>')
+# Characters XML 1.0 cannot carry (controls other than tab, line feed and carriage return).
+_NOT_IN_XML = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\ufffe\uffff]")
+_LINE_OR_TAB = re.compile("(\r\n|\n|\r|\t)")
 
 
-def _keep_row_whole(row) -> None:
-    from docx.oxml import OxmlElement
+class _GridXml:
+    """One table's rows as WordprocessingML text; ``add_to`` parses it into the document's body."""
 
-    row._tr.get_or_add_trPr().append(OxmlElement("w:cantSplit"))
+    def __init__(self, widths: Sequence[int], *, fixed: bool):
+        self.widths = list(widths)
+        self.parts = [f'<w:tbl {_W_NAMESPACE}><w:tblPr><w:tblW w:type="auto" w:w="0"/>',
+                      '<w:tblLayout w:type="fixed"/>' if fixed else "", _TABLE_LOOK, "</w:tblPr><w:tblGrid>",
+                      *(f'<w:gridCol w:w="{width}"/>' for width in self.widths), "</w:tblGrid>"]
+
+    def row(self, cells: Sequence[tuple[str, bool]], *, bold: bool = False, fill: str | None = None,
+            rule: tuple[str, int] | None = None, header: bool = False) -> None:
+        """A row of (text, right-aligned) cells, one per column, sharing their look."""
+        self.cells([_cell_xml(text, width=width, bold=bold, right=right, fill=fill, rule=rule)
+                    for (text, right), width in zip(cells, self.widths)], header=header)
+
+    def spanning_row(self, text: str, *, bold: bool, fill: str, header: bool) -> None:
+        """One cell across every column (the participants per arm above the column labels)."""
+        self.cells([_cell_xml(text, width=sum(self.widths), span=len(self.widths), bold=bold, fill=fill)],
+                   header=header)
+
+    def cells(self, cells: Sequence[str], *, header: bool = False, keep_whole: bool = True) -> None:
+        if len(cells) == len(self.widths):      # a cell made without a width takes its column's
+            cells = [cell.replace(_NO_WIDTH, str(width), 1) for cell, width in zip(cells, self.widths)]
+        # cantSplit keeps a row on one page; tblHeader repeats the row at the top of every page.
+        properties = ("<w:trPr><w:cantSplit/>" + ("<w:tblHeader/>" if header else "") + "</w:trPr>"
+                      if keep_whole or header else "")
+        self.parts.append("<w:tr>" + properties + "".join(cells) + "</w:tr>")
+
+    def add_to(self, word):
+        from docx.oxml import parse_xml
+
+        table = parse_xml("".join(self.parts + ["</w:tbl>"]))
+        word.element.body._insert_tbl(table)
+        return table
 
 
-def _widths(table, shares: Sequence[float], room: int) -> None:
+_NO_WIDTH = "{column width}"        # replaced by _GridXml.cells with the column's width
+
+
+def _cell_xml(text: str, *, width: int | None = None, span: int = 1, bold: bool = False, right: bool = False,
+              colour: str | None = None, fill: str | None = None, rule: tuple[str, int] | None = None) -> str:
+    """One cell holding one paragraph in the table text style (named by id, as Word stores it)."""
+    properties = f'<w:tcW w:type="dxa" w:w="{_NO_WIDTH if width is None else width}"/>'
+    if span > 1:
+        properties += f'<w:gridSpan w:val="{span}"/>'
+    if rule:
+        properties += (f'<w:tcBorders><w:bottom w:val="single" w:sz="{rule[1]}" w:space="0" '
+                       f'w:color="{rule[0]}"/></w:tcBorders>')
+    if fill:
+        properties += f'<w:shd w:val="clear" w:color="auto" w:fill="{fill}"/>'
+    paragraph = f'<w:pPr><w:pStyle w:val="{TABLE_TEXT_ID}"/>' + ('<w:jc w:val="right"/>' if right else "") + "</w:pPr>"
+    looks = ("<w:b/>" if bold else "") + (f'<w:color w:val="{colour}"/>' if colour else "")
+    run = f"<w:r>{f'<w:rPr>{looks}</w:rPr>' if looks else ''}{_run_content(text)}</w:r>" if text else ""
+    return f"<w:tc><w:tcPr>{properties}</w:tcPr><w:p>{paragraph}{run}</w:p></w:tc>"
+
+
+def _run_content(text: str) -> str:
+    """A run's text as python-docx writes it: a line break for a new line, a tab element for a
+    tab, and spaces kept where they lead or trail."""
+    text = _NOT_IN_XML.sub("\ufffd", text)
+    if "\n" not in text and "\t" not in text and "\r" not in text:
+        return _text_element(text)
+    pieces = []
+    for piece in _LINE_OR_TAB.split(text):
+        if piece == "\t":
+            pieces.append("<w:tab/>")
+        elif piece in ("\n", "\r", "\r\n"):
+            pieces.append("<w:br/>")
+        elif piece:
+            pieces.append(_text_element(piece))
+    return "".join(pieces)
+
+
+def _text_element(text: str) -> str:
+    escaped = text.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
+    return f'<w:t xml:space="preserve">{escaped}</w:t>' if text != text.strip() else f"<w:t>{escaped}</w:t>"
+
+
+def _twips(shares: Sequence[float], room: int) -> list[int]:
     """Column widths as the PDF's shares of the text width (the word processor keeps them)."""
     from docx.shared import Emu
 
     total = sum(shares) or 1.0
-    for position, column in enumerate(table.columns):
-        width = Emu(int(room * shares[position] / total))
-        column.width = width
-        for cell in column.cells:
-            cell.width = width
+    return [Emu(int(room * share / total)).twips for share in shares]
 
 
 # --------------------------------------------------------------------------- same bytes every time

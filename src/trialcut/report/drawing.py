@@ -5,8 +5,9 @@ the HTML and computed the styles; matplotlib (import and drawing) takes about as
 PDF's HTML names each figure by a ``trialcut-figure:<slug>`` URL, a forked child draws the
 figures in reading order, and the engine's URL fetcher waits for the one it needs.  The child
 runs the same drawing calls as the parent would, so the bytes are the same either way.  Asked
-for pictures too (the DOCX copy's PNGs), the child draws them after the SVGs, still while the
-engine lays out the text.
+for pictures too (the DOCX copy's PNGs), the child keeps each figure it drew and saves it as a
+PNG after all the SVGs are sent (``figures.svg_and_picture``: saved, not drawn again), still
+while the engine lays out the text.
 
 Forking is used only where it is safe and cheap: a platform that has it, a parent with no
 other threads (forking a threaded process can copy a held lock) and not itself a daemonic
@@ -19,7 +20,7 @@ import os
 import signal
 import sys
 import threading
-from typing import Sequence
+from typing import Callable, Sequence
 
 from trialcut.report.figures import FigureImage, png_of
 
@@ -44,6 +45,7 @@ class FigureDrawing:
         self._jobs = {f.slug: f.job for f in self._waiting}
         self._want_pictures = pictures
         self._pictures: dict[str, bytes] = {}
+        self._picture_calls: dict[str, Callable[[], bytes]] = {}    # figures drawn here, kept for their PNG
         self._child = self._connection = None
         if self._waiting and _can_fork():
             self._start_child()
@@ -53,7 +55,12 @@ class FigureDrawing:
     # ------------------------------------------------------------------ drawing
     def _draw_here(self) -> None:
         for figure in self._waiting:
-            self._drawn[figure.slug] = figure.drawn()
+            if self._want_pictures:
+                self._drawn[figure.slug], picture = figure.drawn_with_picture()
+                if picture is not None:
+                    self._picture_calls[figure.slug] = picture
+            else:
+                self._drawn[figure.slug] = figure.drawn()
         self._waiting = []
 
     def _start_child(self) -> None:
@@ -68,11 +75,11 @@ class FigureDrawing:
             drawn = []
             try:
                 for figure in figures:
-                    done = figure.drawn()
+                    done, picture = figure.drawn_with_picture() if pictures else (figure.drawn(), None)
                     sending.send(("svg", figure.slug, done.svg, done.note))
-                    drawn.append((figure, done.svg is not None))
-                for figure, shown in drawn if pictures else ():
-                    sending.send(("png", figure.slug, _picture(figure.job) if shown else None))
+                    drawn.append((figure, picture))
+                for figure, picture in drawn:
+                    sending.send(("png", figure.slug, _picture(picture) if picture is not None else None))
                 sending.close()
             except (BrokenPipeError, ConnectionResetError):
                 # The parent stopped reading (it was killed, or gave up on the figures):
@@ -156,7 +163,7 @@ class FigureDrawing:
         for slug, job in self._jobs.items():
             figure = self._drawn.get(slug)
             if slug not in self._pictures and figure is not None and figure.svg is not None:
-                picture = _picture(job)
+                picture = _picture(self._picture_calls.pop(slug, None) or (lambda job=job: png_of(job)))
                 if picture is not None:
                     self._pictures[slug] = picture
         return dict(self._pictures)
@@ -171,11 +178,11 @@ class FigureDrawing:
         self._close(wait=0.0 if self._connection is not None else 5.0)
 
 
-def _picture(job) -> bytes | None:
+def _picture(save: Callable[[], bytes]) -> bytes | None:
     """The PNG of a figure whose SVG was drawn; None if the picture fails (the copy then names
     the figure in words instead of failing the whole rendering)."""
     try:
-        return png_of(job)
+        return save()
     except Exception:  # noqa: BLE001 - a picture is a copy of an SVG already drawn
         return None
 

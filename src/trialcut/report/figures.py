@@ -63,38 +63,66 @@ class FigureImage:
 
     def drawn(self) -> "FigureImage":
         """This figure drawn here and now; a drawing failure becomes a note, not a failed report."""
+        return self.drawn_with_picture()[0] if self.job is not None else self
+
+    def drawn_with_picture(self) -> tuple["FigureImage", Callable[[], bytes] | None]:
+        """This figure drawn here and now, and a call that saves the same drawing as PNG (see
+        svg_and_picture); None when there is nothing to save (already drawn, or it failed)."""
         if self.job is None:
-            return self
+            return self, None
         try:
-            svg = self.job()
+            svg, picture = svg_and_picture(self.job)
         except Exception as error:  # noqa: BLE001 - one bad figure must not hide the rest of the report
-            return replace(self, svg=None, job=None, note=f"Not drawn: {type(error).__name__}: {error}")
-        return replace(self, svg=svg, job=None)
+            return replace(self, svg=None, job=None, note=f"Not drawn: {type(error).__name__}: {error}"), None
+        return replace(self, svg=svg, job=None), picture
 
 
 def _new_figure(width: float, height: float, layout: str | None):
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
-    return Figure(figsize=(width, height), dpi=100, layout=layout)
+    # 72 dots per inch, the SVG's own unit: make_room and clipped_texts then measure the texts
+    # at the size the SVG lays them out (matplotlib rounds glyph widths to whole pixels, so
+    # a label measured at another resolution can be several points shorter than in the SVG).
+    figure = Figure(figsize=(width, height), dpi=SVG_DPI, layout=layout)
+    # A canvas of its own keeps one renderer for every layout pass and measurement (make_room,
+    # text_extents), so text sizes measured once are reused; without one, matplotlib makes a
+    # new renderer, and measures every text again, on each pass.
+    FigureCanvasAgg(figure)
+    return figure
 
 
 def _svg(figure) -> bytes:
+    kept = _KEPT.get()
+    if kept is not None:
+        kept.append(figure)
+    if _RASTER.get():
+        return _png(figure)
     import matplotlib
 
     buffer = io.BytesIO()
     with matplotlib.rc_context(RC):
-        if _RASTER.get():
-            # The editable copy (DOCX) takes pictures; PNG from the Agg renderer carries no
-            # date, so the same drawing gives the same bytes.
-            figure.savefig(buffer, format="png", dpi=RASTER_DPI, metadata={"Software": None})
-        else:
-            figure.savefig(buffer, format="svg", metadata={"Date": None})
+        figure.savefig(buffer, format="svg", metadata={"Date": None})
+    return buffer.getvalue()
+
+
+def _png(figure) -> bytes:
+    # The editable copy (DOCX) takes pictures; PNG from the Agg renderer carries no date, so
+    # the same drawing gives the same bytes.
+    import matplotlib
+
+    buffer = io.BytesIO()
+    with matplotlib.rc_context(RC):
+        figure.savefig(buffer, format="png", dpi=RASTER_DPI, metadata={"Software": None})
     return buffer.getvalue()
 
 
 # Set while a figure is drawn as a picture (see png_of) instead of as SVG.
 _RASTER = contextvars.ContextVar("trialcut_figure_raster", default=False)
+# A list while svg_and_picture draws: the figure saved as SVG is kept for its picture.
+_KEPT: contextvars.ContextVar[list | None] = contextvars.ContextVar("trialcut_figure_kept", default=None)
 RASTER_DPI = 200
+SVG_DPI = 72
 
 
 def png_of(job: Callable[[], bytes]) -> bytes:
@@ -104,6 +132,24 @@ def png_of(job: Callable[[], bytes]) -> bytes:
         return job()
     finally:
         _RASTER.reset(token)
+
+
+def svg_and_picture(job: Callable[[], bytes]) -> tuple[bytes, Callable[[], bytes]]:
+    """A figure's SVG now, and a call that saves the same drawing as PNG later.
+
+    Drawing a figure (its artists and the layout passes that keep texts inside) costs more
+    than saving it, so the picture for the DOCX copy is saved from the figure already drawn
+    for the SVG instead of drawing it again: the same bytes as ``png_of(job)``, for about
+    half the time.  The figure is kept until the call is made."""
+    kept: list = []
+    token = _KEPT.set(kept)
+    try:
+        svg = job()
+    finally:
+        _KEPT.reset(token)
+    if len(kept) != 1:       # a job that saved no figure, or several: draw the picture again
+        return svg, lambda: png_of(job)
+    return svg, lambda: _png(kept.pop())
 
 
 def _draw(draw, *args, width=6.4, height=3.4, layout="constrained", **kwargs) -> bytes:
@@ -157,19 +203,32 @@ def _ticks_outside_view(figure) -> set[int]:
 
 
 def clipped_texts(figure, tolerance: float = 0.5) -> list[str]:
-    """The texts whose drawn extent leaves the figure: a clipped axis title, a cut tick label."""
-    width, height = figure.bbox.width, figure.bbox.height
-    return [text for text, (x0, y0, x1, y1) in text_extents(figure)
-            if x0 < -tolerance or y0 < -tolerance or x1 > width + tolerance or y1 > height + tolerance]
+    """The texts whose drawn extent leaves the figure: a clipped axis title, a cut tick label.
+
+    The figure is laid out again at its own size first: matplotlib places axis titles and
+    legends while drawing, so after a save (an SVG is drawn at 72 dots per inch) their
+    positions are those of that drawing, not of the figure's pixels measured here.  The layout
+    uses the settings the figure is saved with (a tick label's size, so the ticks chosen)."""
+    import matplotlib
+
+    with matplotlib.rc_context(RC):
+        figure.draw_without_rendering()
+        width, height = figure.bbox.width, figure.bbox.height
+        return [text for text, (x0, y0, x1, y1) in text_extents(figure)
+                if x0 < -tolerance or y0 < -tolerance or x1 > width + tolerance or y1 > height + tolerance]
 
 
 def make_room(figure, pad: float = 4.0) -> None:
     """Widen the margins of a fixed-margin figure until every text lies inside it.
 
     A long axis title or tick label drawn with fixed margins runs past the figure's edge and
-    is cut off in the SVG (and so in the PDF and the HTML).  Measure what is drawn, move the
-    axes in by what sticks out, and measure again (a moved axis moves its labels)."""
+    is cut off in the SVG (and so in the PDF and the HTML).  Lay the figure out, measure what
+    is drawn, move the axes in by what sticks out, and measure again (a moved axis moves its
+    labels).  The layout pass matters: before it, axis titles and legends sit at the figure's
+    edge (matplotlib places them while drawing), so measuring then widened every margin three
+    times over and left wide empty bands around the plots."""
     for _ in range(3):
+        figure.draw_without_rendering()
         width, height = figure.bbox.width, figure.bbox.height
         extents = [box for _, box in text_extents(figure)]
         if not extents:
