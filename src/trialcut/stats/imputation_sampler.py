@@ -34,7 +34,7 @@ class ModelParameters:
 
     def means(self, data: ImputationData, arm_index: np.ndarray | None = None) -> np.ndarray:
         arm_index = data.arm_index if arm_index is None else arm_index
-        chosen = self.coefficients[arm_index]                      # (n, 1 + q, T)
+        chosen = np.take(self.coefficients, arm_index, axis=0)     # (n, 1 + q, T)
         return chosen[:, 0, :] + np.einsum("nq,nqt->nt", data.covariates, chosen[:, 1:, :])
 
 
@@ -123,12 +123,13 @@ class _BatchedConditional:
         root_inverse = np.linalg.inv(np.linalg.cholesky(padded))           # L⁻¹ with A = LLᵀ
         noise_map = root_inverse.transpose(0, 2, 1)                          # L⁻ᵀ: cov A⁻¹
         gain = -(noise_map @ root_inverse) @ (d[:, :, None] * precision[self.pattern_arm])   # −A⁻¹DΛ
-        centre = mean[self.rows]
-        residual = np.where(self.mask, 0.0, y[self.rows] - centre)
-        combined = np.concatenate([gain, noise_map], axis=2)[self.pattern_of]
+        centre = np.take(mean, self.rows, axis=0)
+        current = np.take(y, self.rows, axis=0)
+        residual = np.where(self.mask, 0.0, current - centre)
+        combined = np.take(np.concatenate([gain, noise_map], axis=2), self.pattern_of, axis=0)
         draw = np.einsum("nij,nj->ni", combined,
                          np.concatenate([residual, rng.standard_normal((self.rows.size, t))], axis=1))
-        y[self.rows] = np.where(self.mask, centre + draw, y[self.rows])
+        y[self.rows] = np.where(self.mask, centre + draw, current)
 
 
 class _Sampler:
@@ -207,16 +208,29 @@ class _CommonSlopeSampler(_Sampler):
     I = Σᵢ XᵢᵀΣ⁻¹Xᵢ and r = Σᵢ XᵢᵀΣ⁻¹yᵢ, then Σ | θ, Y ~ inverse-Wishart(n, Σᵢ eᵢeᵢᵀ) under
     the same Jeffreys prior (n, not n − p: θ is conditioned on, not integrated out)."""
 
+    def __init__(self, data: ImputationData, covariance_by_arm: bool):
+        super().__init__(data, covariance_by_arm)
+        # Per arm: rows, count, covariates, their sums and cross-products — fixed for the data,
+        # so made once rather than at each of a chain's thousands of steps.
+        c = data.covariates
+        self._arm_sums = []
+        for k in range(self.n_arms):
+            rows = np.flatnonzero(data.arm_index == k)
+            self._arm_sums.append((rows, rows.size, c[rows], c[rows].sum(axis=0), c[rows].T @ c[rows].copy()))
+
     def step(self, y: np.ndarray, parameters: ModelParameters, rng: np.random.Generator) -> ModelParameters:
         self.i_step.draw(y, parameters.means(self.data), parameters.covariances, rng)
         means, gamma = self._draw_means(y, parameters.covariances, rng)
         coefficients = np.empty_like(parameters.coefficients)
         coefficients[:, 0, :] = means
         coefficients[:, 1:, :] = gamma[None, :, None]
-        residual = y - means[self.data.arm_index] - (self.data.covariates @ gamma)[:, None]
+        residual = y - np.take(means, self.data.arm_index, axis=0) - (self.data.covariates @ gamma)[:, None]
         covariances = np.empty_like(parameters.covariances)
         for g, rows in enumerate(self.groups):
-            sigma = _inverse_wishart(rows.size, residual[rows].T @ residual[rows], rng)
+            # One copy where there were two; still two distinct operands, so that numpy keeps
+            # the general matrix product (the same bits) rather than the symmetric one it uses for A.T @ A.
+            own = residual if rows.size == len(residual) else np.take(residual, rows, axis=0)
+            sigma = _inverse_wishart(rows.size, own.T @ own.copy(), rng)
             if self.by_arm:
                 covariances[g] = sigma
             else:
@@ -225,19 +239,20 @@ class _CommonSlopeSampler(_Sampler):
 
     def _draw_means(self, y, covariances, rng) -> tuple[np.ndarray, np.ndarray]:
         k_arms, t, q = self.n_arms, y.shape[1], self.q
-        c, slope = self.data.covariates, slice(k_arms * t, k_arms * t + q)
+        slope = slice(k_arms * t, k_arms * t + q)
         information = np.zeros((k_arms * t + q,) * 2)
         score = np.zeros(k_arms * t + q)
         for k, lam in enumerate(np.linalg.inv(covariances)):
-            rows = self.data.arm_index == k
+            rows, count, c_rows, c_sum, c_cross = self._arm_sums[k]
             block = slice(k * t, (k + 1) * t)
             lam_one = lam.sum(axis=1)                                   # Λ1
-            information[block, block] = rows.sum() * lam
-            information[block, slope] = np.outer(lam_one, c[rows].sum(axis=0))
+            information[block, block] = count * lam
+            information[block, slope] = np.outer(lam_one, c_sum)
             information[slope, block] = information[block, slope].T
-            information[slope, slope] += lam_one.sum() * (c[rows].T @ c[rows])
-            score[block] = lam @ y[rows].sum(axis=0)
-            score[slope] += c[rows].T @ (y[rows] @ lam_one)
+            information[slope, slope] += lam_one.sum() * c_cross
+            y_rows = np.take(y, rows, axis=0)
+            score[block] = lam @ y_rows.sum(axis=0)
+            score[slope] += c_rows.T @ (y_rows @ lam_one)
         root = np.linalg.cholesky(information)
         theta = np.linalg.solve(information, score) + np.linalg.solve(root.T, rng.standard_normal(score.size))
         return theta[:k_arms * t].reshape(k_arms, t), theta[slope]
