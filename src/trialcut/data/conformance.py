@@ -24,6 +24,7 @@ from typing import Any, Callable, Iterable
 import numpy as np
 import pandas as pd
 
+from trialcut.data.cells import map_distinct
 from trialcut.data.readers import RawCut
 from trialcut.data.windowing import assign_visits, windows_from_schedule
 from trialcut.errors import DataError, Problem
@@ -279,7 +280,7 @@ def _check_types(state: _State) -> None:
         state.record("numeric_columns", "numeric columns holding values that are not numbers", "error", bad_total)
     for name in text_columns(state.plan):
         if state.has(name):
-            state.work[name] = _clean_texts(state.work[name])
+            state.work[name] = map_distinct(state.work[name], _clean_text)
     if not state.raw.typed:
         _parse_other_numbers(state)
 
@@ -295,10 +296,14 @@ def _to_numbers(values: pd.Series, typed: bool) -> tuple[pd.Series, pd.Series]:
         # As objects first: a date or time column would put NaT, which float() refuses, in the gaps.
         numbers = values.astype(object).where(is_number, None).map(_float_or_nan).astype(float)
         return numbers, ~is_number
-    text = values.map(lambda v: None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v).strip())
+    text = map_distinct(values, _stripped)     # once per distinct text: a large cut repeats its values
     blank = text.isna() | text.isin(MISSING_TEXT)
     numbers = pd.to_numeric(text.where(~blank), errors="coerce").astype(float)
     return numbers, numbers.isna() & ~blank
+
+
+def _stripped(value: Any) -> str | None:
+    return None if value is None or (isinstance(value, float) and np.isnan(value)) else str(value).strip()
 
 
 def _is_number_or_missing(value: Any) -> bool:
@@ -318,20 +323,6 @@ def _clean_text(value: Any) -> Any:
         value = int(value)          # a numeric code written as 3.0 means "3"
     text = str(value).strip()
     return text if text else None
-
-
-def _clean_texts(values: pd.Series) -> pd.Series:
-    """``values.map(_clean_text)``, cleaning each distinct text once: a cut repeats a few hundred
-    ids and a handful of labels thousands of times.  Anything but plain text and plain gaps takes
-    the general route (1 and True are one key to pandas but different texts)."""
-    codes, uniques = pd.factorize(values)          # gaps get code -1
-    if not len(values) or not all(type(u) is str for u in uniques):
-        return values.map(_clean_text)
-    gaps = values.to_numpy(dtype=object)[codes < 0]
-    if not all(v is None or v is pd.NA or (isinstance(v, float) and v != v) for v in gaps):
-        return values.map(_clean_text)
-    cleaned = np.array([_clean_text(u) for u in uniques] + [None], dtype=object)
-    return pd.Series(cleaned[codes].tolist(), index=values.index, name=values.name)
 
 
 def _parse_other_numbers(state: _State) -> None:

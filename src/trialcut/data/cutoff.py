@@ -21,6 +21,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from trialcut.data.cells import map_distinct
 from trialcut.data.readers import RawCut
 from trialcut.errors import DataError, Problem
 
@@ -118,7 +119,7 @@ def parse_dates(values: pd.Series) -> tuple[pd.Series, pd.Series]:
     if pd.api.types.is_datetime64_any_dtype(values):
         return values.dt.tz_localize(None) if getattr(values.dt, "tz", None) else values, pd.Series(
             False, index=values.index)
-    text = values.map(_as_text)
+    text = map_distinct(values, _as_text)   # a date repeats on every record of a participant
     parsed = pd.to_datetime(text, format="ISO8601", errors="coerce")
     bad = text.notna() & parsed.isna()
     return parsed, bad
@@ -177,11 +178,28 @@ def _date_span(plan, raw: RawCut, randomisation: dict[Any, dt.date]) -> tuple[dt
         start = raw.frame[subject].map(lambda s: randomisation.get(s))
         known = days.notna() & start.notna() & np.isfinite(days)
         if known.any():
-            record_dates = [start_date + dt.timedelta(days=float(day) - 1)
-                            for start_date, day in zip(start[known], days[known])]
+            record_dates = _extreme_record_dates(start[known], days[known])
             last = max(last, max(record_dates))
             first = min(first, min(record_dates))
     return first, last
+
+
+def _extreme_record_dates(start: pd.Series, days: pd.Series) -> list[dt.date]:
+    """Dates of records (randomisation date + study day − 1); with whole study days only the
+    earliest and the latest, found on day numbers (a date per record cost more than the rest)."""
+    values, starts = days.to_numpy(dtype=float), list(start)
+    if not (np.all(values == np.round(values)) and np.all(np.abs(values) < 2 ** 52)):
+        return _record_dates(starts, values)
+    ordinals = np.array([s.toordinal() for s in starts], dtype=np.int64) + values.astype(np.int64)
+    extremes = [int(np.argmin(ordinals)), int(np.argmax(ordinals))]
+    try:
+        return _record_dates([starts[i] for i in extremes], values[extremes])
+    except OverflowError:     # a date out of range: fail on the same record, as record by record
+        return _record_dates(starts, values)
+
+
+def _record_dates(starts: list[dt.date], days: np.ndarray) -> list[dt.date]:
+    return [start + dt.timedelta(days=float(day) - 1) for start, day in zip(starts, days)]
 
 
 def due_flags(frame: pd.DataFrame, *, subject: str, visit: str, observed: pd.Series, schedule,
