@@ -64,8 +64,10 @@ def step_of_rows(data, events: dict[str, str]) -> pd.Series:
     has_event = pd.notna(event)
     set_aside = frame["outcome_set_missing"].to_numpy(dtype=bool)
     composite = frame["outcome_set_composite"].to_numpy(dtype=bool)
-    missing_after = np.array([f"{MISSING_AFTER}{e}" if pd.notna(e) else "missing_no_event" for e in event],
-                             dtype=object)
+    # Named once per distinct event (code -1, no event, takes the last name), not once per row.
+    codes, distinct = pd.factorize(event)
+    names = np.array([f"{MISSING_AFTER}{e}" for e in distinct] + ["missing_no_event"], dtype=object)
+    missing_after = names[codes]
     steps = np.select(
         [~due, composite & observed, composite, set_aside, observed & has_event, observed],
         ["not_yet_due", "composite_recorded", "composite_not_recorded", "observed_after_event_set_aside",
@@ -88,10 +90,12 @@ def flow_table(subjects: pd.DataFrame, data, events: dict[str, str], arms: tuple
     frame = data.frame.assign(__step=step_of_rows(data, events))
     randomised = _per_arm(subjects[data.arm], arms)
     population = _per_arm(frame.drop_duplicates(data.subject)[data.arm], arms)
+    # Every (visit, step, arm) count in one pass, read back per visit and step below.
+    tally = frame.groupby([frame[data.visit], frame["__step"], frame[data.arm].astype(str)], sort=False).size()
+    tally = {key: int(count) for key, count in tally.items()}
     rows = []
     for visit in data.visits:
-        at_visit = frame[frame[data.visit] == visit]
-        counts = {step: _per_arm(at_visit.loc[at_visit["__step"] == step, data.arm], arms)
+        counts = {step: np.array([tally.get((visit, step, arm), 0) for arm in arms], dtype=np.int64)
                   for step in _visit_steps(events)}
         due = sum((counts[step] for step in _due_steps(events)), _zeros(arms))
         rows += [_row(visit, "randomised", randomised), _row(visit, "not_in_population", randomised - population),
@@ -183,7 +187,7 @@ def patterns(data, events: dict[str, str], arms: tuple[str, ...]) -> pd.DataFram
     mark = np.where(~frame[DUE].astype(bool), "-", np.where(value_used(frame["__step"]), "X", "."))
     order = {v: i for i, v in enumerate(data.visits)}
     marks = frame.assign(__mark=mark, __order=frame[data.visit].map(order)).sort_values([data.subject, "__order"])
-    per_subject = marks.groupby(data.subject, sort=True).agg(arm=(data.arm, "first"), pattern=("__mark", "".join))
+    per_subject = _patterns_per_subject(marks, data)
     rows = []
     for arm in arms:
         in_arm = per_subject[per_subject["arm"].astype(str) == arm]["pattern"]
@@ -191,6 +195,20 @@ def patterns(data, events: dict[str, str], arms: tuple[str, ...]) -> pd.DataFram
             observed_part = pattern.rstrip("-")
             rows.append((arm, pattern, int(count), count / len(in_arm), "X" not in observed_part.lstrip("X")))
     return pd.DataFrame(rows, columns=["arm", "pattern", "count", "share", "monotone"])
+
+
+def _patterns_per_subject(marks: pd.DataFrame, data) -> pd.DataFrame:
+    """Per participant (sorted): arm and the marks joined in visit order."""
+    t, subjects = len(data.visits), marks[data.subject].to_numpy()
+    rectangular = t and len(marks) % t == 0 and (subjects.reshape(-1, t) == subjects[::t, None]).all() \
+        and pd.Index(subjects[::t]).is_unique
+    if not rectangular:
+        return marks.groupby(data.subject, sort=True).agg(arm=(data.arm, "first"), pattern=("__mark", "".join))
+    # The usual grid: every participant has one row per scheduled visit, so a row of the
+    # reshaped marks is a participant's pattern (no groupby of Python joins per participant).
+    grid = marks["__mark"].to_numpy(dtype=object).reshape(-1, t)
+    return pd.DataFrame({"arm": marks[data.arm].to_numpy()[::t], "pattern": ["".join(row) for row in grid]},
+                        index=pd.Index(subjects[::t], name=data.subject))
 
 
 def with_not_yet_due(summary: pd.DataFrame, flow: pd.DataFrame) -> pd.DataFrame:
