@@ -30,13 +30,13 @@ from pydantic import (
 )
 from pydantic_core import PydanticCustomError
 
-from trialcut.stats.group_sequential import SPENDING_FUNCTIONS
 from trialcut.stats.names import (
     COVARIANCE_STRUCTURES,
     DF_METHODS,
     ESTIMATION_METHODS,
     IMPUTATION_ASSUMPTIONS,
     MULTIPLICITY_METHODS,
+    SPENDING_FUNCTION_NAMES,
 )
 
 CovarianceName = Literal[COVARIANCE_STRUCTURES]  # type: ignore[valid-type]
@@ -44,7 +44,7 @@ DfMethod = Literal[DF_METHODS]  # type: ignore[valid-type]
 EstimationMethod = Literal[ESTIMATION_METHODS]  # type: ignore[valid-type]
 ImputationAssumption = Literal[IMPUTATION_ASSUMPTIONS]  # type: ignore[valid-type]
 MultiplicityMethod = Literal[MULTIPLICITY_METHODS]  # type: ignore[valid-type]
-SpendingFunction = Literal[tuple(SPENDING_FUNCTIONS)]  # type: ignore[valid-type]
+SpendingFunction = Literal[SPENDING_FUNCTION_NAMES]  # type: ignore[valid-type]
 
 Identifier = Annotated[str, Field(pattern=r"^[A-Za-z][A-Za-z0-9_]*$", max_length=64)]
 

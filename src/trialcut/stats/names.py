@@ -36,3 +36,7 @@ IMPUTATION_ASSUMPTIONS: tuple[str, ...] = (
 )
 
 MULTIPLICITY_METHODS: tuple[str, ...] = ("none", "bonferroni", "holm", "hochberg", "graphical")
+
+# Keys of stats/group_sequential.py:SPENDING_FUNCTIONS, here so that the plan schema can name
+# them without importing scipy (tests/stats/test_spending_names.py keeps the two equal).
+SPENDING_FUNCTION_NAMES: tuple[str, ...] = ("obrien_fleming_type", "pocock_type", "hwang_shih_decani")
