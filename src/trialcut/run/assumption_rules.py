@@ -57,8 +57,8 @@ def _first_per_participant(frame: pd.DataFrame, data, column: str) -> pd.Series:
         return pd.Series(dtype=object)
     order = {visit: position for position, visit in enumerate(data.visits)}
     ordered = frame.assign(_order=frame[data.visit].astype(str).map(order)).sort_values([data.subject, "_order"])
-    return ordered.groupby(data.subject, sort=True)[column].agg(lambda values: next(
-        (v for v in values if v is not None and not pd.isna(v)), None))
+    # first() skips missing values: each participant's first recorded value in visit order.
+    return ordered.groupby(data.subject, sort=True)[column].first()
 
 
 def _reasons(frame: pd.DataFrame, data, column: str) -> pd.Series:

@@ -91,6 +91,8 @@ def _texts(column: pd.Series) -> list[str]:
         return out.tolist()
     if pd.api.types.is_integer_dtype(column.dtype) and isinstance(column.dtype, np.dtype):
         return column.to_numpy().astype(str).tolist()
+    if isinstance(column.dtype, pd.StringDtype):     # text, or a gap that reads as empty
+        return column.fillna("").to_numpy(dtype=object).tolist()
     return [v if type(v) is str else _text(v) for v in column.to_numpy(dtype=object)]
 
 
