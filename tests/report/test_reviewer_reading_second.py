@@ -17,7 +17,7 @@ from trialcut.report.blocks import Section
 from trialcut.report.context import EndpointContext
 from trialcut.report.formatting import NumberFormat
 from trialcut.report.sections_analysis import TippingReading
-from trialcut.report.sections_flow import flow_section
+from trialcut.report.sections_flow import flow_section, listings_section
 from trialcut.report.sections_sequential import multiplicity_by_look
 
 from tests.report.test_reviewer_reading import _section_tables, _sequential
@@ -58,7 +58,7 @@ def test_participants_without_a_value_are_listed_under_the_analyses_labels(resul
     changed = _with_flow(results)
     primary, other = changed["endpoints"][0]["analyses"][:2]
     other.update(estimand=primary.get("estimand"), population=primary.get("population"), label="Model, other")
-    section = flow_section(changed, NumberFormat.from_results(results))
+    section = listings_section(changed, NumberFormat.from_results(results))
     listing = next(t for t in _section_tables(section) if t.title.startswith("Participants without any value"))
     # Labels hold commas, so the names are kept apart by semicolons.
     assert "(Repeated-measures model, primary; Model, other" in listing.title

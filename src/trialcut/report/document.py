@@ -109,6 +109,10 @@ def build_document(results: Mapping[str, Any], audit: Mapping[str, Any] | None =
         sections_front.multiplicity(adjustment, results, base_format)
         sections.append(adjustment)
 
+    listings = sections_flow.listings_section(results, base_format)
+    if listings is not None:
+        sections.append(listings)
+
     appendix = Section("audit", "Appendix: audit record")
     sections_front.audit_appendix(appendix, results, audit, base_format)
     sections.append(appendix)

@@ -9,7 +9,7 @@ import re
 
 from typing import Any, Mapping
 
-from trialcut.report.blocks import Section
+from trialcut.report.blocks import Block, Section
 from trialcut.report.formatting import NumberFormat
 from trialcut.report.tables import from_results_table, rows_as_dicts
 
@@ -87,8 +87,7 @@ def _flow_table(section: Section, results, endpoint, entry, slug: str, number_fo
     shown = {"title": source.get("title") or "", "columns": columns, "data": rows}
     estimand, population = entry.get("estimand"), _label(results, "populations", entry.get("population"))
     who = f"{_label(results, 'estimands', estimand)}; {population}" if estimand else f"{population}, no estimand"
-    title = f"{endpoint.get('id')}: {who}" if name_endpoint else who
-    part = section.child(slug, title)
+    part = section.child(slug, _who(results, endpoint, entry, name_endpoint))
     part.paragraph("Each visit's rows add up: the randomised participants split into those in and out of the "
                    "population, the population into visits due and not yet due, and the due visits into the "
                    "indented rows. The rows marked All visits count participants: those with at least one value "
@@ -103,6 +102,13 @@ def _flow_table(section: Section, results, endpoint, entry, slug: str, number_fo
     _left_out(part, endpoint, entry, slug, number_format)
 
 
+def _who(results, endpoint, entry, name_endpoint: bool) -> str:
+    """A flow entry's estimand and population in words, after the endpoint's id when there are several."""
+    estimand, population = entry.get("estimand"), _label(results, "populations", entry.get("population"))
+    who = f"{_label(results, 'estimands', estimand)}; {population}" if estimand else f"{population}, no estimand"
+    return f"{endpoint.get('id')}: {who}" if name_endpoint else who
+
+
 def _endpoint_words(endpoint: Mapping[str, Any]) -> str:
     """The endpoint's label without its explanation in brackets (its id when it has none)."""
     label = str(endpoint.get("label") or endpoint.get("id"))
@@ -110,27 +116,59 @@ def _endpoint_words(endpoint: Mapping[str, Any]) -> str:
 
 
 def _left_out(section: Section, endpoint, entry, slug: str, number_format: NumberFormat) -> None:
-    target = (entry.get("estimand"), entry.get("population"))
-    analyses = [a for a in endpoint.get("analyses") or [] if (a.get("estimand"), a.get("population")) == target]
-    listing = next((a.get("left_out") for a in analyses if a.get("left_out")), None)
-    if not listing or not listing.get("data"):
+    """The count of participants without a usable value, by reason; the listing itself is in the appendix."""
+    listing, _ = _listing_of(endpoint, entry)
+    if listing is None:
         return
-    names = "; ".join(str(a.get("label") or a.get("id")) for a in analyses)   # labels hold commas
-    count = len(listing["data"])
-    table = from_results_table(listing, slug=f"{slug}_left_out", number_format=number_format,
-                               title=f"Participants without any value used ({names})",
-                               labels={"participant": "Participant", "arm": "Arm", "reason": "Reason"},
-                               kinds={"participant": "text", "arm": "text", "reason": "text"})
     reasons = {}
     for row in rows_as_dicts(listing):
         reasons[row.get("reason")] = reasons.get(row.get("reason"), 0) + 1
-    section.paragraph(f"{count} participant(s) of the population have no value these analyses can use ("
-                      + "; ".join(f"{reason}: {n}" for reason, n in reasons.items())
-                      + "). A fit leaves them out; an imputation keeps those with a visit due.")
-    if count <= LONGEST_LISTING:
-        section.table(table)
-    else:
-        section.csv_only([table])
+    section.paragraph(f"{len(listing['data'])} participant(s) of the population have no value these analyses can "
+                      "use (" + "; ".join(f"{reason}: {n}" for reason, n in reasons.items())
+                      + "). A fit leaves them out; an imputation keeps those with a visit due. They are listed "
+                        f"one by one in the appendix '{LISTINGS_TITLE}' at the end of this report, and as a CSV "
+                        "file beside it.")
+
+
+def _listing_of(endpoint, entry) -> tuple[Mapping[str, Any] | None, str]:
+    """The left-out listing of a flow entry's analyses (None without one) and those analyses' labels."""
+    target = (entry.get("estimand"), entry.get("population"))
+    analyses = [a for a in endpoint.get("analyses") or [] if (a.get("estimand"), a.get("population")) == target]
+    listing = next((a.get("left_out") for a in analyses if a.get("left_out")), None)
+    names = "; ".join(str(a.get("label") or a.get("id")) for a in analyses)   # labels hold commas
+    return (listing if listing and listing.get("data") else None), names
+
+
+LISTINGS_TITLE = "Appendix: participant listings"
+
+
+def listings_section(results: Mapping[str, Any], number_format: NumberFormat) -> Section | None:
+    """Per-participant listings, at the end of the report: a reviewer reaches the efficacy results
+    first, and the flow section keeps the counts and says where the names are (None: no listing)."""
+    section = Section("listings", LISTINGS_TITLE)
+    endpoints = results.get("endpoints") or []
+    for position, endpoint in enumerate(endpoints):
+        for index, entry in enumerate(endpoint.get("flow") or []):
+            listing, names = _listing_of(endpoint, entry)
+            if listing is None:
+                continue
+            slug = f"flow_{position + 1}_{index + 1}"
+            table = from_results_table(listing, slug=f"{slug}_left_out", number_format=number_format,
+                                       title=f"Participants without any value used ({names})",
+                                       labels={"participant": "Participant", "arm": "Arm", "reason": "Reason"},
+                                       kinds={"participant": "text", "arm": "text", "reason": "text"})
+            part = section.child(slug, _who(results, endpoint, entry, name_endpoint=len(endpoints) > 1))
+            if len(listing["data"]) <= LONGEST_LISTING:
+                part.table(table)
+            else:
+                part.csv_only([table])
+    if not section.subsections:
+        return None
+    section.blocks.insert(0, Block("paragraph", (
+        "Participants of each analysis population without any value the analyses can use, one row per participant, "
+        "with the reason; the participant-flow section counts them. Listings longer than "
+        f"{LONGEST_LISTING} rows are CSV files only.")))
+    return section
 
 
 def visit_assignment(section: Section, results: Mapping[str, Any], number_format: NumberFormat) -> None:

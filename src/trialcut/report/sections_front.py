@@ -220,19 +220,22 @@ def estimands(section: Section, results: Mapping[str, Any], number_format: Numbe
         "population-level summary.")
     population_labels = {p.get("id"): p.get("label") for p in plan.get("populations") or []}
     event_labels = {e.get("id"): e.get("label") for e in plan.get("intercurrent_events") or []}
-    columns = ["attribute", *[e.get("id", f"estimand{i}") for i, e in enumerate(entries)]]
+    ids = [str(e.get("id") or f"estimand{i + 1}") for i, e in enumerate(entries)]
+    columns = ["attribute", *ids]
     rows = [
-        ["Estimand", *[e.get("label") for e in entries]],
         ["Population", *[population_labels.get(e.get("population"), e.get("population")) for e in entries]],
         ["Treatment", *[e.get("treatment") for e in entries]],
         ["Variable (endpoint)", *[_variable_of(results, e.get("id")) for e in entries]],
         ["Intercurrent events and strategies", *[_events_text(e, event_labels) for e in entries]],
         ["Population-level summary", *[e.get("summary") for e in entries]],
     ]
-    labels = {"attribute": "Attribute", **{e.get("id"): e.get("id") for e in entries}}
+    # A reader knows an estimand by its label; the plan's identifiers stay in a footnote and as the
+    # CSV file's column names, where a program looks for them.
+    labels = {"attribute": "Attribute", **{i: str(e.get("label") or i) for i, e in zip(ids, entries)}}
     kinds = {c: "text" for c in columns}
+    footnote = "Identifiers in the plan: " + "; ".join(f"{labels[i]}: {i}" for i in ids) + "."
     section.table(from_records(rows, columns, slug="estimands", title="Estimands and their attributes",
-                               number_format=number_format, labels=labels, kinds=kinds))
+                               number_format=number_format, labels=labels, kinds=kinds, footnotes=(footnote,)))
 
 
 def _variable_of(results: Mapping[str, Any], estimand_id: str | None) -> str:
