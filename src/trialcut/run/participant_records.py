@@ -44,7 +44,7 @@ def participant_records(frame: pd.DataFrame, columns: Any) -> dict[str, Any]:
     if names is None:    # a name that looks like a numbered repeat: number them one by one
         return _records_one_by_one(ordered, fields, visit, parameter if several else None, withheld)
     participants: dict[str, dict[str, list[str]]] = {}
-    for person, name, values in zip(ordered[SUBJECT].tolist(), names, ordered[fields].values.tolist()):
+    for person, name, values in zip(ordered[SUBJECT].tolist(), names, _shared_rows(ordered, fields)):
         participants.setdefault(person, {})[name] = values
     return {"format": FORMAT, "fields": fields, "withheld": withheld,
             "participants": dict(sorted(participants.items()))}
@@ -61,6 +61,19 @@ def _record_names(ordered: pd.DataFrame, visit: str | None, parameter: str | Non
     if names[repeat > 1].isin(set(base)).any():
         return None
     return names.tolist()
+
+
+def _shared_rows(ordered: pd.DataFrame, fields: list[str]) -> list[list[str]]:
+    """The rows' texts as lists, each distinct text one object shared by every cell that holds it:
+    a large cut repeats its flags, visits and codes millions of times (about 400 MB held at
+    30,000 participants as one object per cell)."""
+    columns = []
+    for field in fields:
+        codes, distinct = pd.factorize(ordered[field])
+        if (codes < 0).any():                      # not expected: every text is a string
+            return ordered[fields].values.tolist()
+        columns.append(np.asarray(distinct, dtype=object)[codes])
+    return [list(row) for row in zip(*columns)] if columns else [[] for _ in range(len(ordered))]
 
 
 def _records_one_by_one(ordered: pd.DataFrame, fields, visit, parameter, withheld) -> dict[str, Any]:
