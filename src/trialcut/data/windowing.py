@@ -53,6 +53,9 @@ def assign_visits(days: pd.Series, participants: pd.Series, windows: Sequence[Wi
     # Over the plain list: a pandas lookup per record cost more than the assignment itself.
     log = [_entry(keys[position], None, None, [day], _unassigned_reason(day))
            for position, (day, label) in enumerate(zip(days.to_numpy(dtype=float), labels)) if label is None]
+    if not _any_visit_repeated(participants, parameters, labels):
+        # One record per participant and visit (the usual case): nothing to choose, nothing to log.
+        return WindowAssignment(visit, pd.Series(visit.notna().to_numpy(), index=days.index), tuple(log))
     planned = {w.label: w.day for w in windows}
     frame = pd.DataFrame({"key": pd.Series(keys, index=days.index, dtype=object), "visit": visit,
                           "day": days.astype(float), "position": np.arange(len(days))}, index=days.index)
@@ -79,6 +82,18 @@ def assign_visits(days: pd.Series, participants: pd.Series, windows: Sequence[Wi
                           sorted(float(m[0]) for position, m in enumerate(members) if position != winner),
                           _reason_text(ties, planned[label])))
     return WindowAssignment(visit, chosen, tuple(log))
+
+
+def _any_visit_repeated(participants: pd.Series, parameters: pd.Series | None, labels: list) -> bool:
+    """Whether two assigned records share participant, parameter and visit, on integer codes.
+    A gap in an id gives True: the general route keeps its own handling of gaps."""
+    columns = [participants] + ([parameters] if parameters is not None else []) + [pd.Series(labels, dtype=object)]
+    codes = [pd.factorize(column.to_numpy(dtype=object))[0] for column in columns]
+    if any((code < 0).any() for code in codes[:-1]):
+        return True
+    assigned = codes[-1] >= 0
+    frame = pd.DataFrame({str(i): code[assigned] for i, code in enumerate(codes)})
+    return bool(frame.duplicated().any())
 
 
 def _windows_of(days: np.ndarray, windows: Sequence[Window]) -> list[str | None]:
