@@ -16,6 +16,7 @@ prespecified with control of error; the results carry that caution.
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 from typing import Any
 
 import numpy as np
@@ -42,6 +43,9 @@ def subgroup_results(plan, cut, endpoint, context, methods, population: str) -> 
     primary = endpoint.analyses.primary
     data = cut.analysis_data(endpoint.id, estimand_id=primary.estimand, population_id=population)
     data = derive_outcome(endpoint, data, source=str(cut.manifest.get("file", "the data cut"))).due_only()
+    # A level's fit is read for its differences only: the method may leave out residuals and the
+    # other tables (the same fit, the same differences).
+    context = replace(context, estimates_only=True)
     return [_one_factor(factor, data, primary, endpoint, context, methods) for factor in plan.subgroups]
 
 
@@ -110,7 +114,6 @@ def _level_rows(level, factor, data, analysis, endpoint, context, methods, notes
 
 
 def _replace_frame(data, frame):
-    from dataclasses import replace
     return replace(data, frame=frame)
 
 
