@@ -328,9 +328,16 @@ def trajectories_chart(series: Mapping[str, Mapping[str, list[tuple[str, float]]
 NOT_YET_DUE_MARK, NOT_YET_DUE_COLOUR = "-", "#dddddd"
 
 
+PATTERNS_PER_ARM = 15
+
+
 def pattern_chart(rows: Sequence[Mapping[str, Any]], *, arms, visits) -> bytes:
-    """Tiles: one row per arm and pattern, a filled tile per observed visit, the count beside it."""
-    ordered = [r for arm in arms for r in rows if r.get("arm") == arm]
+    """Tiles: one row per arm and pattern, a filled tile per observed visit, the count beside it.
+
+    An arm with more than PATTERNS_PER_ARM patterns (many visits in a large trial can give
+    hundreds) shows its most frequent ones and one row for the rest, with their number and
+    participants: the chart stays readable, and its table lists every pattern."""
+    ordered = [r for arm in arms for r in _most_frequent_patterns([r for r in rows if r.get("arm") == arm])]
     height = max(2.2, 0.22 * len(ordered) + 1.0)
 
     def draw(figure):
@@ -338,6 +345,8 @@ def pattern_chart(rows: Sequence[Mapping[str, Any]], *, arms, visits) -> bytes:
         axes.grid(False)
         for y, row in enumerate(ordered):
             style = arm_style(arms, row.get("arm"))
+            if row.get("others"):
+                axes.text(-0.42, y, f"{row['others']} other patterns", va="center", fontsize=7.5, color=INK)
             pattern = str(row.get("pattern") or "")
             for x, mark in enumerate(pattern[: len(visits)]):
                 if mark == NOT_YET_DUE_MARK:   # neither observed nor missing: a category of its own
@@ -357,8 +366,25 @@ def pattern_chart(rows: Sequence[Mapping[str, Any]], *, arms, visits) -> bytes:
         # Short words and a smaller size: with the not-yet-due tile the key ran past the figure's right edge.
         axes.set_xlabel("Filled: observed; open: missing" + ("; light grey: not yet due at the cut-off"
                         if not_due else "") + ".\nNumber at right: participants.", fontsize=8)
+        # Margins in inches (the visit names above, the two-line key below): as fractions of a
+        # figure that grows with its rows they left an empty band under the key of a large cut.
+        figure.subplots_adjust(top=1 - 0.3 / height, bottom=0.45 / height)
 
     return _draw(draw, height=height, layout=None)     # fixed margins, widened by make_room until the key fits
+
+
+def _most_frequent_patterns(rows: Sequence[Mapping[str, Any]]) -> list[Mapping[str, Any]]:
+    """One arm's pattern rows, or its PATTERNS_PER_ARM - 1 most frequent (in their order) and a
+    row {arm, others: how many patterns, count: their participants} for the rest."""
+    if len(rows) <= PATTERNS_PER_ARM:
+        return list(rows)
+    counts = [row.get("count") if isinstance(row.get("count"), (int, float)) else 0 for row in rows]
+    ranked = sorted(range(len(rows)), key=lambda position: -counts[position])     # stable: ties keep their order
+    kept = sorted(ranked[: PATTERNS_PER_ARM - 1])
+    rest = ranked[PATTERNS_PER_ARM - 1:]
+    total = sum(counts[position] for position in rest)
+    return [*(rows[position] for position in kept),
+            {"arm": rows[0].get("arm"), "others": len(rest), "count": int(total) if total == int(total) else total}]
 
 
 def _tile(x: float, y: float, colour: str, filled: bool):

@@ -1,0 +1,84 @@
+"""The report's figures: one drawing for the SVG and the DOCX picture, margins fitted to the
+texts as matplotlib lays them out, and a pattern chart that stays readable with many patterns.
+
+Extents come from matplotlib's own renderer (figures.text_extents); the pattern counts are
+checked against the rows given (a sum: common practice for an "all other" row).
+"""
+from __future__ import annotations
+
+import io
+import itertools
+import random
+
+import pytest
+
+from trialcut.report import figures
+
+VISITS = ["Week 2", "Week 4", "Week 8", "Week 12"]
+POINTS = [{"arm": arm, "visit": visit, "centre": centre + shift, "lower": centre + shift - 1, "upper": centre + shift + 1}
+          for arm, shift in (("Placebo", 0.0), ("Active", -2.0)) for visit, centre in zip(VISITS, (-1, -2, -3, -4))]
+
+
+def _kept(draw):
+    """The matplotlib figure a drawing call saved, and its SVG."""
+    kept = []
+    original = figures._svg
+    try:
+        figures._svg = lambda figure: kept.append(figure) or original(figure)
+        svg = draw()
+    finally:
+        figures._svg = original
+    return kept[-1], svg
+
+
+def _profile():
+    return figures.profile_chart(POINTS, arms=["Placebo", "Active"], visits=VISITS, visit_days=None,
+                                 y_label="Change from baseline")
+
+
+def test_the_picture_is_the_drawing_of_the_svg():
+    # The DOCX picture is saved from the figure drawn for the SVG: the same bytes as drawing it again.
+    svg, picture = figures.svg_and_picture(_profile)
+    assert svg == _profile()
+    png = picture()
+    assert png.startswith(b"\x89PNG") and png == figures.png_of(_profile)
+
+
+def test_margins_are_not_widened_when_the_texts_fit():
+    # A short axis title fits in the default margins (10% of the width at the left): measuring
+    # before the layout pass put it at the figure's edge and widened the margin three times over.
+    import matplotlib
+
+    figure, _ = _kept(_profile)
+    with matplotlib.rc_context(figures.RC):      # laid out as saved, at the figure's own size
+        figure.draw_without_rendering()
+        leftmost = min(box[0] for _, box in figures.text_extents(figure))
+    assert 0 <= leftmost <= 0.1 * figure.bbox.width, leftmost
+    assert figures.clipped_texts(figure) == []
+
+
+@pytest.mark.parametrize("seed", range(3))
+def test_a_pattern_chart_with_many_patterns_shows_the_most_frequent_and_one_row_for_the_rest(seed):
+    rng = random.Random(seed)
+    visits = [f"Week {i}" for i in range(1, 9)]
+    rows = [{"arm": arm, "pattern": "".join(bits), "count": rng.randint(1, 60)}
+            for arm in ("Placebo", "Active") for bits in itertools.product("X.", repeat=8) if rng.random() < 0.4]
+    figure, _ = _kept(lambda: figures.pattern_chart(rows, arms=["Placebo", "Active"], visits=visits))
+    labels = [label.get_text() for label in figure.axes[0].get_yticklabels()]
+    texts = [text for text, _ in figures.text_extents(figure)]
+    for arm in ("Placebo", "Active"):
+        mine = sorted((r["count"] for r in rows if r["arm"] == arm), reverse=True)
+        assert len(mine) > figures.PATTERNS_PER_ARM, f"seed {seed}"
+        assert labels.count(arm) == figures.PATTERNS_PER_ARM, f"seed {seed}"
+        rest = mine[figures.PATTERNS_PER_ARM - 1:]
+        assert f"{len(rest)} other patterns" in texts, f"seed {seed}"
+        assert str(sum(rest)) in texts, f"seed {seed}"
+    assert figures.clipped_texts(figure) == [], f"seed {seed}"
+
+
+def test_a_few_patterns_are_all_drawn():
+    rows = [{"arm": "Placebo", "pattern": "XXXX", "count": 40}, {"arm": "Placebo", "pattern": "XX..", "count": 3},
+            {"arm": "Active", "pattern": "X...", "count": 2}]
+    figure, _ = _kept(lambda: figures.pattern_chart(rows, arms=["Placebo", "Active"], visits=VISITS))
+    assert [label.get_text() for label in figure.axes[0].get_yticklabels()] == ["Placebo", "Placebo", "Active"]
+    assert not any("other patterns" in text for text, _ in figures.text_extents(figure))
