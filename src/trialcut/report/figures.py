@@ -93,11 +93,23 @@ def _new_figure(width: float, height: float, layout: str | None):
 
 
 def _svg(figure) -> bytes:
+    """The figure as SVG.  A figure with fixed margins (no layout engine) is checked after
+    saving: while a text of the saved drawing sticks out, its margins are widened and it is
+    saved again.  Measuring the drawing just saved spares a layout pass of its own (most
+    figures fit at once), and it measures the texts where the SVG has them."""
+    saved = _save_svg(figure)
+    if figure.get_layout_engine() is None:
+        for _ in range(3):
+            if not make_room(figure):
+                break
+            saved = _save_svg(figure)
     kept = _KEPT.get()
     if kept is not None:
         kept.append(figure)
-    if _RASTER.get():
-        return _png(figure)
+    return saved
+
+
+def _save_svg(figure) -> bytes:
     import matplotlib
 
     buffer = io.BytesIO()
@@ -117,8 +129,6 @@ def _png(figure) -> bytes:
     return buffer.getvalue()
 
 
-# Set while a figure is drawn as a picture (see png_of) instead of as SVG.
-_RASTER = contextvars.ContextVar("trialcut_figure_raster", default=False)
 # A list while svg_and_picture draws: the figure saved as SVG is kept for its picture.
 _KEPT: contextvars.ContextVar[list | None] = contextvars.ContextVar("trialcut_figure_kept", default=None)
 RASTER_DPI = 200
@@ -126,35 +136,31 @@ SVG_DPI = 72
 
 
 def png_of(job: Callable[[], bytes]) -> bytes:
-    """The PNG of a figure's drawing job: the same drawing calls as its SVG, saved as a picture."""
-    token = _RASTER.set(True)
-    try:
-        return job()
-    finally:
-        _RASTER.reset(token)
+    """The PNG of a figure's drawing job: the drawing of its SVG, saved as a picture."""
+    return svg_and_picture(job)[1]()
 
 
 def svg_and_picture(job: Callable[[], bytes]) -> tuple[bytes, Callable[[], bytes]]:
     """A figure's SVG now, and a call that saves the same drawing as PNG later.
 
-    Drawing a figure (its artists and the layout passes that keep texts inside) costs more
-    than saving it, so the picture for the DOCX copy is saved from the figure already drawn
-    for the SVG instead of drawing it again: the same bytes as ``png_of(job)``, for about
-    half the time.  The figure is kept until the call is made."""
+    Drawing a figure (its artists and the margins fitted to its texts) costs more than saving
+    it, so the picture for the DOCX copy is saved from the figure already drawn for the SVG
+    instead of drawing it again.  The figure is kept until the call is made."""
     kept: list = []
     token = _KEPT.set(kept)
     try:
         svg = job()
     finally:
         _KEPT.reset(token)
-    if len(kept) != 1:       # a job that saved no figure, or several: draw the picture again
-        return svg, lambda: png_of(job)
+    if len(kept) != 1:
+        raise ValueError(f"a figure's drawing job saved {len(kept)} figures; it must save one")
     return svg, lambda: _png(kept.pop())
 
 
 def _draw(draw, *args, width=6.4, height=3.4, layout="constrained", **kwargs) -> bytes:
-    """Draw and save one figure.  ``layout=None`` uses fixed margins: the constrained layout
-    costs an extra drawing pass, worth it only where long tick labels need room."""
+    """Draw and save one figure.  ``layout=None`` uses fixed margins (fitted to the texts by
+    _svg): the constrained layout costs an extra drawing pass, worth it only where long tick
+    labels need room."""
     import matplotlib
 
     with matplotlib.rc_context(RC):
@@ -164,8 +170,6 @@ def _draw(draw, *args, width=6.4, height=3.4, layout="constrained", **kwargs) ->
         if layout == "constrained":   # a little more room than the default, so descenders stay inside
             figure.get_layout_engine().set(w_pad=6 / 72, h_pad=6 / 72)
         draw(figure, *args, **kwargs)
-        if layout is None:
-            make_room(figure)
         return _svg(figure)
 
 
@@ -218,33 +222,33 @@ def clipped_texts(figure, tolerance: float = 0.5) -> list[str]:
                 if x0 < -tolerance or y0 < -tolerance or x1 > width + tolerance or y1 > height + tolerance]
 
 
-def make_room(figure, pad: float = 4.0) -> None:
-    """Widen the margins of a fixed-margin figure until every text lies inside it.
+def make_room(figure, pad: float = 4.0) -> bool:
+    """Widen the margins of a fixed-margin figure where a text sticks out; whether they moved.
 
-    A long axis title or tick label drawn with fixed margins runs past the figure's edge and
-    is cut off in the SVG (and so in the PDF and the HTML).  Lay the figure out, measure what
-    is drawn, move the axes in by what sticks out, and measure again (a moved axis moves its
-    labels).  The layout pass matters: before it, axis titles and legends sit at the figure's
-    edge (matplotlib places them while drawing), so measuring then widened every margin three
-    times over and left wide empty bands around the plots."""
-    for _ in range(3):
-        figure.draw_without_rendering()
-        width, height = figure.bbox.width, figure.bbox.height
-        extents = [box for _, box in text_extents(figure)]
-        if not extents:
-            return
-        # How far the texts stick out on each side (0 when inside); move the axes in by that plus a pad.
-        left = max(0.0, max(-x0 for x0, _, _, _ in extents))
-        bottom = max(0.0, max(-y0 for _, y0, _, _ in extents))
-        right = max(0.0, max(x1 - width for _, _, x1, _ in extents))
-        top = max(0.0, max(y1 - height for _, _, _, y1 in extents))
-        if not (left or bottom or right or top):
-            return
-        params = figure.subplotpars
-        figure.subplots_adjust(left=min(0.45, params.left + (left + pad if left else 0) / width),
-                               bottom=min(0.45, params.bottom + (bottom + pad if bottom else 0) / height),
-                               right=max(0.55, params.right - (right + pad if right else 0) / width),
-                               top=max(0.55, params.top - (top + pad if top else 0) / height))
+    Call it on a figure just drawn at its own size (saved as SVG: its dots per inch are the
+    SVG's): matplotlib places axis titles and legends while drawing, so before a drawing they
+    sit at the figure's edge (measuring them there widened every margin three times over and
+    left wide empty bands).  A long axis title or tick label drawn with fixed margins runs past
+    the figure's edge and is cut off in the SVG (and so in the PDF and the HTML): move the axes
+    in by what sticks out plus ``pad``; the caller draws and measures again (a moved axis moves
+    its labels)."""
+    width, height = figure.bbox.width, figure.bbox.height
+    extents = [box for _, box in text_extents(figure)]
+    if not extents:
+        return False
+    # How far the texts stick out on each side (0 when inside); move the axes in by that plus a pad.
+    left = max(0.0, max(-x0 for x0, _, _, _ in extents))
+    bottom = max(0.0, max(-y0 for _, y0, _, _ in extents))
+    right = max(0.0, max(x1 - width for _, _, x1, _ in extents))
+    top = max(0.0, max(y1 - height for _, _, _, y1 in extents))
+    if not (left or bottom or right or top):
+        return False
+    params = figure.subplotpars
+    figure.subplots_adjust(left=min(0.45, params.left + (left + pad if left else 0) / width),
+                           bottom=min(0.45, params.bottom + (bottom + pad if bottom else 0) / height),
+                           right=max(0.55, params.right - (right + pad if right else 0) / width),
+                           top=max(0.55, params.top - (top + pad if top else 0) / height))
+    return True
 
 
 def arm_style(arms: Sequence[str], arm: str) -> dict[str, Any]:
