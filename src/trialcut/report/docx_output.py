@@ -3,8 +3,10 @@
 A medical writer pastes its tables into a clinical study report, so every table is a real
 word-processor table (not a picture) with its numbered title above it, the participants per
 arm in a first header row when the report has them, and its notes and footnotes below; the
-header rows repeat on every page.  Figures are PNG pictures drawn by the same drawing calls
-as the SVGs of the HTML and PDF (``figures.png_of``; drawing.py draws them beside the SVGs).
+header rows repeat on every page.  Figures are PNG pictures saved from the same drawings as
+the SVGs of the HTML and PDF (``figures.svg_and_picture``; drawing.py saves them after the SVGs).
+A report has thousands of table cells, so tables are written as WordprocessingML text in bulk
+(``_GridXml``) rather than cell by cell through python-docx, which costs seconds.
 Fonts, colours and table rules follow the PDF's stylesheet (templates/report.css): DejaVu
 Sans, deep ink, a teal accent.
 
