@@ -29,6 +29,8 @@ def plain(value: Any) -> Any:
     if isinstance(value, (list, tuple)):
         return [plain(v) for v in value]
     if isinstance(value, np.ndarray):
+        if value.ndim == 1 and value.dtype.kind in "fiub":   # e.g. a fit's residuals: the whole array at once
+            return _plain_column(pd.Series(value))
         return [plain(v) for v in value.tolist()]
     if isinstance(value, pd.DataFrame):
         return table(value)
