@@ -82,3 +82,13 @@ def test_a_few_patterns_are_all_drawn():
     figure, _ = _kept(lambda: figures.pattern_chart(rows, arms=["Placebo", "Active"], visits=VISITS))
     assert [label.get_text() for label in figure.axes[0].get_yticklabels()] == ["Placebo", "Placebo", "Active"]
     assert not any("other patterns" in text for text, _ in figures.text_extents(figure))
+
+
+def test_a_job_that_makes_its_svg_another_way_is_drawn_without_a_picture():
+    # FigureImage.drawn takes any call that returns SVG bytes; only the DOCX picture needs a
+    # matplotlib drawing, and its absence is said when the picture is asked for.
+    image = figures.FigureImage("plain", "Plain", "", None, job=lambda: b"<svg/>")
+    drawn, picture = image.drawn_with_picture()
+    assert drawn.svg == b"<svg/>" and drawn.note == "" and image.drawn().svg == b"<svg/>"
+    with pytest.raises(ValueError, match="not one"):
+        picture()

@@ -145,16 +145,20 @@ def svg_and_picture(job: Callable[[], bytes]) -> tuple[bytes, Callable[[], bytes
 
     Drawing a figure (its artists and the margins fitted to its texts) costs more than saving
     it, so the picture for the DOCX copy is saved from the figure already drawn for the SVG
-    instead of drawing it again.  The figure is kept until the call is made."""
+    instead of drawing it again.  The figure is kept until the call is made (once)."""
     kept: list = []
     token = _KEPT.set(kept)
     try:
         svg = job()
     finally:
         _KEPT.reset(token)
-    if len(kept) != 1:
-        raise ValueError(f"a figure's drawing job saved {len(kept)} figures; it must save one")
-    return svg, lambda: _png(kept.pop())
+
+    def picture() -> bytes:
+        if len(kept) != 1:   # a job that made its SVG some other way has no drawing to save
+            raise ValueError(f"the figure's drawing job saved {len(kept)} matplotlib figures, not one")
+        return _png(kept.pop())
+
+    return svg, picture
 
 
 def _draw(draw, *args, width=6.4, height=3.4, layout="constrained", **kwargs) -> bytes:
