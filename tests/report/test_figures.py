@@ -92,3 +92,44 @@ def test_a_job_that_makes_its_svg_another_way_is_drawn_without_a_picture():
     assert drawn.svg == b"<svg/>" and drawn.note == "" and image.drawn().svg == b"<svg/>"
     with pytest.raises(ValueError, match="not one"):
         picture()
+
+
+def _drawn_elements(svg: bytes):
+    """Each drawn element in document order with its attributes, text and the groups around it
+    that carry more than an id (SVG 1.1, section 5.2: a group without presentation attributes,
+    transform or clip applies nothing to its children)."""
+    import xml.etree.ElementTree as ElementTree
+
+    namespace = "{http://www.w3.org/2000/svg}"
+    found = []
+
+    def walk(node, groups):
+        for child in node:
+            tag = child.tag.removeprefix(namespace)
+            if tag == "metadata":
+                continue
+            if tag == "g":
+                extra = {k: v for k, v in child.attrib.items() if k != "id"}
+                walk(child, groups + ((tuple(sorted(extra.items())),) if extra else ()))
+                continue
+            attributes = {k: " ".join(v.split()) for k, v in child.attrib.items()
+                          if not (k == "transform" and v.startswith(("rotate(-0 ", "rotate(0 ")))}
+            found.append((tag, tuple(sorted(attributes.items())), (child.text or "").strip(), groups))
+            walk(child, groups)
+
+    walk(ElementTree.fromstring(svg), ())
+    return found
+
+
+def test_the_lighter_svg_draws_the_same_elements_in_the_same_order():
+    import matplotlib
+
+    figure, _ = _kept(_profile)
+    buffer = io.BytesIO()
+    with matplotlib.rc_context(figures.RC):
+        figure.savefig(buffer, format="svg", metadata={"Date": None})
+    original = buffer.getvalue()
+    lighter = figures.lighter_svg(original)
+    assert len(lighter) < len(original)
+    assert _drawn_elements(lighter) == _drawn_elements(original)
+    assert b"<metadata" not in lighter and b'rotate(-0 ' not in lighter
