@@ -26,6 +26,7 @@ Conventions (also stated in shared/DESIGN.md):
 from __future__ import annotations
 
 import contextlib
+import functools
 import math
 import warnings
 from dataclasses import dataclass, fields
@@ -43,9 +44,9 @@ from trialcut.stats.mmrm_likelihood import Likelihood, Maximum, maximise
 from trialcut.stats.names import DF_METHODS, ESTIMATION_METHODS
 
 try:    # optional: keeps BLAS to one thread, see _one_blas_thread
-    from threadpoolctl import threadpool_limits
+    from threadpoolctl import ThreadpoolController
 except ImportError:          # pragma: no cover - the fit still works, only slower on a busy machine
-    threadpool_limits = None
+    ThreadpoolController = None
 
 FIXED_EFFECT_COLUMNS = ("term", "estimate", "se", "df", "t", "p")
 MEAN_COLUMNS = ("arm", "visit", "estimate", "se", "df", "lower", "upper")
@@ -283,8 +284,15 @@ def _bias_corrected(second_derivatives) -> bool:
 
 def _one_blas_thread():
     """The fit is many small matrix products; a multi-threaded BLAS spends more time waking its
-    threads than computing (up to 30 times slower on a machine whose cores are busy)."""
-    return threadpool_limits(limits=1, user_api="blas") if threadpool_limits else contextlib.nullcontext()
+    threads than computing (up to 30 times slower on a machine whose cores are busy).  The BLAS
+    libraries are looked up once per process: a lookup per fit cost about 2 ms, more than a
+    simulated trial's whole likelihood maximisation."""
+    return _blas_controller().limit(limits=1, user_api="blas") if ThreadpoolController else contextlib.nullcontext()
+
+
+@functools.lru_cache(maxsize=1)
+def _blas_controller():
+    return ThreadpoolController()
 
 
 def _check_arguments(covariance, method, df, second_derivatives, robust, max_iterations,
