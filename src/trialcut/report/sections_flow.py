@@ -1,5 +1,6 @@
 """The report's account of participants: the cut-off, which visits were due, and one
-participant-flow table per estimand whose rows add up, with the participants each fit leaves out.
+participant-flow table per estimand whose rows add up, with the count of participants each fit
+leaves out; the listing of those participants is an appendix of its own (``listings_section``).
 
 Reads results.json only (``data.cut_off``, ``endpoints[].flow``, ``analyses[].left_out``).
 """
@@ -85,8 +86,7 @@ def _flow_table(section: Section, results, endpoint, entry, slug: str, number_fo
         if str(row[step_at]).startswith(_DUE_PARTS_PREFIXES) or row[step_at] in _LEFT_OUT_STEPS:
             row[label_at] = f"– {row[label_at]}"
     shown = {"title": source.get("title") or "", "columns": columns, "data": rows}
-    estimand, population = entry.get("estimand"), _label(results, "populations", entry.get("population"))
-    who = f"{_label(results, 'estimands', estimand)}; {population}" if estimand else f"{population}, no estimand"
+    who = _who(results, endpoint, entry, name_endpoint=False)
     part = section.child(slug, _who(results, endpoint, entry, name_endpoint))
     part.paragraph("Each visit's rows add up: the randomised participants split into those in and out of the "
                    "population, the population into visits due and not yet due, and the due visits into the "
@@ -99,7 +99,7 @@ def _flow_table(section: Section, results, endpoint, entry, slug: str, number_fo
         labels={"visit": "Visit", "label": "Step"},
         kinds={"visit": "text", "label": "text", **{arm: "count" for arm in arms}},
         footnotes=(ATTRIBUTION_NOTE,)))
-    _left_out(part, endpoint, entry, slug, number_format)
+    _left_out(part, endpoint, entry)
 
 
 def _who(results, endpoint, entry, name_endpoint: bool) -> str:
@@ -115,7 +115,7 @@ def _endpoint_words(endpoint: Mapping[str, Any]) -> str:
     return re.sub(r"\s*\([^()]*\)\s*$", "", label).strip() or label
 
 
-def _left_out(section: Section, endpoint, entry, slug: str, number_format: NumberFormat) -> None:
+def _left_out(section: Section, endpoint, entry) -> None:
     """The count of participants without a usable value, by reason; the listing itself is in the appendix."""
     listing, _ = _listing_of(endpoint, entry)
     if listing is None:
