@@ -20,7 +20,7 @@ def map_distinct(values: pd.Series, function: Callable[[Any], Any]) -> pd.Series
     while their text differs, so any other value sends the whole column the general way.  Gaps
     (None, NaN, NA, NaT) go through ``function`` one by one, as they are.
     """
-    if not len(values) or not _plain_text_dtype(values.dtype):
+    if not len(values) or not plain_text_dtype(values.dtype):
         return values.map(function)
     codes, uniques = pd.factorize(values)          # gaps get code -1
     if not all(type(u) is str for u in uniques):
@@ -37,7 +37,7 @@ def map_distinct(values: pd.Series, function: Callable[[Any], Any]) -> pd.Series
     return pd.Series(mapped.tolist(), index=values.index, name=values.name)
 
 
-def _plain_text_dtype(dtype) -> bool:
+def plain_text_dtype(dtype) -> bool:
     """Objects, or pandas' default text dtype; the NA-valued text dtype keeps its own results."""
     if isinstance(dtype, pd.StringDtype):
         return dtype.na_value is not pd.NA

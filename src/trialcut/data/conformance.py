@@ -24,7 +24,7 @@ from typing import Any, Callable, Iterable
 import numpy as np
 import pandas as pd
 
-from trialcut.data.cells import map_distinct
+from trialcut.data.cells import map_distinct, plain_text_dtype
 from trialcut.data.readers import RawCut
 from trialcut.data.windowing import assign_visits, windows_from_schedule
 from trialcut.errors import DataError, Problem
@@ -383,9 +383,29 @@ def _check_arms(state: _State) -> None:
 
 def _varies_within_participant(state: _State, column: str) -> pd.Series:
     subject = state.columns.subject
+    fast = _varies_on_codes(state.work[subject], state.work[column])
+    if fast is not None:
+        return fast
     counts = state.work.groupby(subject, dropna=True)[column].nunique(dropna=False)
     varying = counts[counts > 1].index
     return state.work[subject].isin(varying)
+
+
+def _varies_on_codes(subjects: pd.Series, values: pd.Series) -> pd.Series | None:
+    """:func:`_varies_within_participant` on integer codes (a groupby per column cost more than the
+    check); None when ids have gaps or text values have gaps (the general route decides those)."""
+    dtype = values.dtype
+    numbers = isinstance(dtype, np.dtype) and dtype.kind in "fiub"
+    if not len(values) or not (numbers or plain_text_dtype(dtype)) or (dtype == object and values.isna().any()):
+        return None
+    people = pd.factorize(subjects)[0]
+    if (people < 0).any():
+        return None
+    codes = pd.factorize(values, use_na_sentinel=False)[0].astype(np.int64)   # a gap is one value, as nunique counts it
+    width = int(codes.max()) + 1
+    pairs = np.unique(people.astype(np.int64) * width + codes)
+    distinct = np.bincount(pairs // width, minlength=int(people.max()) + 1)
+    return pd.Series(distinct[people] > 1, index=subjects.index, name=subjects.name)
 
 
 def _check_arm_constant(state: _State) -> None:
