@@ -60,3 +60,38 @@ def test_dates_out_of_range_fail_as_record_by_record():
     days = pd.Series([1e7, 15.0, -1e9])      # the first record leaves the calendar first
     with pytest.raises(OverflowError, match="date value out of range"):
         _extreme_record_dates(starts, days)
+
+
+def _random_column(rng, size, kind):
+    if kind == 0:
+        return pd.Series(rng.choice([1.0, 2.0, np.nan, -0.0, 0.0], size))
+    if kind == 1:
+        return pd.Series([None if r < .2 else ("Y" if r < .6 else "N") for r in rng.random(size)], dtype="str")
+    if kind == 2:
+        return pd.Series([None if r < .2 else ("Y" if r < .6 else "N") for r in rng.random(size)], dtype=object)
+    if kind == 3:
+        return pd.Series(rng.random(size) < .5)
+    return pd.Series(rng.integers(0, 3, size))
+
+
+@pytest.mark.parametrize("seed", range(10))
+def test_varying_within_participant_on_codes_matches_groupby(seed):
+    from trialcut.data.conformance import _varies_on_codes
+
+    rng = np.random.default_rng(seed)
+    decided = 0
+    for trial in range(200):
+        size = int(rng.integers(0, 25))
+        ids = pd.Series([f"P{i}" if rng.random() > 0.02 else None for i in rng.integers(0, 5, size)],
+                        dtype=rng.choice(["str", object]), name="USUBJID")
+        frame = pd.DataFrame({"USUBJID": ids, "value": _random_column(rng, size, trial % 5)})
+        counts = frame.groupby("USUBJID", dropna=True)["value"].nunique(dropna=False)   # the general route
+        expected = frame["USUBJID"].isin(counts[counts > 1].index)
+        found = _varies_on_codes(frame["USUBJID"], frame["value"])
+        if found is not None:
+            decided += 1
+            try:
+                pd.testing.assert_series_equal(found, expected)
+            except AssertionError as error:
+                raise AssertionError(f"seed {seed}, trial {trial}: {frame.to_dict('list')}: {error}") from None
+    assert decided > 50, f"seed {seed}: the shortcut decided only {decided} columns"
