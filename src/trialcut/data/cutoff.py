@@ -111,7 +111,8 @@ def resolve_cut_off(plan, raw: RawCut, given: dt.date | None = None, today: dt.d
 
 def _participants(plan, raw: RawCut) -> set[Any]:
     subject = plan.columns.subject
-    return set(raw.frame[subject].dropna()) if subject in raw.frame.columns else set()
+    # Distinct ids first: iterating every record of a text column costs a Python object each.
+    return set(pd.unique(raw.frame[subject].dropna()).tolist()) if subject in raw.frame.columns else set()
 
 
 def parse_dates(values: pd.Series) -> tuple[pd.Series, pd.Series]:
@@ -155,7 +156,7 @@ def _participant_dates(plan, raw: RawCut, column: str) -> dict[Any, dt.date]:
             got=", ".join(map(str, list(varying)[:SHOWN_ROWS])), hint="give every record of a participant the same date",
             rows=_rows(raw, mask, subject, column))])
     first = dates.groupby("subject")["date"].first()
-    return {key: value.date() for key, value in first.items()}
+    return dict(zip(first.index.tolist(), (value.date() for value in first.tolist())))
 
 
 def _rows(raw: RawCut, mask: pd.Series, subject: str, column: str) -> tuple[str, ...]:
