@@ -115,3 +115,29 @@ def test_table_titles_and_pictures_in_order(tmp_path):
     blobs = [word.part.related_parts[shape._inline.graphic.graphicData.pic.blipFill.blip.embed].blob for shape in shapes]
     assert blobs == [pictures["f1"], pictures["f2"], pictures["f3"]]
     assert any(p.text == "Figure title 4: could not be drawn" for p in word.paragraphs)
+
+
+def test_pictures_given_late_give_the_same_file(tmp_path):
+    # The renderer passes a call that waits for the figure child: it is made once, after the
+    # text and tables are built, and the file is the same as with the pictures given at once.
+    from PIL import Image
+
+    from trialcut.report.figures import FigureImage
+
+    buffer = io.BytesIO()
+    Image.new("RGB", (30, 20), (10, 90, 120)).save(buffer, format="PNG")
+    pictures = {"f1": buffer.getvalue()}
+    figures = [FigureImage("f1", "Drawn", "", b"<svg/>", number="Figure 1"),
+               FigureImage("f2", "Not drawn", "", b"<svg/>", number="Figure 2", note="its note")]
+    document = _document(_table([("a", 1.0)]), figures=figures)
+    calls = []
+    early = write_docx(document, tmp_path / "early.docx", pictures=pictures, created="2026-01-01T00:00:00Z")
+    late = write_docx(document, tmp_path / "late.docx", pictures=lambda: calls.append(1) or pictures,
+                      created="2026-01-01T00:00:00Z")
+    assert calls == [1] and early.read_bytes() == late.read_bytes()
+    word = docx.Document(str(late))
+    assert len(word.inline_shapes) == 1
+    texts = [p.text for p in word.paragraphs]
+    captions = [p.text for p in word.paragraphs if p.style.name == "Caption"]
+    assert "Figure 1  Drawn" in captions and "Not drawn: its note" in texts
+    assert not any(t.startswith("Figure 2") for t in captions) and "its note" not in texts   # the contents list it

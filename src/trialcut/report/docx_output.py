@@ -21,7 +21,7 @@ import re
 import zipfile
 from datetime import datetime, timezone
 from pathlib import Path
-from typing import Any, Mapping, Sequence
+from typing import Any, Callable, Mapping, Sequence
 
 from trialcut.report.blocks import Block, Section
 from trialcut.report.tables import ReportTable
@@ -40,12 +40,15 @@ EARLIEST_ZIP_TIME = (1980, 1, 1, 0, 0, 0)
 _W_NAMESPACE = 'xmlns:w="http://schemas.openxmlformats.org/wordprocessingml/2006/main"'
 
 
-def write_docx(document, target: Path, *, pictures: Mapping[str, bytes] | None = None,
+def write_docx(document, target: Path, *,
+               pictures: Mapping[str, bytes] | Callable[[], Mapping[str, bytes]] | None = None,
                created: str | None = None, modified: str | None = None, kicker: str | None = None) -> Path:
     """Write ``document`` (a report.document.Document) as a DOCX file at ``target``.
 
-    ``pictures`` maps a figure's slug to its PNG; a figure without one shows its title and
-    note in words.  ``created``/``modified`` are ISO UTC times (the run's start and end).
+    ``pictures`` maps a figure's slug to its PNG, or is a call that gives that mapping: it is
+    made only after the text and tables are built, so they are built while the pictures are
+    still being drawn elsewhere (the figure child).  A figure without a picture shows its
+    title and note in words.  ``created``/``modified`` are ISO UTC times (the run's start and end).
     """
     from docx import Document as new_docx
 
@@ -55,9 +58,10 @@ def write_docx(document, target: Path, *, pictures: Mapping[str, bytes] | None =
     _running_texts(word.sections[0], document)
     _title_page(word, document, kicker)
     _contents(word, document)
-    writer = _Writer(word, document, dict(pictures or {}))
+    writer = _Writer(word, document)
     for number, section in enumerate(document.sections, start=1):
         writer.section(section, level=1, number=str(number))
+    writer.place_pictures(dict((pictures() if callable(pictures) else pictures) or {}))
     _core_properties(word, document, created, modified)
     buffer = io.BytesIO()
     word.save(buffer)
@@ -287,8 +291,9 @@ def _contents_entries(word, section: Section, number: str, depth: int) -> None:
 
 # --------------------------------------------------------------------------- body
 class _Writer:
-    def __init__(self, word, document, pictures: dict[str, bytes]):
-        self.word, self.document, self.pictures = word, document, pictures
+    def __init__(self, word, document):
+        self.word, self.document = word, document
+        self.figures: list[tuple] = []     # (figure, its picture's paragraph, caption and note, width)
         self.landscape = False      # the orientation of the page being filled
         self.room = _text_width(word.sections[-1])     # its text width (finding the section walks the body)
         self.next_shape_id = 0      # the id of the next picture, once the first one is placed
@@ -372,21 +377,31 @@ class _Writer:
 
     # ------------------------------------------------------------------ figures
     def figure(self, figure) -> None:
+        """A paragraph for the picture (placed by place_pictures), then the caption and note."""
         from docx.shared import Mm
 
-        picture = self.pictures.get(figure.slug)
-        if picture is None:
-            self.word.add_paragraph(f"{figure.title}: {figure.note or 'not drawn.'}")
-            return
         paragraph = self.word.add_paragraph()
         paragraph.paragraph_format.keep_with_next = True
-        paragraph.add_run()._r.add_drawing(self._inline_picture(picture, min(self.room, Mm(170))))
         caption = _paragraph(self.word, "", CAPTION_ID)
         number = caption.add_run(f"{figure.number}  ")
         _colour(number, ACCENT)
         caption.add_run(figure.title)
-        if figure.note:
-            _paragraph(self.word, figure.note, TABLE_NOTE_ID)
+        note = _paragraph(self.word, figure.note, TABLE_NOTE_ID) if figure.note else None
+        self.figures.append((figure, paragraph, [caption, note], min(self.room, Mm(170))))
+
+    def place_pictures(self, pictures: Mapping[str, bytes]) -> None:
+        """Each figure's picture in its paragraph, in reading order; a figure without one is
+        a single paragraph of its title and note in words instead (no caption)."""
+        for figure, paragraph, extras, width in self.figures:
+            picture = pictures.get(figure.slug)
+            if picture is not None:
+                paragraph.add_run()._r.add_drawing(self._inline_picture(picture, width))
+                continue
+            for extra in extras:
+                if extra is not None:
+                    extra._p.getparent().remove(extra._p)
+            paragraph._p.remove(paragraph._p.pPr)
+            paragraph.add_run(f"{figure.title}: {figure.note or 'not drawn.'}")
 
 
     def _inline_picture(self, picture: bytes, width: int):

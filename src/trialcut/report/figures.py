@@ -163,13 +163,18 @@ def _unwrap_plain_groups(parent) -> None:
 
 def _png(figure) -> bytes:
     # The editable copy (DOCX) takes pictures; PNG from the Agg renderer carries no date, so
-    # the same drawing gives the same bytes.
+    # the same drawing gives the same bytes.  Compression level 3 instead of the default 6:
+    # a fifth of the picture's time saved for files about a tenth larger (the DOCX about 5%).
     import matplotlib
 
     buffer = io.BytesIO()
     with matplotlib.rc_context(RC):
-        figure.savefig(buffer, format="png", dpi=RASTER_DPI, metadata={"Software": None})
+        figure.savefig(buffer, format="png", dpi=RASTER_DPI, metadata={"Software": None},
+                       pil_kwargs={"compress_level": PNG_COMPRESSION})
     return buffer.getvalue()
+
+
+PNG_COMPRESSION = 3
 
 
 # A list while svg_and_picture draws: the figure saved as SVG is kept for its picture.

@@ -17,7 +17,7 @@ import tempfile
 from dataclasses import replace
 from importlib import resources
 from pathlib import Path
-from typing import Any, Mapping
+from typing import Any, Callable, Mapping
 
 from trialcut.errors import InputError, Problem, TrialcutError
 from trialcut.report.csv_output import write_table_csv
@@ -159,6 +159,9 @@ def _render_documents(results: Mapping[str, Any], run_folder: Path,
         pdf_html = render_html(map_figures(document, lambda f: replace(f, link=figure_link(f))))
         run_folder.mkdir(parents=True, exist_ok=True)
         html_to_pdf(pdf_html, run_folder / "report.pdf", drawing.fetcher())
+        # The copy's text and tables are built while the figure child may still be saving
+        # its pictures: write_docx asks for them (and waits) only at the end.
+        copy = _with_docx({}, document, results, run_folder, drawing.pictures)
         complete = drawing.all_drawn()
         pictures = drawing.pictures()
         links = {f.link: f for f in document.figures}
@@ -173,13 +176,13 @@ def _render_documents(results: Mapping[str, Any], run_folder: Path,
     html = pdf_html
     for link, figure in links.items():
         html = html.replace(f'src="{link}"', f'src="{data_uri(drawing.svg(figure.slug), "image/svg+xml")}"')
-    return _with_docx(write_outputs(document, html, run_folder, pdf_html=pdf_html), document, results, run_folder,
-                      pictures)
+    return {**write_outputs(document, html, run_folder, pdf_html=pdf_html), **copy}
 
 
 def _with_docx(written: dict[str, Path], document: Document, results: Mapping[str, Any], folder: Path,
-               pictures: Mapping[str, bytes]) -> dict[str, Path]:
-    """The editable copy (report.docx) beside the PDF, dated by the run so a re-render gives the same bytes."""
+               pictures: Mapping[str, bytes] | Callable[[], Mapping[str, bytes]]) -> dict[str, Path]:
+    """The editable copy (report.docx) beside the PDF, dated by the run so a re-render gives the same bytes
+    (``pictures``: see write_docx)."""
     from trialcut.report.docx_output import write_docx
 
     run = results.get("run") or {}
