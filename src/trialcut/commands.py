@@ -284,7 +284,7 @@ def _record(out_root: Path, plan, cut_label, run_id, results, audit, loaded, raw
         # The report prints the registry row it will take and the chain head it follows:
         # an anchor outside the registry file (README: what verify can and cannot detect).
         audit["registry_seq"], audit["registry_follows"] = position.seq, position.previous_hash
-        _write_json(folder / "results.json", results)
+        _write_json(folder / "results.json", results, indent=None)
         (folder / "plan").mkdir()
         if cut.blinding is not None:   # the plan and its lock name the real arms: a dry run leaves them out
             (folder / "plan" / "LEFT_OUT.txt").write_text(DRY_RUN_PLAN_NOTE, encoding="utf-8")
@@ -775,8 +775,11 @@ def _repo_file(relative: str) -> Path:
                                                          hint="run trialcut from a checkout of the project")])
 
 
-def _write_json(path: Path, data: Any) -> None:
-    path.write_text(json.dumps(data, indent=1, sort_keys=False, ensure_ascii=False, allow_nan=False) + "\n",
+def _write_json(path: Path, data: Any, *, indent: int | None = 1) -> None:
+    """Small records indented for reading; ``indent=None`` for results.json, whose size grows with the
+    participants (195 MB at 30,000): the standard library only uses its C encoder without indenting,
+    which writes it about ten times faster (the same values; a JSON viewer lays it out)."""
+    path.write_text(json.dumps(data, indent=indent, sort_keys=False, ensure_ascii=False, allow_nan=False) + "\n",
                     encoding="utf-8")
 
 
