@@ -141,7 +141,8 @@ def test_an_interim_look_says_so_on_every_page_and_first_among_the_cautions(resu
     interim["multiplicity"] = _sequential(1)
     document = build_document(interim, draw=False)
     assert document.header_text.startswith("INTERIM LOOK 1 OF 2 · ")
-    assert "not the final analysis" in document.kicker and "Interim look 1 of 2" in document.kicker
+    assert document.kicker == ("Interim analysis, look 1 of 2, from a prespecified, locked plan: "
+                               "not the final analysis")
     assert document.cautions[0].startswith("Interim look 1 of 2: not the final analysis; decisions")
     assert any("qualified statistician" in c for c in document.cautions[1:])
     unplanned = copy.deepcopy(interim)

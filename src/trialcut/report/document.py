@@ -50,8 +50,11 @@ class Document:
         if "DUMMY TREATMENT CODES" in self.marks:
             return "Dry run with dummy treatment codes: not the real assignment"
         look = next((m for m in self.marks if m.startswith(("INTERIM LOOK", "NOT A PLANNED LOOK"))), None)
+        if look and look.startswith("INTERIM LOOK"):     # "INTERIM LOOK k OF K"
+            return (f"Interim analysis, {look.removeprefix('INTERIM ').lower()}, from a prespecified, locked plan: "
+                    f"not the final analysis")
         if look:
-            return f"{look.capitalize()} of a prespecified, locked plan: not the final analysis"
+            return "Analyses of a cut that is not a planned look, from a prespecified, locked plan: no decision"
         return "Efficacy analyses run from a prespecified, locked plan"
 
 
