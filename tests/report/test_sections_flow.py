@@ -64,3 +64,18 @@ def test_the_pattern_figure_draws_visits_not_yet_due_apart():
     assert NOT_YET_DUE_COLOUR in drawn and "not yet due" in drawn
     plain = pattern_chart(rows[1:], arms=["A"], visits=["V1", "V2", "V3", "V4"]).decode("utf-8")
     assert NOT_YET_DUE_COLOUR not in plain and "not yet due" not in plain
+
+
+def test_with_several_endpoints_the_flow_headings_name_each_by_its_label_not_its_plan_id():
+    # A heading read by a reviewer shows words, never a plan id (common practice: ids are for machines).
+    import copy
+
+    results = _results(with_dates=True)
+    second = copy.deepcopy(results["endpoints"][0])
+    second["id"], second["label"] = "second_score", "Change from baseline in a second score (invented)"
+    results["endpoints"].append(second)
+    section = _flow_section(results)
+    titles = [s.title for s in walk([section])][1:]
+    assert any(t.startswith("Change from baseline in a second score: ") for t in titles), titles
+    ids = ("second_score", results["endpoints"][0]["id"])
+    assert not any(t.startswith(f"{endpoint_id}:") or "second_score" in t for t in titles for endpoint_id in ids), titles

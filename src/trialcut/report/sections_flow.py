@@ -103,10 +103,11 @@ def _flow_table(section: Section, results, endpoint, entry, slug: str, number_fo
 
 
 def _who(results, endpoint, entry, name_endpoint: bool) -> str:
-    """A flow entry's estimand and population in words, after the endpoint's id when there are several."""
+    """A flow entry's estimand and population in words, after the endpoint's label when there are
+    several (a heading never shows a plan id)."""
     estimand, population = entry.get("estimand"), _label(results, "populations", entry.get("population"))
     who = f"{_label(results, 'estimands', estimand)}; {population}" if estimand else f"{population}, no estimand"
-    return f"{endpoint.get('id')}: {who}" if name_endpoint else who
+    return f"{_endpoint_words(endpoint)}: {who}" if name_endpoint else who
 
 
 def _endpoint_words(endpoint: Mapping[str, Any]) -> str:
