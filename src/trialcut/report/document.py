@@ -12,7 +12,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field, replace
 from typing import Any, Mapping, Sequence
 
-from trialcut.report import sections_analysis, sections_flow, sections_front, sections_responder
+from trialcut.report import sections_analysis, sections_flow, sections_front, sections_glance, sections_responder
 from trialcut.report.blocks import Block, Section, walk
 from trialcut.report.figures import FigureImage
 from trialcut.report.formatting import NumberFormat, short_hash
@@ -86,6 +86,10 @@ def build_document(results: Mapping[str, Any], audit: Mapping[str, Any] | None =
         "paragraph", "How values are rounded is stated at the start of each endpoint's section, from the plan's "
                      "decimals; the CSV files keep full precision."))
     sections.append(about)
+    # The answer the trial was run for, before the pages of estimands, populations and conformance.
+    glance = sections_glance.glance_section(results, base_format)
+    if glance is not None:
+        sections.append(glance)
 
     estimands = Section("estimands", "Estimands")
     sections_front.estimands(estimands, results, base_format)
@@ -135,7 +139,9 @@ def build_document(results: Mapping[str, Any], audit: Mapping[str, Any] | None =
     )
     if draw:
         map_figures(document, FigureImage.drawn)
-    return number_items(document, report_settings)
+    number_items(document, report_settings)
+    sections_glance.name_places(document.sections, document.tables)
+    return document
 
 
 def _cautions(results: Mapping[str, Any]) -> list[str]:

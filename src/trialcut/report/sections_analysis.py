@@ -835,7 +835,7 @@ def _estimates_at_primary_visit(context: EndpointContext, analyses) -> list[dict
                              "arm": f"{row.get('arm')} (N = {n})" if n is not None else row.get("arm"),
                              "arm_code": row.get("arm"), "estimate": row.get("estimate"), "se": row.get("se"),
                              "df": row.get("df"), "lower": row.get("lower"), "upper": row.get("upper"),
-                             "p": row.get("p"), "effect": row.get("effect")})
+                             "p": row.get("p"), "effect": row.get("effect"), "visit": row.get("visit")})
     return rows
 
 
