@@ -18,6 +18,7 @@ from typing import Any, Mapping, Sequence
 from trialcut.report.blocks import Section, walk
 from trialcut.report.context import EndpointContext
 from trialcut.report.formatting import NumberFormat
+from trialcut.report.sections_front import look_banner
 from trialcut.report.sections_analysis import (
     EFFECT_WORDS, RATIO_EFFECTS, _effect_scale, _estimates_at_primary_visit, _level_text, _short_label,
 )
@@ -57,10 +58,6 @@ def glance_section(results: Mapping[str, Any], base_format: NumberFormat) -> Sec
             populations.append(population)
         levels.setdefault(_level_text(primary.get("options") or {}), []).append(context.label)
         rows.extend(_rows(context, primary, f"endpoint{position + 1}"))
-    section.paragraph(
-        "The prespecified primary analysis of each endpoint, one row per active arm, at the primary visit "
-        "(or over the whole period, where the analysis has one estimate for it). Each number is printed as in "
-        "the analysis' own table of differences, named in the last column.")
     section.table(_table(results, rows, levels, populations, contexts, base_format))
     section.paragraph(_closing(results))
     return section
@@ -84,7 +81,7 @@ def _rows(context: EndpointContext, primary: Mapping[str, Any], anchor: str) -> 
         row = _common(context, primary, anchor, estimate.get("arm_code"))
         visit = estimate.get("visit")
         row.update(visit=visit if visit is not None else context.primary_visit,
-                   effect=_effect_text(context, estimate.get("effect")),
+                   effect=_effect_text(estimate.get("effect")),
                    estimate_text=number_format.cell(estimate.get("estimate"), estimate_kind),
                    interval_text=number_format.interval(estimate.get("lower"), estimate.get("upper"), interval_kind),
                    p_text=number_format.cell(estimate.get("p"), p_kind),
@@ -100,7 +97,7 @@ def _missing_row(context: EndpointContext, primary, anchor: str, reason: str) ->
     rows = []
     for arm in active:
         row = _common(context, primary or {}, anchor, arm)
-        row.update(visit=context.primary_visit or "not recorded", effect=_effect_text(context, None),
+        row.update(visit=context.primary_visit or "not recorded", effect=_effect_text(None),
                    estimate_text=reason, interval_text="not estimated", p_text="not estimated")
         rows.append(row)
     return rows
@@ -126,11 +123,9 @@ def _with_n(arm: str | None, n: int | None) -> str:
     return f"{arm} (N = {n})" if n is not None else f"{arm} (N not recorded)"
 
 
-def _effect_text(context: EndpointContext, effect: str | None) -> str:
+def _effect_text(effect: str | None) -> str:
     """What the estimate measures: a ratio is never read as a difference."""
-    if effect in RATIO_EFFECTS:
-        return f"{EFFECT_WORDS[effect]} (arm / reference)"
-    return f"{EFFECT_WORDS.get(effect) or 'difference in means'} (arm minus reference)"
+    return EFFECT_WORDS.get(effect, effect) if effect else "difference in means"
 
 
 def _table(results, rows, levels, populations, contexts, base_format: NumberFormat) -> ReportTable | None:
@@ -149,13 +144,12 @@ def _table(results, rows, levels, populations, contexts, base_format: NumberForm
     level_note = (f"Confidence level: {next(iter(levels))} in every primary analysis." if len(levels) == 1 else
                   "Confidence levels: " + "; ".join(f"{level} ({', '.join(_short_label(name) for name in names)})"
                                                     for level, names in levels.items()) + ".")
-    ratio = any(str(row.get("effect", "")).split(" (")[0] in {EFFECT_WORDS[e] for e in RATIO_EFFECTS} for row in rows)
+    ratio = any(row.get("effect") in {EFFECT_WORDS[e] for e in RATIO_EFFECTS} for row in rows)
     notes = [level_note,
              ("Differences are arm minus reference; ratios are arm over reference (see the effect measure). "
               if ratio else "Differences are each active arm minus the reference arm. ")
-             + "p-values are nominal, two-sided and unadjusted for multiple comparisons.",
-             "Each number is read from the primary analysis' table of differences in results.json and rounded "
-             "by that endpoint's rule, so it prints as it does there."]
+             + "Each number is rounded as in the full table named in its row; p-values are nominal, two-sided "
+               "and unadjusted for multiple comparisons."]
     table = first.standalone(table, notes=notes, population=populations[0] if populations else None)
     if len(populations) > 1:
         table = replace(table, counts="  ".join(first.counts_line(p) + "." for p in populations))
@@ -176,23 +170,18 @@ def _title(contexts: Sequence[tuple[EndpointContext, Mapping[str, Any]]], popula
 
 
 def _closing(results: Mapping[str, Any]) -> str:
-    text = ("These are the prespecified primary analyses. The sensitivity and supplementary analyses are in each "
-            "endpoint's section (Sensitivity and supplementary analyses)")
+    """Where the rest is; short, since it stays on the table's last page."""
+    text = "These are the prespecified primary analyses; sensitivity analyses are in each endpoint's section"
     multiplicity = results.get("multiplicity") or {}
     if multiplicity.get("sequential"):
-        text += ("; the multiple comparisons section gives the group-sequential boundaries at this look and the "
-                 "decision on each hypothesis")
+        text += "; the group-sequential boundaries and the decision on each hypothesis are under Multiple comparisons."
     elif multiplicity:
-        text += "; the multiple comparisons section gives the adjustment and the decision on each hypothesis"
+        text += "; the decision on each hypothesis is under Multiple comparisons."
     else:
-        text += "; the plan declares no adjustment for multiple comparisons"
-    text += ". The p-values here are nominal and are not a decision."
-    from trialcut.report.sections_front import look_banner
-
+        text += "; the plan makes no adjustment for multiple comparisons."
     look = look_banner(results)
     if look:
-        text += (f" {look.split(' — ')[0].capitalize()}: no hypothesis is decided from these numbers alone; "
-                 "the interim caution on the title page applies.")
+        text += f" {look.split(' — ')[0].capitalize()}: the interim caution on the title page applies."
     return text
 
 
