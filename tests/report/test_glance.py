@@ -52,7 +52,8 @@ def _check_against_own_tables(document, results) -> int:
         own = _by_number(document, row["Full table"])
         assert "differences" in own.slug or "Differences" in own.title, (row["Full table"], own.title)
         arm, n_arm, reference, n_reference = ARMS_CELL.fullmatch(row["Arm (N) against reference (N)"]).groups()
-        matches = [cells for cells in _cells(own) if cells.get("Arm") == arm and cells.get("Visit") == row["Visit"]]
+        matches = [cells for cells in _cells(own)
+                   if cells.get("Arm") == arm and cells.get("Visit", "whole period") == row["Visit"]]
         assert len(matches) == 1, (row, own.title)
         mine = matches[0]
         assert row["Estimate"] == mine["Estimate"]
@@ -112,6 +113,26 @@ def test_a_failed_primary_shows_its_reason(results):
         assert row["Primary analysis; estimand, population"].startswith("Repeated-measures model, treatment policy")
 
 
+def test_a_primary_without_the_primary_visit_says_so(results):
+    partial = copy.deepcopy(results)
+    differences = partial["endpoints"][0]["analyses"][0]["tables"]["differences"]
+    at = differences["columns"].index("visit")
+    differences["data"] = [row for row in differences["data"] if row[at] != "Week 12"]
+    rows = _cells(_glance(build_document(partial, draw=False)))
+    assert [row["Estimate"] for row in rows] == ["no estimate at Week 12 in its table"] * 2
+
+
+def test_an_estimate_over_the_whole_period_is_shown_as_such(results):
+    whole = copy.deepcopy(results)
+    differences = whole["endpoints"][0]["analyses"][0]["tables"]["differences"]
+    at = differences["columns"].index("visit")
+    differences["columns"].pop(at)
+    differences["data"] = [row[:at] + row[at + 1:] for row in differences["data"] if row[at] == "Week 12"]
+    document = build_document(whole, draw=False)
+    assert [row["Visit"] for row in _cells(_glance(document))] == ["whole period"] * 2
+    assert _check_against_own_tables(document, whole) == 2
+
+
 def test_the_full_table_column_names_the_numbered_table(results):
     document = build_document(results, draw=False)
     row = _cells(_glance(document))[0]
@@ -145,7 +166,6 @@ def _demo_plan_quick():
     return AnalysisPlan.model_validate(data)
 
 
-@pytest.mark.slow
 def test_glance_numbers_print_as_the_primary_tables_on_the_demo():
     from trialcut.data.prepare import prepare_cut
     from trialcut.data.readers import raw_from_frame

@@ -18,10 +18,10 @@ from typing import Any, Mapping, Sequence
 from trialcut.report.blocks import Section, walk
 from trialcut.report.context import EndpointContext
 from trialcut.report.formatting import NumberFormat
-from trialcut.report.sections_front import look_banner
 from trialcut.report.sections_analysis import (
     EFFECT_WORDS, RATIO_EFFECTS, _effect_scale, _estimates_at_primary_visit, _level_text, _short_label,
 )
+from trialcut.report.sections_front import look_banner
 from trialcut.report.tables import ReportTable, from_records
 
 ANCHOR = "glance"
@@ -58,7 +58,7 @@ def glance_section(results: Mapping[str, Any], base_format: NumberFormat) -> Sec
             populations.append(population)
         levels.setdefault(_level_text(primary.get("options") or {}), []).append(context.label)
         rows.extend(_rows(context, primary, f"endpoint{position + 1}"))
-    section.table(_table(results, rows, levels, populations, contexts, base_format))
+    section.table(_table(rows, levels, populations, contexts, base_format))
     section.paragraph(_closing(results))
     return section
 
@@ -68,7 +68,9 @@ def _rows(context: EndpointContext, primary: Mapping[str, Any], anchor: str) -> 
         return _missing_row(context, primary, anchor, f"failed: {primary.get('error') or 'no message was recorded'}")
     differences = (primary.get("tables") or {}).get("differences") or {}
     kinds, _, _ = _effect_scale(primary, differences)
-    estimate_kind, interval_kind, p_kind = kinds.get("estimate") or "mean", kinds.get("lower") or "mean", "p"
+    # The kinds the differences table gives these columns (tables.from_results_table), so both print alike.
+    estimate_kind, interval_kind = kinds.get("estimate") or "mean", kinds.get("lower") or "mean"
+    p_kind = kinds.get("p") or "p"
     number_format = context.number_format
     found = [r for r in _estimates_at_primary_visit(context, [primary]) if r.get("arm_code") != context.reference]
     # The plan's order of arms in every endpoint's rows, whatever order the analysis wrote them in.
@@ -80,7 +82,7 @@ def _rows(context: EndpointContext, primary: Mapping[str, Any], anchor: str) -> 
     for estimate in found:
         row = _common(context, primary, anchor, estimate.get("arm_code"))
         visit = estimate.get("visit")
-        row.update(visit=visit if visit is not None else context.primary_visit,
+        row.update(visit=visit if visit is not None else "whole period",
                    effect=_effect_text(estimate.get("effect")),
                    estimate_text=number_format.cell(estimate.get("estimate"), estimate_kind),
                    interval_text=number_format.interval(estimate.get("lower"), estimate.get("upper"), interval_kind),
@@ -128,7 +130,9 @@ def _effect_text(effect: str | None) -> str:
     return EFFECT_WORDS.get(effect, effect) if effect else "difference in means"
 
 
-def _table(results, rows, levels, populations, contexts, base_format: NumberFormat) -> ReportTable | None:
+def _table(rows, levels, populations, contexts, base_format: NumberFormat) -> ReportTable | None:
+    """Every cell is text already rounded by its endpoint's rule (endpoints may differ in decimals), so
+    the table's own format only prints it; the CSV file keeps the numbers at full precision."""
     if not rows:
         return None
     table = from_records(rows, COLUMNS, slug=TABLE_SLUG, number_format=base_format, labels=LABELS,
