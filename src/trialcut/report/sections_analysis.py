@@ -51,7 +51,7 @@ STRUCTURE_WORDS = {
 }
 DF_WORDS = {
     "kenward_roger": "Kenward–Roger", "satterthwaite": "Satterthwaite",
-    "participant_split": "residual degrees of freedom split into between- and within-participant parts",
+    "participant_split": "residual degrees of freedom split into a participant-level and a visit-level part",
     "residual": "residual (observations minus fixed effects)",
 }
 METHOD_SHORT = {"mmrm": "MMRM", "ancova": "ANCOVA", "multiple_imputation": "Multiple imputation",

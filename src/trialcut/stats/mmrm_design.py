@@ -55,7 +55,7 @@ class Design:
     term_keys: tuple[dict, ...]     # each column as data: effect (joint-test term), arm, visit, covariate, level
     term_blocks: dict[str, list[int]]   # "arm", "visit", "arm_by_visit", covariate, "<c>_by_visit"
     covariate_columns: dict[str, list[int]]   # covariate -> its main-effect columns
-    between_columns: np.ndarray     # bool per column: constant within every participant
+    participant_level: np.ndarray   # bool per column: the same value at every visit of each participant
     patterns: list[Pattern]
     subject_labels: np.ndarray
     n_obs: int
@@ -219,9 +219,9 @@ def build_design(data: pd.DataFrame, *, outcome: str, subject: str, visit: str, 
     pair_counts = np.zeros((len(groups), len(visits), len(visits)))
     for pattern in patterns:
         pair_counts[pattern.group][np.ix_(pattern.visits, pattern.visits)] += pattern.n
-    between = np.ones(x.shape[1], bool)
+    participant_level = np.ones(x.shape[1], bool)
     for pattern in patterns:
-        between &= np.all(np.ptp(pattern.x, axis=1) == 0, axis=0)
+        participant_level &= np.all(np.ptp(pattern.x, axis=1) == 0, axis=0)
 
     first = _first_row_per_participant(subject_codes, visit_index)
     summary_values, summary = coder.summary(observed.iloc[first])
@@ -230,7 +230,7 @@ def build_design(data: pd.DataFrame, *, outcome: str, subject: str, visit: str, 
                      np.repeat(summary_values[None], len(visits), 0), coder.by_visit_mask, len(arms), len(visits))
         for a in range(len(arms))])
     return Design(visits=visits, arms=arms, groups=groups, visit_times=times, term_names=names,
-                  term_keys=keys, term_blocks=blocks, covariate_columns=covariate_columns, between_columns=between,
+                  term_keys=keys, term_blocks=blocks, covariate_columns=covariate_columns, participant_level=participant_level,
                   patterns=patterns, subject_labels=np.asarray(subject_labels), n_obs=len(observed),
                   n_subjects=len(subject_labels), excluded_subjects=excluded, cell_means=cell_means,
                   covariate_summary=summary, pair_counts=pair_counts)

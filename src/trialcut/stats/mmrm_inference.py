@@ -39,10 +39,10 @@ J = dpsi/dtheta, and d2Sigma/dpsi2 = 0), otherwise in the optimisation parameter
   for l > 1 the contrast is rotated to the eigenvectors of L Phi L', each row gets its one-df value
   nu_m and the denominator df is 2E/(E - l) with E = sum_m nu_m / (nu_m - 2) (rows with nu_m <= 2
   are left out of E).
-* ``participant_split``: the residual df split into a between-participant part (participants minus
-  the number of columns constant within every participant, intercept included) and a
-  within-participant part (observations minus participants minus the remaining columns); each
-  column has the df of its part and a contrast gets the smallest df among the columns it touches.
+* ``participant_split``: the residual df split into a participant-level part (participants minus
+  the number of columns with one value per participant, intercept included) and a visit-level
+  part (observations minus participants minus the remaining columns); each column has the df of
+  its part and a contrast gets the smallest df among the columns it touches.
 * ``residual``: observations minus the number of fixed effects, for every contrast.
 
 With ``robust=True`` the variance is the empirical sandwich Phi (sum_i X_i'V_i^-1 r_i r_i'V_i^-1 X_i) Phi
@@ -82,15 +82,15 @@ class Inference:
             self.model_based = self.phi + 2 * self._kenward_roger_lambda(
                 likelihood, evaluation, include_second=self.second_derivatives)
         self.covariance = _sandwich(likelihood, evaluation) if robust else self.model_based
-        n_between = int(design.between_columns.sum())
+        n_participant_level = int(design.participant_level.sum())
         p = len(self.beta)
-        self.between = design.between_columns
-        self.df_between = design.n_subjects - n_between
-        self.df_within = design.n_obs - design.n_subjects - (p - n_between)
+        self.participant_level = design.participant_level
+        self.df_participant_level = design.n_subjects - n_participant_level
+        self.df_visit_level = design.n_obs - design.n_subjects - (p - n_participant_level)
         self.df_residual = design.n_obs - p
-        if df_method == "participant_split" and min(self.df_between, self.df_within) <= 0:
-            self.notes.append(f"participant-split degrees of freedom are not positive (between participants "
-                              f"{self.df_between}, within participants {self.df_within}): too few participants "
+        if df_method == "participant_split" and min(self.df_participant_level, self.df_visit_level) <= 0:
+            self.notes.append(f"participant-split degrees of freedom are not positive (participant level "
+                              f"{self.df_participant_level}, visit level {self.df_visit_level}): too few participants "
                               "or outcomes for this method")
         if robust and df_method != "residual":
             self.notes.append(f"robust variance: standard errors are the empirical sandwich; degrees of freedom "
@@ -168,7 +168,8 @@ class Inference:
         if self.df_method == "residual":
             return float(self.df_residual)
         touched = np.abs(row) > 1e-12
-        return float(np.min(np.where(self.between[touched], self.df_between, self.df_within)))
+        return float(np.min(np.where(self.participant_level[touched], self.df_participant_level,
+                                     self.df_visit_level)))
 
     # ----------------------------------------------------------------- joint tests
     def joint(self, contrast: np.ndarray) -> tuple[int, float, float, float]:
