@@ -303,15 +303,21 @@ def test_trajectory_panel_titles_put_the_count_on_its_own_line():
     assert "Lorvatide 10 mg" in texts and "(n = 1)" in texts
 
 
-def test_with_two_endpoints_every_table_title_is_still_unique(results):
-    # With the responder and count endpoints in the demo, "Missing values of the primary analysis by arm and
-    # visit; full analysis set" and the flow tables appeared once per endpoint under the same title.
+def _with_second_endpoint(results: dict) -> dict:
+    """The results with a copy of the first endpoint as a second one (ids and label of its own)."""
     two = copy.deepcopy(results)
     second = copy.deepcopy(two["endpoints"][0])
     second["id"], second["label"] = "second_score", "Change from baseline in a second score (invented)"
     for analysis in second["analyses"]:
         analysis["id"] = f"{analysis['id']}_second"
     two["endpoints"].append(second)
+    return two
+
+
+def test_with_two_endpoints_every_table_title_is_still_unique(results):
+    # With the responder and count endpoints in the demo, "Missing values of the primary analysis by arm and
+    # visit; full analysis set" and the flow tables appeared once per endpoint under the same title.
+    two = _with_second_endpoint(results)
     document = build_document(two, draw=False)
     titles = [t.title for t in [*document.tables, *document.csv_tables]]
     repeated = sorted({t for t in titles if titles.count(t) > 1})
@@ -320,12 +326,7 @@ def test_with_two_endpoints_every_table_title_is_still_unique(results):
 
 def test_subgroup_tests_of_two_endpoints_have_titles_of_their_own(results):
     # The demo's three endpoints each printed "Test of equal effects across the levels of Sex (...)".
-    two = copy.deepcopy(results)
-    second = copy.deepcopy(two["endpoints"][0])
-    second["id"], second["label"] = "second_score", "Change from baseline in a second score (invented)"
-    for analysis in second["analyses"]:
-        analysis["id"] = f"{analysis['id']}_second"
-    two["endpoints"].append(second)
+    two = _with_second_endpoint(results)
     for endpoint in two["endpoints"]:
         endpoint["subgroups"] = [{
             "id": "sex", "label": "Sex", "column": "SEX", "analysis": endpoint["analyses"][0]["id"],
