@@ -142,20 +142,26 @@ class EndpointContext:
         return f"Source: {what}; data file SHA-256 {self.data_hash}…; endpoint {self.slug}."
 
     def standalone(self, table: ReportTable | None, analysis: Mapping[str, Any] | None = None, *,
-                   notes: Sequence[str] = (), population: str | None = None) -> ReportTable | None:
-        """``table`` with N per arm in its header and its footnotes (notes, abbreviations, source)."""
+                   notes: Sequence[str] = (), population: str | None = None,
+                   populations: Sequence[str] = (), source: str | None = None) -> ReportTable | None:
+        """``table`` with N per arm in its header and its footnotes (notes, abbreviations, source).
+
+        ``populations``: a table whose rows use several populations shows N per arm of each (more
+        than one given); ``source``: the source line of a table drawn from several analyses."""
         if table is None:
             return None
         from dataclasses import replace
 
         population = population or (analysis or {}).get("population") or self.population
+        counts = ("  ".join(self.counts_line(p) + "." for p in populations) if len(populations) > 1
+                  else self.counts_line(populations[0] if populations else population))
         lines = [n for n in notes if n]
         text = " ".join([table.title, *[c.label for c in table.display], *lines])
         used = [f"{short}: {words}" for short, words in ABBREVIATIONS
                 if ABBREVIATION_PATTERNS[short].search(text) or (short == "N")]
         lines.append("Abbreviations: " + "; ".join(used) + ".")
-        lines.append(self.source_line(analysis))
-        return replace(table, counts=self.counts_line(population), footnotes=tuple(lines))
+        lines.append(source or self.source_line(analysis))
+        return replace(table, counts=counts, footnotes=tuple(lines))
 
 
 def _short(label: str) -> str:

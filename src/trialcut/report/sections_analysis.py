@@ -726,14 +726,12 @@ def sensitivity(section: Section, context: EndpointContext, primary, others: Seq
         ratio = _ratio_words(rows)
         if ratio:   # a rate or odds ratio is not a difference: its title, note and axis say so
             summary = replace(summary, title=summary.title.replace("Estimated difference from", f"Estimated {ratio} to"))
-        summary = context.standalone(summary, notes=[
+        # N per arm of every population the rows use, not only the primary's.
+        summary = context.standalone(summary, populations=_populations_of([primary, *others], context), notes=[
             (f"Ratios are each arm over {context.reference}." if ratio
              else f"Differences are each arm minus {context.reference}.") + f" {_levels_sentence([primary, *others])} "
             "Models and degrees of freedom: see each analysis' section; DF is each analysis' own "
             "(Kenward–Roger, residual or Barnard–Rubin)."])
-        populations = _populations_of([primary, *others], context)
-        if len(populations) > 1:   # N per arm of every population the rows use, not only the primary's
-            summary = replace(summary, counts="  ".join(context.counts_line(p) + "." for p in populations))
         section.table(summary)
         favours = context.favours_words()
         section.figure(_figure(

@@ -16,7 +16,7 @@ from dataclasses import replace
 from typing import Any, Mapping, Sequence
 
 from trialcut.report.blocks import Section, walk
-from trialcut.report.context import EndpointContext
+from trialcut.report.context import EndpointContext, _lower_first
 from trialcut.report.formatting import NumberFormat
 from trialcut.report.sections_analysis import (
     EFFECT_WORDS, RATIO_EFFECTS, _effect_scale, _estimates_at_primary_visit, _level_text, _short_label,
@@ -144,7 +144,7 @@ def _table(rows, levels, populations, contexts, base_format: NumberFormat) -> Re
     table = replace(table, display=display, wide=True)
     if not contexts:
         return table
-    first, primary = contexts[0]
+    first = contexts[0][0]
     level_note = (f"Confidence level: {next(iter(levels))} in every primary analysis." if len(levels) == 1 else
                   "Confidence levels: " + "; ".join(f"{level} ({', '.join(_short_label(name) for name in names)})"
                                                     for level, names in levels.items()) + ".")
@@ -154,14 +154,10 @@ def _table(rows, levels, populations, contexts, base_format: NumberFormat) -> Re
               if ratio else "Differences are each active arm minus the reference arm. ")
              + "Each number is rounded as in the full table named in its row; p-values are nominal, two-sided "
                "and unadjusted for multiple comparisons."]
-    table = first.standalone(table, notes=notes, population=populations[0] if populations else None)
-    if len(populations) > 1:
-        table = replace(table, counts="  ".join(first.counts_line(p) + "." for p in populations))
     ids = ", ".join(f"{c.slug}/{p.get('id')}" for c, p in contexts)
-    run_id, data_hash = first.run_id, first.data_hash
-    footnotes = tuple(f"Source: primary analyses {ids} of run {run_id}; data file SHA-256 {data_hash}…."
-                      if line.startswith("Source:") else line for line in table.footnotes)
-    return replace(table, footnotes=footnotes)
+    return first.standalone(table, notes=notes, populations=populations,
+                            source=f"Source: primary analyses {ids} of run {first.run_id}; "
+                                   f"data file SHA-256 {first.data_hash}….")
 
 
 def _title(contexts: Sequence[tuple[EndpointContext, Mapping[str, Any]]], populations: Sequence[str]) -> str:
@@ -169,8 +165,7 @@ def _title(contexts: Sequence[tuple[EndpointContext, Mapping[str, Any]]], popula
     if not contexts:
         return what
     context = contexts[0][0]
-    names = [context.population_label(p) for p in populations]
-    return f"{what}; {' or '.join(n[:1].lower() + n[1:] if len(n) > 1 and not n[1].isupper() else n for n in names)}"
+    return f"{what}; {' or '.join(_lower_first(context.population_label(p)) for p in populations)}"
 
 
 def _closing(results: Mapping[str, Any]) -> str:
