@@ -172,9 +172,9 @@ def _require_new_version(loaded: LoadedPlan, chain: tuple, lock_file: Path) -> N
     """An amendment carries a version of its own: two locked plans with different content under
     one version number leave a reader unable to say which plan a report ran (common practice:
     a protocol or plan amendment gets a new version)."""
-    earlier = [index for index, record in enumerate(chain) if record.plan_version == loaded.plan.version]
-    if earlier:
-        record = chain[earlier[-1]]
+    same = [record for record in chain if record.plan_version == loaded.plan.version]
+    if same:
+        record = same[-1]
         raise LockError(
             f"{loaded.path}: version {loaded.plan.version} was already locked at {record.locked_utc} "
             f"with other content",
