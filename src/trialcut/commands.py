@@ -11,7 +11,7 @@ import sys
 import time
 from datetime import datetime, timezone
 from pathlib import Path
-from typing import Any
+from typing import Any, Mapping, NamedTuple
 
 from rich.console import Console
 
@@ -135,29 +135,37 @@ def command_lock(args) -> int:
 # --------------------------------------------------------------------------- run
 def command_run(args) -> int:
     started = _utc_now()
-    run_folder, report = execute_run(
+    recorded = execute_run(
         plan_path=args.plan, data_path=args.data, cut_label=args.cut, out_root=args.out,
         unlocked=args.unlocked, dummy_arms_seed=args.dummy_arms, workers=args.workers,
         scheduler=args.scheduler, command_line=["trialcut", *sys.argv[1:]], started=started,
         cut_off=args.cut_off,
     )
-    console.print(f"run folder: {run_folder}")
-    console.print(f"report:     {report}")
-    return _primary_failures(run_folder)
+    console.print(f"run folder: {recorded.folder}")
+    console.print(f"report:     {recorded.report}")
+    return _say_primary_failures(recorded.failed_primaries)
 
 
 PRIMARY_FAILED = 4      # README: the run is recorded, but a primary analysis failed
 
 
-def _primary_failures(run_folder: Path) -> int:
+class RecordedRun(NamedTuple):
+    folder: Path
+    report: Path
+    failed_primaries: tuple[tuple[str, str, str], ...]   # (endpoint id, analysis id, first line of its error)
+
+
+def _failed_primaries(results: Mapping[str, Any]) -> tuple[tuple[str, str, str], ...]:
+    """The primary analyses the results (as recorded) mark as failed, with their reasons."""
+    return tuple((endpoint["id"], analysis["id"], (analysis.get("error") or "no reason recorded").splitlines()[0])
+                 for endpoint in results.get("endpoints", []) for analysis in endpoint.get("analyses", [])
+                 if analysis.get("role") == "primary" and analysis.get("status") == "failed")
+
+
+def _say_primary_failures(failed: tuple[tuple[str, str, str], ...]) -> int:
     """Say on the console which primary analyses failed; exit 4 if any did."""
-    results = json.loads((run_folder / "results.json").read_text(encoding="utf-8"))
-    failed = [(endpoint["id"], analysis) for endpoint in results.get("endpoints", [])
-              for analysis in endpoint.get("analyses", [])
-              if analysis.get("role") == "primary" and analysis.get("status") == "failed"]
-    for endpoint_id, analysis in failed:
-        reason = (analysis.get("error") or "no reason recorded").splitlines()[0]
-        print(f"primary analysis failed: {analysis['id']} of endpoint {endpoint_id}: {reason}", file=sys.stderr)
+    for endpoint_id, analysis_id, reason in failed:
+        print(f"primary analysis failed: {analysis_id} of endpoint {endpoint_id}: {reason}", file=sys.stderr)
     if failed:
         print("the run is recorded with the failure (see the report); its primary results are missing",
               file=sys.stderr)
@@ -168,8 +176,8 @@ def _primary_failures(run_folder: Path) -> int:
 def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: Path, unlocked: bool = False,
                 dummy_arms_seed: int | None = None, workers: int = 1, scheduler: str | None = None,
                 command_line: list[str] | None = None, started: str | None = None,
-                cut_off=None, looks_before: list[dict[str, Any]] | None = None) -> tuple[Path, Path]:
-    """Load, check, run, render and record one data cut. Returns (run folder, report.html).
+                cut_off=None, looks_before: list[dict[str, Any]] | None = None) -> RecordedRun:
+    """Load, check, run, render and record one data cut: its folder, report.html and failed primaries.
 
     ``looks_before``: the earlier looks' fractions reached as a run recorded them (a reproduction
     passes its run's own); by default they are read from the registry under ``out_root``.
@@ -237,7 +245,8 @@ def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: P
                                                       if c.get("status") == "failed"],
     }
     folder = _record(out_root, plan, cut_label, run_id, results, audit, loaded, raw, cut)
-    return folder, folder / "report.html"
+    # From the results just sealed (the same object written as results.json), not a second read of it.
+    return RecordedRun(folder, folder / "report.html", _failed_primaries(results))
 
 
 DRY_RUN_PLAN_NOTE = (
@@ -711,9 +720,9 @@ def command_demo(args) -> int:
     folders = {}
     for label in ("interim", "final"):
         started = time.perf_counter()
-        folders[label], _ = execute_run(plan_path=plan_path, data_path=paths[label], cut_label=label,
-                                        out_root=out, command_line=["trialcut", "demo"],
-                                        cut_off=demo_cut_offs()[label])
+        folders[label] = execute_run(plan_path=plan_path, data_path=paths[label], cut_label=label,
+                                     out_root=out, command_line=["trialcut", "demo"],
+                                     cut_off=demo_cut_offs()[label]).folder
         console.print(f"  ran the {label} cut in {time.perf_counter() - started:.1f} s")
     compared = record_comparison(folders["interim"], folders["final"], out / "registry.sqlite")
     _print_chain_head(compared.row)

@@ -97,12 +97,12 @@ def reproduce_run(run_folder: Path, data: Path, scratch: Path, tolerance: float)
     shutil.copytree(run_folder / "plan", plan_folder)
     run = results["run"]
     cut_off = (results.get("data") or {}).get("cut_off") or {}
-    folder, _ = execute_run(
+    folder = execute_run(
         plan_path=plan_folder / Path(results["plan"]["file"]).name, data_path=data, cut_label=run["cut"],
         out_root=scratch / "out", unlocked=bool(run.get("unlocked")), dummy_arms_seed=run.get("dummy_arms_seed"),
         command_line=["trialcut", "reproduce", run["id"]],
         cut_off=date.fromisoformat(cut_off["date"]) if cut_off.get("source") == "given" else None,
-        looks_before=run.get("earlier_looks") or [])   # the fractions the run used, not the scratch registry's
+        looks_before=run.get("earlier_looks") or []).folder   # the fractions the run used, not the scratch registry's
     again = json.loads((folder / "results.json").read_text(encoding="utf-8"))
     numbers, exact, within, differences = compare_results(results, again, tolerance)
     environment = audit.get("environment") or {}
