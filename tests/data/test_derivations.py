@@ -152,7 +152,7 @@ def test_disposition_counts():
     table = _cut(frame).disposition().set_index("measure")
     assert table.loc["Randomised"].tolist() == [1, 2, 3]
     # Counted in the primary analysis' population (the full analysis set), as the flow counts it.
-    assert table.loc["Observed at Week 4 (score, Full analysis set)"].tolist() == [1, 1, 2]
+    assert table.loc["Observed at Week 4 (Score change, Full analysis set)"].tolist() == [1, 1, 2]
     assert table.loc["Event: Treatment stopped"].tolist() == [0, 2, 2]
     assert table.loc["Left the study early"].tolist() == [0, 1, 1]
     assert table.loc["  Reason: Adverse event"].tolist() == [0, 1, 1]

@@ -24,6 +24,8 @@ Choices (documented because the report states them):
 """
 from __future__ import annotations
 
+import re
+
 from dataclasses import dataclass, field, replace
 import datetime as dt
 from typing import Any
@@ -161,7 +163,9 @@ class DataCut:
         observed = self._observed_at(endpoint, endpoint.primary_visit)
         # Counted in the primary analysis' population, as the participant flow counts it.
         where = f", {population.label}" if population is not None else ""
-        rows.append(self._per_arm(f"Observed at {endpoint.primary_visit} ({endpoint.id}{where})",
+        # The endpoint in words (its label without the explanation in brackets), never its plan id.
+        name = re.sub(r"\s*\([^()]*\)\s*$", "", endpoint.label).strip() or endpoint.label
+        rows.append(self._per_arm(f"Observed at {endpoint.primary_visit} ({name}{where})",
                                   members[members[cols.subject].isin(observed)]))
         for event in self.plan.intercurrent_events:
             if event.day_column in subjects.columns:
