@@ -25,7 +25,6 @@ Choices (documented because the report states them):
 from __future__ import annotations
 
 import re
-
 from dataclasses import dataclass, field, replace
 import datetime as dt
 from typing import Any
