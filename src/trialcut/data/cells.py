@@ -22,7 +22,10 @@ def map_distinct(values: pd.Series, function: Callable[[Any], Any]) -> pd.Series
     """
     if not len(values) or not plain_text_dtype(values.dtype):
         return values.map(function)
-    codes, uniques = pd.factorize(values)          # gaps get code -1
+    try:
+        codes, uniques = pd.factorize(values)      # gaps get code -1
+    except TypeError:                              # an unhashable cell (a list from a typed file)
+        return values.map(function)
     if not all(type(u) is str for u in uniques):
         return values.map(function)
     distinct = [function(u) for u in uniques]
