@@ -86,15 +86,6 @@ def rate_statsmodels(data):
     return result
 
 
-def best_time(function, *args, repeats: int = REPEATS):
-    best, result = float("inf"), None
-    for _ in range(repeats):
-        start = time.perf_counter()
-        result = function(*args)
-        best = min(best, time.perf_counter() - start)
-    return best, result
-
-
 def paired_best(ours, reference, data, repeats: int = REPEATS):
     """Best times of the two calls run alternately, so that both meet the same load on a shared machine."""
     best = [float("inf"), float("inf")]
