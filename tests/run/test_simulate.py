@@ -95,3 +95,38 @@ def test_same_trials_on_a_dask_cluster(tmp_path):
     with DaskExecutor(n_workers=2) as cluster:
         distributed = simulate(batches(plan, scenarios, 4, 8, batch_size=1), cluster, work_folder=tmp_path / "b")
     assert inline == distributed
+
+
+class ReportingExecutor(InlineExecutor):
+    """Says each finished batch, as the process pool and Dask executors do."""
+
+    reports_progress = True
+
+    def map(self, function, items, progress=None):
+        results = []
+        for done, item in enumerate(items, start=1):
+            results.append(function(item))
+            if progress:
+                progress(done, len(items))
+        return results
+
+
+def test_progress_says_each_count_once_and_ends_once(tmp_path):
+    # A batch log read "6 of 6 started" and "done in 0.0 s" after the real end: the round's
+    # last batch and the round's end both said the total (common practice: one line per change).
+    import io
+
+    from trialcut.commands_progress import _log_reporter
+
+    plan, scenarios = _scenarios(tmp_path, 6)
+    said, log = [], io.StringIO()
+    reporter = _log_reporter(log)
+
+    def progress(label, done, total):
+        said.append(done)
+        reporter(label, done, total)
+
+    simulate(batches(plan, scenarios, 6, 6, batch_size=2), ReportingExecutor(), work_folder=tmp_path / "w",
+             progress=progress, round_size=2)
+    assert said == [0, 2, 4, 6]
+    assert log.getvalue().count("started") == 1 and log.getvalue().count("6 of 6 done") == 1, log.getvalue()

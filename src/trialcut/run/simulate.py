@@ -166,15 +166,23 @@ def simulate(work: Sequence[TrialBatch], executor, *, work_folder: Path,
     done = {b.name: _read_batch(work_folder / f"{b.name}.json") for b in work}
     todo = [b for b in work if done[b.name] is None]
     finished = total - sum(b.stop - b.start for b in todo)
-    if progress:
-        progress("simulated trials", finished, total)
+    said: list[int] = []
+
+    def say(count: int) -> None:
+        # A round's last batch already said its count; saying it again after the round made a
+        # batch log read "300 of 300 started" and "done in 0.0 s" after the real end.
+        if progress and said[-1:] != [count]:
+            said.append(count)
+            progress("simulated trials", count, total)
+
+    say(finished)
     for first in range(0, len(todo), round_size):
         group = todo[first:first + round_size]
         before = finished
 
         def advance(count: int, _total: int, group=group, before=before) -> None:
-            if progress:   # batches of a round finish in any order; count trials of the finished ones
-                progress("simulated trials", min(before + count * (group[0].stop - group[0].start), total), total)
+            # batches of a round finish in any order; count trials of the finished ones
+            say(min(before + count * (group[0].stop - group[0].start), total))
 
         if getattr(executor, "reports_progress", False):
             outcomes = executor.map(run_batch, group, progress=advance)
@@ -184,8 +192,7 @@ def simulate(work: Sequence[TrialBatch], executor, *, work_folder: Path,
             _write_batch(work_folder / f"{batch.name}.json", result)
             done[batch.name] = result
             finished += batch.stop - batch.start
-        if progress:
-            progress("simulated trials", finished, total)
+        say(finished)
     return [dict(outcome, scenario=b.scenario.id) for b in work for outcome in done[b.name]]
 
 
