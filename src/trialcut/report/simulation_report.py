@@ -27,6 +27,14 @@ ANALYSIS_COLUMNS = (
     ("model_se", "Model SE"), ("rmse", "RMSE"), ("coverage", "Coverage"),
     ("rejection_rate_unadjusted", "Rejected at alpha, unadjusted"), ("covariance_structures", "Covariance used"),
 )
+# The scenarios file's mechanism codes, in words for the reader (the CSV keeps the codes).
+MECHANISM_WORDS = {"completely_at_random": "completely at random",
+                   "at_random_last_value": "at random, on the last observed value",
+                   "not_at_random_shift": "not at random (values after leaving shifted)", "none": "none"}
+TRUTH_NOTE = ("In a scenario whose values are shifted after leaving (not at random), the true difference is the "
+              "declared difference plus the shift times the difference between the arms in the share of "
+              "participants who left by the primary visit, averaged over the trials: the difference over everyone "
+              "randomised, what a treatment-policy estimand targets. Elsewhere it is the declared difference.")
 HYPOTHESIS_COLUMNS = (("scenario", "Scenario"), ("hypothesis", "Hypothesis"), ("arm", "Arm"), ("visit", "Visit"),
                       ("trials_decided", "Trials"), ("rejection_rate", "Rejection rate after multiplicity"))
 
@@ -128,7 +136,8 @@ def _html(summary: Mapping[str, Any], title: str, facts: Sequence[tuple[str, str
              "<table class='facts'>" + "".join(f"<tr><th>{escape(k)}</th><td>{escape(v)}</td></tr>" for k, v in facts)
              + "</table>", f"<p>{escape(summary['multiplicity_note'])}</p>",
              "<h2>Scenarios</h2>", _table([{"Scenario": s["id"], "Description": s["label"],
-                                            "Participants": s["participants"], "Dropout": s["mechanism"],
+                                            "Participants": s["participants"],
+                                            "Dropout": MECHANISM_WORDS.get(s["mechanism"], s["mechanism"]),
                                             "Trials refused by the data checks": s["data_errors"]}
                                            for s in summary["scenarios"]]),
              "<h2>Rejection rates after the plan's multiplicity procedure</h2>",
@@ -138,6 +147,8 @@ def _html(summary: Mapping[str, Any], title: str, facts: Sequence[tuple[str, str
              "<p>Bias is the mean estimate minus the true difference; the empirical SE is the standard deviation of "
              "the estimates across trials, the model SE the root mean square of the standard errors the analysis "
              "reported; MC SE in brackets.</p>",
+             f"<p>{escape(TRUTH_NOTE)}</p>" if any(s["mechanism"] == "not_at_random_shift"
+                                                   for s in summary["scenarios"]) else "",
              _table(_shown(summary["analyses"], ANALYSIS_COLUMNS)),
              "<h2>Coverage of the confidence intervals</h2>", _image(figures["coverage"], "Coverage"),
              "</body></html>"]
