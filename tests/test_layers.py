@@ -8,13 +8,15 @@ PACKAGE = Path(__file__).resolve().parents[1] / "src" / "trialcut"
 ORDER = ["errors", "stats", "plan", "data", "run", "report", "record", "cli"]
 # Top-level modules that belong to the command-line layer.
 CLI_MODULES = {"cli", "commands", "__init__", "__main__"}
+# Leaves beside errors.py, importable from every layer (the standard library only).
+LEAVES = {"forking"}
 
 
 def _layer(module: str) -> str | None:
     parts = module.split(".")
     if parts[0] != "trialcut":
         return None
-    if len(parts) == 1:
+    if len(parts) == 1 or parts[1] in LEAVES:
         return "errors"  # the package root only carries __version__ and a lazy fit_mmrm
     name = parts[1]
     # One module per newer subcommand (commands_*.py) and the demo's helpers sit with the cli.

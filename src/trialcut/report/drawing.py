@@ -9,23 +9,20 @@ for pictures too (the DOCX copy's PNGs), the child keeps each figure it drew and
 PNG after all the SVGs are sent (``figures.svg_and_picture``: saved, not drawn again), still
 while the engine lays out the text.
 
-Forking is used only where it is safe and cheap: a platform that has it, a parent with no
-other threads (forking a threaded process can copy a held lock) and not itself a daemonic
-worker.  Otherwise the figures are drawn here, first.
+Forking is used only where it is safe and cheap (``trialcut.forking.can_fork``, the runner's
+rule too).  Otherwise the figures are drawn here, first.
 """
 from __future__ import annotations
 
 import multiprocessing
 import os
-import signal
 import sys
-import threading
 from typing import Callable, Sequence
 
+from trialcut.forking import can_fork, leave_stopping_to_the_parent
 from trialcut.report.figures import FigureImage, png_of
 
 SCHEME = "trialcut-figure:"
-_PR_SET_PDEATHSIG = 1   # from <linux/prctl.h>
 
 
 def link(figure: FigureImage) -> str:
@@ -71,7 +68,7 @@ class FigureDrawing:
 
         def draw_all() -> None:
             receiving.close()
-            _leave_stopping_to_the_parent(parent)
+            leave_stopping_to_the_parent(parent)
             drawn = []
             try:
                 for figure in figures:
@@ -187,32 +184,7 @@ def _picture(save: Callable[[], bytes]) -> bytes | None:
         return None
 
 
-def _leave_stopping_to_the_parent(parent: int) -> None:
-    """In the figure child: die with the parent, and let only the parent answer Ctrl-C or SIGTERM.
-
-    Ctrl-C reaches the whole process group and the parent's SIGTERM handler (which raises
-    KeyboardInterrupt) is inherited by the fork, so either would print a traceback here; the
-    parent kills the child when it stops.  If the parent is killed outright (SIGKILL) it cannot,
-    so on Linux the kernel is asked to kill the child then (PR_SET_PDEATHSIG).
-    """
-    signal.signal(signal.SIGINT, signal.SIG_IGN)
-    signal.signal(signal.SIGTERM, signal.SIG_DFL)
-    if sys.platform.startswith("linux"):
-        try:
-            import ctypes
-            libc = ctypes.CDLL(None, use_errno=True)
-            libc.prctl(_PR_SET_PDEATHSIG, signal.SIGKILL, 0, 0, 0)
-        except (OSError, AttributeError):
-            pass   # no prctl: the child still ends quietly at its next send
-    if os.getppid() != parent:   # the parent died before the request took effect
-        os._exit(0)
-
-
 def _can_fork() -> bool:
     if os.environ.get("TRIALCUT_DRAW_IN_PROCESS"):
         return False
-    if "fork" not in multiprocessing.get_all_start_methods():
-        return False
-    if threading.active_count() > 1 or multiprocessing.current_process().daemon:
-        return False
-    return True
+    return can_fork()
