@@ -7,23 +7,27 @@ record layer writes what comes back.  Run metadata (ids, times) sits only under
 """
 from __future__ import annotations
 
+import importlib
+import os
 import time
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
 from trialcut.errors import FitError, ModelSpecificationError
+from trialcut.forking import can_fork
 from trialcut.run import estimand_guard
 from trialcut.run.assumption_rules import check_reasons
-from trialcut.run.context import RunContext
+from trialcut.run.context import InlineExecutor, RunContext
 from trialcut.run.methods import METHODS
 from trialcut.data import flow
 from trialcut.data.derive_responder import derive_outcome
 from trialcut.run.subgroups import subgroup_results
 from trialcut.run.tables import frame_of, plain, table
+from trialcut.run.two_processes import run_pieces
 
 RESULTS_FORMAT = 1
 
@@ -68,12 +72,68 @@ def run_plan(plan, cut, context: RunContext, *, plan_block: dict[str, Any], data
     if cut.cut_off is not None:
         results["warnings"].extend(cut.cut_off.notes)
     check_reasons(plan, cut)   # a reason no assumption rule covers stops the run before any fit
-    for endpoint in plan.endpoints:
-        with timer.time(f"endpoint {endpoint.id}"):
-            results["endpoints"].append(_run_endpoint(plan, cut, endpoint, context, timer, results["warnings"]))
+    # Each endpoint's entry, warnings and timed steps come back separately (perhaps from the second
+    # core) and join the results in plan order: the same results whoever computed them.
+    for entry, endpoint_warnings, steps in _run_endpoints(plan, cut, context, timer):
+        results["endpoints"].append(entry)
+        results["warnings"].extend(endpoint_warnings)
+        timer.steps.extend(steps)
     results["multiplicity"] = _multiplicity(plan, results, cut)
     estimand_guard.annotate(plan, results)   # roles, covariate structures, guard-rail warnings
     return results
+
+
+def _run_endpoints(plan, cut, context: RunContext, timer: StepTimer) -> list[tuple[dict, list, list]]:
+    """(entry, run warnings, timer steps) of every endpoint in plan order, on two cores when that helps."""
+    endpoints = list(plan.endpoints)
+
+    def run_one(index: int, progress) -> tuple[dict, list, list]:
+        endpoint, endpoint_warnings, first_step = endpoints[index], [], len(timer.steps)
+        with timer.time(f"endpoint {endpoint.id}"):
+            entry = _run_endpoint(plan, cut, endpoint, replace(context, progress=progress), timer,
+                                  endpoint_warnings)
+        steps = timer.steps[first_step:]
+        del timer.steps[first_step:]   # the caller adds them back in plan order
+        return entry, endpoint_warnings, steps
+
+    # Largest first, so that neither process is left with a long endpoint at the end.
+    order = sorted(range(len(endpoints)), key=lambda index: -_size(plan, endpoints[index]))
+    two_processes = _second_core_helps(plan, context)
+    if two_processes:
+        _import_what_both_need(endpoints, first=order[0])
+    return run_pieces(len(endpoints), run_one, order=order, progress=context.progress,
+                      two_processes=two_processes)
+
+
+def _size(plan, endpoint) -> int:
+    """Rough work of an endpoint: its analyses, and a refit of the primary per subgroup factor."""
+    return 1 + len(endpoint.analyses.sensitivity) + len(getattr(plan, "subgroups", ()) or ())
+
+
+# Methods whose statistics import statsmodels (about 0.5 s of CPU, the one costly import).
+_STATSMODELS_METHODS = frozenset({"ancova", "gee", "rate", "proportions"})
+
+
+def _import_what_both_need(endpoints, first: int) -> None:
+    """Import statsmodels before forking when this process (which runs endpoint ``first``) needs it
+    anyway and another endpoint does too: imported once instead of once in each process."""
+    def methods(endpoint) -> set[str]:
+        return {a.method for a in (endpoint.analyses.primary, *endpoint.analyses.sensitivity)}
+
+    others = set().union(*(methods(e) for index, e in enumerate(endpoints) if index != first))
+    if methods(endpoints[first]) & _STATSMODELS_METHODS and others & _STATSMODELS_METHODS:
+        importlib.import_module("statsmodels.api")
+
+
+def _second_core_helps(plan, context: RunContext) -> bool:
+    """Endpoints on two processes only with two endpoints, two cores, no executor already using the
+    cores (--workers, --scheduler) and a process that may fork (``trialcut.forking``)."""
+    if len(plan.endpoints) < 2 or os.environ.get("TRIALCUT_ANALYSE_IN_PROCESS"):
+        return False
+    if not isinstance(context.executor, InlineExecutor):
+        return False
+    cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
+    return cores > 1 and can_fork()
 
 
 def _analysis_population(plan, analysis) -> str:
