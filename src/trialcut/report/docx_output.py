@@ -43,12 +43,22 @@ _W_NAMESPACE = 'xmlns:w="http://schemas.openxmlformats.org/wordprocessingml/2006
 def write_docx(document, target: Path, *,
                pictures: Mapping[str, bytes] | Callable[[], Mapping[str, bytes]] | None = None,
                created: str | None = None, modified: str | None = None, kicker: str | None = None) -> Path:
-    """Write ``document`` (a report.document.Document) as a DOCX file at ``target``.
+    """Write ``document`` (a report.document.Document) as a DOCX file at ``target`` (see docx_bytes)."""
+    data = docx_bytes(document, pictures=pictures, created=created, modified=modified, kicker=kicker)
+    target = Path(target)
+    target.parent.mkdir(parents=True, exist_ok=True)
+    target.write_bytes(data)
+    return target
+
+
+def docx_bytes(document, *, pictures: Mapping[str, bytes] | Callable[[], Mapping[str, bytes]] | None = None,
+               created: str | None = None, modified: str | None = None, kicker: str | None = None) -> bytes:
+    """``document`` (a report.document.Document) as the bytes of a DOCX file.
 
     ``pictures`` maps a figure's slug to its PNG, or is a call that gives that mapping: it is
     made only after the text and tables are built, so they are built while the pictures are
-    still being drawn elsewhere (the figure child).  A figure without a picture shows its
-    title and note in words.  ``created``/``modified`` are ISO UTC times (the run's start and end).
+    still being drawn elsewhere.  A figure without a picture shows its title and note in words.
+    ``created``/``modified`` are ISO UTC times (the run's start and end).
     """
     from docx import Document as new_docx
 
@@ -65,10 +75,7 @@ def write_docx(document, target: Path, *,
     _core_properties(word, document, created, modified)
     buffer = io.BytesIO()
     word.save(buffer)
-    target = Path(target)
-    target.parent.mkdir(parents=True, exist_ok=True)
-    target.write_bytes(_fixed_zip(buffer.getvalue(), _zip_time(created)))
-    return target
+    return _fixed_zip(buffer.getvalue(), _zip_time(created))
 
 
 # --------------------------------------------------------------------------- styles and page
@@ -588,4 +595,4 @@ def table_titles(path: Path) -> list[str]:
     return titles
 
 
-__all__ = ["table_titles", "write_docx"]
+__all__ = ["docx_bytes", "table_titles", "write_docx"]

@@ -6,23 +6,42 @@ PDF's HTML names each figure by a ``trialcut-figure:<slug>`` URL, a forked child
 figures in reading order, and the engine's URL fetcher waits for the one it needs.  The child
 runs the same drawing calls as the parent would, so the bytes are the same either way.  Asked
 for pictures too (the DOCX copy's PNGs), the child keeps each figure it drew and saves it as a
-PNG after all the SVGs are sent (``figures.svg_and_picture``: saved, not drawn again), still
-while the engine lays out the text.
+PNG after all the SVGs are drawn (``figures.svg_and_picture``: saved, not drawn again).  Given
+``then`` (a call that makes files from the drawn figures and their pictures), the child makes
+those files next, still while the engine lays out the text, and the parent only writes them.
+
+The child never waits for the parent: it writes every figure, picture and file into one
+anonymous temporary file (created before the fork, with no name in any folder, so nothing is
+left behind whatever happens to either process) and sends only a short notice of where the
+bytes lie through a pipe.  (Sending the bytes themselves through the pipe, whose buffer holds
+about 64 kB, made the child wait at each figure until the engine asked for it: the pictures
+were saved only after the PDF was done, and the DOCX copy waited for them.)
 
 Forking is used only where it is safe and cheap (``trialcut.forking.can_fork``, the runner's
-rule too).  Otherwise the figures are drawn here, first.
+rule too).  Otherwise the figures are drawn here, first, and ``then`` runs here.  Whatever the
+child fails to deliver (it died, or ``then`` raised there) is done again here, so a failure
+ends exactly as it does when everything is done in one process.
 """
 from __future__ import annotations
 
+import json
 import multiprocessing
 import os
 import sys
-from typing import Callable, Sequence
+import tempfile
+from typing import Callable, Mapping, Sequence
 
 from trialcut.forking import can_fork, leave_stopping_to_the_parent
 from trialcut.report.figures import FigureImage, png_of
 
 SCHEME = "trialcut-figure:"
+
+# Makes the files of a rendering from every figure (by slug, drawn or carrying the note of its
+# failure) and a call giving their pictures; returns (relative path, bytes) pairs, or None
+# when there is nothing to write that way.
+Then = Callable[[Mapping[str, FigureImage], Callable[[], Mapping[str, bytes]]], "list[tuple[str, bytes]] | None"]
+
+Span = tuple[int, int]   # (offset, length) of some bytes in the child's store
 
 
 def link(figure: FigureImage) -> str:
@@ -33,17 +52,22 @@ class FigureDrawing:
     """SVG bytes of ``figures`` by slug, drawn in a child process when possible.
 
     ``fetch`` is a WeasyPrint URL fetcher for the figure links; ``drawn()`` gives every figure
-    drawn (a failed one carries its note, exactly as drawing it here would).
+    drawn (a failed one carries its note, exactly as drawing it here would); ``files()`` gives
+    what ``then`` made.
     """
 
-    def __init__(self, figures: Sequence[FigureImage], *, pictures: bool = False):
+    def __init__(self, figures: Sequence[FigureImage], *, pictures: bool = False, then: Then | None = None):
         self._waiting = [f for f in figures if f.job is not None]
         self._drawn: dict[str, FigureImage] = {f.slug: f for f in figures if f.job is None}
         self._jobs = {f.slug: f.job for f in self._waiting}
-        self._want_pictures = pictures
+        self._want_pictures = pictures or then is not None
+        self._then = then
         self._pictures: dict[str, bytes] = {}
         self._picture_calls: dict[str, Callable[[], bytes]] = {}    # figures drawn here, kept for their PNG
-        self._child = self._connection = None
+        self._picture_spans: dict[str, Span] = {}                   # pictures the child saved
+        self._files: list[tuple[str, Span]] | None = None           # what ``then`` made in the child
+        self._child_finished = False      # the child sent everything it will send
+        self._child = self._connection = self._store = None
         if self._waiting and _can_fork():
             self._start_child()
         else:
@@ -62,57 +86,81 @@ class FigureDrawing:
 
     def _start_child(self) -> None:
         context = multiprocessing.get_context("fork")
+        try:
+            store = tempfile.TemporaryFile()   # no name: unlinked at once (O_TMPFILE on Linux)
+        except OSError:
+            self._draw_here()
+            return
         receiving, sending = context.Pipe(duplex=False)
-        figures, pictures = self._waiting, self._want_pictures
+        figures, pictures, then, drawn_before = self._waiting, self._want_pictures, self._then, dict(self._drawn)
         parent = os.getpid()
 
-        def draw_all() -> None:
+        def work() -> None:
             receiving.close()
             leave_stopping_to_the_parent(parent)
-            drawn = []
             try:
-                for figure in figures:
-                    done, picture = figure.drawn_with_picture() if pictures else (figure.drawn(), None)
-                    sending.send(("svg", figure.slug, done.svg, done.note))
-                    drawn.append((figure, picture))
-                for figure, picture in drawn:
-                    sending.send(("png", figure.slug, _picture(picture) if picture is not None else None))
+                _child_work(_Store(store.fileno()), sending, figures, pictures, then, drawn_before)
                 sending.close()
             except (BrokenPipeError, ConnectionResetError):
                 # The parent stopped reading (it was killed, or gave up on the figures):
                 # nobody wants the rest, and a traceback would only alarm whoever reads stderr.
                 os._exit(0)
+            except Exception:  # noqa: BLE001 - e.g. no room for the store: the parent does the rest itself
+                os._exit(1)
 
-        self._child = context.Process(target=draw_all, name="trialcut-figures", daemon=True)
+        self._child = context.Process(target=work, name="trialcut-figures", daemon=True)
         # Text waiting in our buffers would be copied into the child and written twice.
         sys.stdout.flush()
         sys.stderr.flush()
-        self._child.start()
+        try:
+            self._child.start()
+        except OSError:
+            self._child = None
+            receiving.close()
+            sending.close()
+            store.close()
+            self._draw_here()
+            return
         sending.close()
-        self._connection = receiving
+        self._connection, self._store = receiving, store
 
-    def _receive_until(self, slug: str | None) -> None:
-        """Read the child's answers until ``slug`` has arrived (None: all of them)."""
+    def _receive_until(self, arrived: Callable[[], bool]) -> None:
+        """Read the child's notices until ``arrived()`` (or the child is done)."""
         by_slug = {f.slug: f for f in self._waiting}
-        while self._connection is not None and (slug is None or slug not in self._drawn):
+        while self._connection is not None and not self._child_finished and not arrived():
             try:
-                kind, got, *answer = self._connection.recv()
-            except EOFError:      # the child is done (or died: draw what is missing here)
-                self._close()
-                self._waiting = [f for f in self._waiting if f.slug not in self._drawn]
-                self._draw_here()
-                return
-            if kind == "png":
-                if answer[0] is not None:
-                    self._pictures[got] = answer[0]
-                continue
-            svg, note = answer
-            waiting = by_slug[got]
-            self._drawn[got] = FigureImage(waiting.slug, waiting.title, waiting.alt, svg, note=note or waiting.note,
-                                           number=waiting.number, anchor=waiting.anchor)
-        if self._connection is not None and not self._want_pictures and all(f.slug in self._drawn
-                                                                             for f in self._waiting):
-            self._close()
+                kind, *notice = self._connection.recv()
+            except EOFError:      # the child is done (or died: what is missing is done here)
+                self._child_finished = True
+                break
+            if kind == "svg":
+                slug, span, note = notice
+                waiting = by_slug[slug]
+                self._drawn[slug] = FigureImage(waiting.slug, waiting.title, waiting.alt,
+                                                None if span is None else self._read(span),
+                                                note=note or waiting.note, number=waiting.number,
+                                                anchor=waiting.anchor)
+            elif kind == "png":
+                slug, span = notice
+                if span is not None:
+                    self._picture_spans[slug] = span
+            elif kind == "files":
+                self._files = [(name, tuple(span)) for name, span in json.loads(self._read(notice[0]))]
+            elif kind == "done":
+                self._child_finished = True
+        if self._child_finished:
+            self._waiting = [f for f in self._waiting if f.slug not in self._drawn]
+            self._draw_here()
+
+    def _receive_all(self) -> None:
+        self._receive_until(lambda: False)
+
+    def _read(self, span: Span) -> bytes:
+        offset, length = span
+        data = os.pread(self._store.fileno(), length, offset)
+        if len(data) != length:
+            raise OSError(f"the figure child's store ended early ({len(data)} of {length} bytes)")
+        return data
 
     def _close(self, wait: float = 5.0) -> None:
         if self._connection is not None:
@@ -124,6 +172,9 @@ class FigureDrawing:
                 self._child.kill()
                 self._child.join()
             self._child = None
+        if self._store is not None:
+            self._store.close()
+            self._store = None
 
     # ------------------------------------------------------------------ answers
     def fetcher(self):
@@ -142,7 +193,7 @@ class FigureDrawing:
         return FigureFetcher()
 
     def svg(self, slug: str) -> bytes:
-        self._receive_until(slug)
+        self._receive_until(lambda: slug in self._drawn)
         figure = self._drawn.get(slug)
         if figure is None or figure.svg is None:
             raise ValueError(f"figure {slug} was not drawn")
@@ -151,12 +202,15 @@ class FigureDrawing:
     def drawn(self, figure: FigureImage) -> FigureImage:
         if figure.job is None:
             return figure
-        self._receive_until(figure.slug)
+        self._receive_until(lambda: figure.slug in self._drawn)
         return self._drawn[figure.slug]
 
     def pictures(self) -> dict[str, bytes]:
         """PNG of every figure drawn, by slug (for the DOCX copy): the child's, else drawn here."""
-        self._receive_until(None)
+        self._receive_all()
+        for slug, span in self._picture_spans.items():
+            if slug not in self._pictures and self._store is not None:
+                self._pictures[slug] = self._read(span)
         for slug, job in self._jobs.items():
             figure = self._drawn.get(slug)
             if slug not in self._pictures and figure is not None and figure.svg is not None:
@@ -167,12 +221,61 @@ class FigureDrawing:
 
     def all_drawn(self) -> bool:
         """Whether every figure came out; False means one failed and carries a note instead."""
-        self._receive_until(None)
+        self._receive_all()
         return all(f.svg is not None for f in self._drawn.values())
 
+    def files(self) -> list[tuple[str, bytes]] | None:
+        """What ``then`` made of every figure drawn and its pictures: made by the child while the
+        parent did other work, or here if the child could not (it died, or ``then`` raised there:
+        here it raises the same way)."""
+        if self._then is None:
+            raise ValueError("no work was given to do after the drawing")
+        self._receive_all()
+        if self._files is not None:
+            return [(name, self._read(span)) for name, span in self._files]
+        return self._then(dict(self._drawn), self.pictures)
+
     def close(self) -> None:
-        """Stop the child; one still drawing (the PDF failed before it needed the figures) is killed."""
-        self._close(wait=0.0 if self._connection is not None else 5.0)
+        """Stop the child; one still working (the PDF failed before it needed the figures) is killed."""
+        self._close(wait=0.0 if self._connection is not None and not self._child_finished else 5.0)
+
+
+class _Store:
+    """The child's side of the anonymous file: bytes appended, their place returned."""
+
+    def __init__(self, descriptor: int):
+        self._descriptor, self._end = descriptor, 0
+
+    def put(self, data: bytes) -> Span:
+        offset, view = self._end, memoryview(data)
+        while view:   # a regular file takes it whole, but a short write is allowed by POSIX
+            written = os.pwrite(self._descriptor, view, self._end)
+            view, self._end = view[written:], self._end + written
+        return offset, len(data)
+
+
+def _child_work(store: _Store, sending, figures: Sequence[FigureImage], pictures: bool, then: Then | None,
+                drawn_before: Mapping[str, FigureImage]) -> None:
+    """In the child: the SVGs in reading order, then the pictures, then ``then``'s files."""
+    drawn, saves = dict(drawn_before), []
+    for figure in figures:
+        done, picture = figure.drawn_with_picture() if pictures else (figure.drawn(), None)
+        drawn[figure.slug] = done
+        sending.send(("svg", figure.slug, None if done.svg is None else store.put(done.svg), done.note))
+        saves.append((figure.slug, picture))
+    saved = {}
+    for slug, picture in saves:
+        png = _picture(picture) if picture is not None else None
+        if png is not None:
+            saved[slug] = png
+        sending.send(("png", slug, None if png is None else store.put(png)))
+    files = then(drawn, lambda: dict(saved)) if then is not None else None
+    if files is not None:
+        index = [(name, store.put(data)) for name, data in files]
+        sending.send(("files", store.put(json.dumps(index).encode("utf-8"))))
+    # A ``then`` that raised never gets here: without the files the parent runs it again itself
+    # and meets the same error there.
+    sending.send(("done", ))
 
 
 def _picture(save: Callable[[], bytes]) -> bytes | None:

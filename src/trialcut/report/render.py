@@ -20,9 +20,11 @@ from pathlib import Path
 from typing import Any, Callable, Mapping
 
 from trialcut.errors import InputError, Problem, TrialcutError
-from trialcut.report.csv_output import write_table_csv
+from trialcut.report.csv_output import table_csv_text
 from trialcut.report.document import Document, build_document, map_figures
+from trialcut.report.docx_output import docx_bytes
 from trialcut.report.drawing import FigureDrawing, link as figure_link
+from trialcut.report.figures import FigureImage
 
 TEMPLATES_ENVIRONMENT_VARIABLE = "TRIALCUT_TEMPLATES"
 STYLESHEET = "report.css"
@@ -99,21 +101,28 @@ def write_outputs(document: Document, html: str, out_folder: Path, stem: str = "
     ``pdf_html`` (default ``html``) is what the PDF engine reads, with ``url_fetcher``.
     """
     out_folder.mkdir(parents=True, exist_ok=True)
-    written: dict[str, Path] = {}
-    html_path = out_folder / f"{stem}.html"
-    html_path.write_text(html, encoding="utf-8")
-    written[f"{stem}.html"] = html_path
+    written = write_files([(f"{stem}.html", html.encode("utf-8"))], out_folder)
     written[f"{stem}.pdf"] = out_folder / f"{stem}.pdf"
     if pdf_html is None:
         html_to_pdf(html, out_folder / f"{stem}.pdf", url_fetcher)
-    for table in [*document.tables, *document.csv_tables]:
-        path = write_table_csv(table, out_folder / "tables" / f"{table.slug}.csv")
-        written[f"tables/{path.name}"] = path
-    for figure in document.figures:
-        path = out_folder / "figures" / f"{figure.slug}.svg"
+    return {**written, **write_files(table_and_figure_files(document), out_folder)}
+
+
+def table_and_figure_files(document: Document) -> list[tuple[str, bytes]]:
+    """Every table as CSV and every figure as SVG: (relative path, bytes)."""
+    files = [(f"tables/{table.slug}.csv", table_csv_text(table).encode("utf-8"))
+             for table in [*document.tables, *document.csv_tables]]
+    return files + [(f"figures/{figure.slug}.svg", figure.svg) for figure in document.figures]
+
+
+def write_files(files: list[tuple[str, bytes]], folder: Path) -> dict[str, Path]:
+    """Write each (relative path, bytes) under ``folder``; keys are the relative paths, in order."""
+    written: dict[str, Path] = {}
+    for name, data in files:
+        path = folder / name
         path.parent.mkdir(parents=True, exist_ok=True)
-        path.write_bytes(figure.svg)
-        written[f"figures/{path.name}"] = path
+        path.write_bytes(data)
+        written[name] = path
     return written
 
 
@@ -154,29 +163,56 @@ def _older_objects_left_alone():
 def _render_documents(results: Mapping[str, Any], run_folder: Path,
                       audit: Mapping[str, Any] | None) -> dict[str, Path]:
     document = build_document(results, audit, draw=False)
-    drawing = FigureDrawing(document.figures, pictures=True)      # PNGs too, for the DOCX copy
+    pdf_html = render_html(map_figures(document, lambda f: replace(f, link=figure_link(f))))
+    # While the PDF engine lays out the text, the figure child draws the figures (the engine
+    # waits for each one it reaches), saves their pictures and then makes every other file:
+    # the reader's HTML, the DOCX copy, the CSV tables and the SVG files.  Only the PDF is left
+    # on this side; the files are written here once it is done.
+    drawing = FigureDrawing(document.figures, pictures=True,
+                            then=lambda drawn, pictures: _other_files(document, pdf_html, results, drawn, pictures))
     try:
-        pdf_html = render_html(map_figures(document, lambda f: replace(f, link=figure_link(f))))
         run_folder.mkdir(parents=True, exist_ok=True)
         html_to_pdf(pdf_html, run_folder / "report.pdf", drawing.fetcher())
-        # The copy's text and tables are built while the figure child may still be saving
-        # its pictures: write_docx asks for them (and waits) only at the end.
-        copy = _with_docx({}, document, results, run_folder, drawing.pictures)
-        complete = drawing.all_drawn()
-        pictures = drawing.pictures()
-        links = {f.link: f for f in document.figures}
-        map_figures(document, lambda f: replace(drawing.drawn(replace(f, link="")), link=""))
+        files = drawing.files()
+        pictures = drawing.pictures() if files is None else {}
     finally:
         drawing.close()
-    if not complete:
+    if files is None:
         document = build_document(results, audit)
         html = render_html(document)
         return _with_docx(write_outputs(document, html, run_folder), document, results, run_folder, pictures)
+    written = write_files(files, run_folder)
+    # The keys in the order of the plain way: the HTML, the PDF, tables, figures, the copy.
+    return {"report.html": written.pop("report.html"), "report.pdf": run_folder / "report.pdf", **written}
+
+
+def _other_files(document: Document, pdf_html: str, results: Mapping[str, Any], drawn: Mapping[str, FigureImage],
+                 pictures: Callable[[], Mapping[str, bytes]]) -> list[tuple[str, bytes]] | None:
+    """Every file but the PDF, once ``drawn`` holds every figure (by slug) of ``document``, whose
+    figures still wait to be drawn and are linked from ``pdf_html``; ``pictures`` gives their PNGs.
+    None if a figure could not be drawn: the report is then built again the plain way, so its
+    place shows the reason instead."""
+    if not all(figure.svg is not None for figure in drawn.values()):
+        return None
+    run = results.get("run") or {}
+    # The copy is made from the document as the PDF's HTML was (figures by link, pictures by slug).
+    copy = docx_bytes(document, pictures=pictures, created=run.get("started_utc"), modified=run.get("finished_utc"))
+    links = {f.link: f for f in document.figures}
+    map_figures(document, lambda f: _drawn_figure(f, drawn))
     # The reader's HTML is the PDF's with each figure inlined (the template's own data URI).
     html = pdf_html
     for link, figure in links.items():
-        html = html.replace(f'src="{link}"', f'src="{data_uri(drawing.svg(figure.slug), "image/svg+xml")}"')
-    return {**write_outputs(document, html, run_folder, pdf_html=pdf_html), **copy}
+        html = html.replace(f'src="{link}"', f'src="{data_uri(drawn[figure.slug].svg, "image/svg+xml")}"')
+    return [("report.html", html.encode("utf-8")), *table_and_figure_files(document), ("report.docx", copy)]
+
+
+def _drawn_figure(figure: FigureImage, drawn: Mapping[str, FigureImage]) -> FigureImage:
+    """``figure`` as drawn, without its link (the note of a figure drawn is its own)."""
+    if figure.job is None:
+        return replace(figure, link="")
+    done = drawn[figure.slug]
+    return FigureImage(figure.slug, figure.title, figure.alt, done.svg, note=done.note or figure.note,
+                       number=figure.number, anchor=figure.anchor)
 
 
 def _with_docx(written: dict[str, Path], document: Document, results: Mapping[str, Any], folder: Path,
