@@ -25,7 +25,11 @@ def utc_stamp() -> str:
 
 
 def log_line(text: str, stream: TextIO | None = None) -> None:
-    print(f"{utc_stamp()} {text}", file=stream or sys.stderr, flush=True)
+    # One write with its newline: two processes (endpoints on both cores) log to the same stream,
+    # and print's separate write of the end could land after the other's line when unbuffered.
+    stream = stream or sys.stderr
+    stream.write(f"{utc_stamp()} {text}\n")
+    stream.flush()
 
 
 def progress_reporter(console, *, stream: TextIO | None = None) -> Reporter:

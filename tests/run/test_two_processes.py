@@ -13,7 +13,11 @@ from __future__ import annotations
 import json
 import os
 import signal
+import subprocess
+import sys
+import textwrap
 import threading
+import time
 from pathlib import Path
 
 import pytest
@@ -193,3 +197,60 @@ def test_one_process_when_the_cores_are_already_used_or_there_is_one_endpoint(pl
     finally:
         stop.set()
         other.join()
+
+
+STOPPED_PARENT = textwrap.dedent('''
+    import os, signal, sys, time
+    from trialcut.run.two_processes import run_pieces
+
+    parent, marker = os.getpid(), sys.argv[1]
+
+    def interrupt(*_):    # what the command line does with SIGTERM
+        raise KeyboardInterrupt("stopped by SIGTERM")
+
+    signal.signal(signal.SIGTERM, interrupt)
+
+    def run_one(index, progress):
+        if os.getpid() != parent:
+            with open(marker, "w") as file:
+                file.write(str(os.getpid()))
+        time.sleep(120)
+        return index
+
+    try:
+        run_pieces(2, run_one, order=[0, 1], progress=None, two_processes=True)
+    except KeyboardInterrupt:
+        print("stopped")
+        sys.exit(130)
+''')
+
+
+@pytest.mark.parametrize("how", ["ctrl-c", "sigterm", "parent killed"])
+def test_stopping_the_parent_stops_the_child_quietly(tmp_path, how):
+    # Ctrl-C reaches the whole process group; SIGTERM and SIGKILL only the parent.  Either way the
+    # child must not outlive the parent nor print a traceback; `communicate` returns only once
+    # every holder of the stderr pipe (the child too) is gone.
+    marker = tmp_path / "child_started"
+    parent = subprocess.Popen([sys.executable, "-c", STOPPED_PARENT, str(marker)], stdout=subprocess.PIPE,
+                              stderr=subprocess.PIPE, start_new_session=True)
+    waited = 0.0
+    while not (marker.exists() and marker.read_text()) and waited < 60:
+        time.sleep(0.05)
+        waited += 0.05
+    assert marker.exists(), "the child never started"
+    if how == "ctrl-c":
+        os.killpg(parent.pid, signal.SIGINT)
+    else:
+        os.kill(parent.pid, signal.SIGTERM if how == "sigterm" else signal.SIGKILL)
+    output, error = parent.communicate(timeout=60)
+    if how == "parent killed":
+        assert parent.returncode == -signal.SIGKILL
+    else:
+        assert (parent.returncode, output.decode().strip()) == (130, "stopped"), error.decode()
+    assert b"Traceback" not in error, error.decode()
+
+
+def test_the_methods_said_to_need_statsmodels_are_methods():
+    from trialcut.run.methods import METHODS
+
+    assert runner._STATSMODELS_METHODS <= set(METHODS)
