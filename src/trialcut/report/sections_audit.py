@@ -218,8 +218,9 @@ def software(section: Section, results: Mapping[str, Any], environment: Mapping[
                     "threads": "Threads", "used_by": "Loaded with"},
             kinds={"library": "text", "implementation": "text", "version": "text", "threads": "text",
                    "used_by": "text"},
-            note="The number of threads can change the last digits of a result; the analyses that fit "
-                 "repeated-measures models limit the linear-algebra library to one thread while they fit."))
+            note="The number of threads can change the last digits of a result; every analysis limits the "
+                 "linear-algebra library to one thread while it computes (runs recorded by earlier versions "
+                 "of trialcut did so only while fitting repeated-measures models)."))
 
 
 def _pinned_text(pinned: Any) -> str | None:

@@ -5,7 +5,9 @@ list`` in input order — and may report progress with ``map(..., progress=callb
 (callback(done, total)), which they announce with ``reports_progress = True``.  The
 function and items must pickle (module-level functions, plain data).  Executors that
 start workers start them on first use and stop them in ``close()`` (or on leaving a
-``with`` block); results never depend on the executor, only on the work items.
+``with`` block); results never depend on the executor, only on the work items.  Every task
+runs with one BLAS thread in its worker, as every analysis does in this process
+(trialcut.stats.blas_threads): the thread count would otherwise move the last bits of a result.
 """
 from __future__ import annotations
 
@@ -15,6 +17,7 @@ from typing import Any, Callable, Sequence
 
 from trialcut.errors import InputError, Problem
 from trialcut.run.context import InlineExecutor
+from trialcut.stats.blas_threads import on_one_blas_thread
 
 __all__ = ["InlineExecutor", "ProcessPoolExecutor", "DaskExecutor", "make_executor"]
 
@@ -57,7 +60,8 @@ class ProcessPoolExecutor(_Closing):
 
     def map(self, function: Callable[[Any], Any], items: Sequence[Any], progress: Progress | None = None) -> list:
         pool = self._ensure()
-        futures = [pool.submit(function, item) for item in items]
+        task = on_one_blas_thread(function)
+        futures = [pool.submit(task, item) for item in items]
         return _collect(futures, concurrent.futures.as_completed, progress)
 
     def close(self) -> None:
@@ -103,7 +107,7 @@ class DaskExecutor(_Closing):
 
     def map(self, function: Callable[[Any], Any], items: Sequence[Any], progress: Progress | None = None) -> list:
         client = self._ensure()
-        futures = client.map(function, list(items), pure=False)
+        futures = client.map(on_one_blas_thread(function), list(items), pure=False)
         from dask.distributed import as_completed
 
         return _collect(futures, as_completed, progress)

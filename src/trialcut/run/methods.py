@@ -18,6 +18,7 @@ from trialcut.errors import FitError, Problem
 from trialcut.run import methods_responder
 from trialcut.run.context import RunContext
 from trialcut.run.tables import plain, table
+from trialcut.stats.blas_threads import one_blas_thread
 
 
 class AnalysisMethod(Protocol):
@@ -131,12 +132,18 @@ def _failing_on_numbers(method: AnalysisMethod) -> AnalysisMethod:
     """Arithmetic that breaks on the data (a singular or indefinite matrix, an overflow) is a
     failed analysis with its reason, recorded while the other analyses go on; it is never an
     internal fault, because it comes from the data cut (an outcome or covariate that does not
-    vary, very few participants per arm, values of absurd size)."""
+    vary, very few participants per arm, values of absurd size).
+
+    Every method runs with one BLAS thread (trialcut.stats.blas_threads), here where the runner,
+    the subgroups and each simulated trial call it: its numbers then never depend on the
+    machine's cores or OPENBLAS_NUM_THREADS.  Work a method sends to other processes gets the
+    same limit from the executor (trialcut.run.executor)."""
 
     @functools.wraps(method)
     def run(data, analysis, context: RunContext) -> dict[str, Any]:
         try:
-            return method(data, analysis, context)
+            with one_blas_thread():
+                return method(data, analysis, context)
         except (np.linalg.LinAlgError, FloatingPointError, OverflowError, ZeroDivisionError) as error:
             reason = str(error) or type(error).__name__
             raise FitError(f"the analysis could not be computed on this data cut ({reason})", [Problem(

@@ -27,6 +27,7 @@ import numpy as np
 
 from trialcut.errors import DataError, FitError, ModelSpecificationError
 from trialcut.run.context import RunContext
+from trialcut.stats.blas_threads import one_blas_thread
 
 FORMAT = 1
 DEFAULT_BATCH = 10
@@ -59,9 +60,12 @@ def selected_analyses(plan, scenario) -> list[Any]:
 
 
 def run_batch(batch: TrialBatch) -> list[dict[str, Any]]:
-    """Module-level (it must pickle for a process pool or Dask): every trial of one batch."""
-    return [run_trial(batch.plan, batch.scenario, trial_seed(batch.root_seed, batch.scenario_index, index), index)
-            for index in range(batch.start, batch.stop)]
+    """Module-level (it must pickle for a process pool or Dask): every trial of one batch, drawn
+    and analysed with one BLAS thread like a run's analyses (trialcut.stats.blas_threads), so its
+    numbers do not depend on the machine that ran the batch."""
+    with one_blas_thread():
+        return [run_trial(batch.plan, batch.scenario, trial_seed(batch.root_seed, batch.scenario_index, index), index)
+                for index in range(batch.start, batch.stop)]
 
 
 def run_trial(plan, scenario, seed: np.random.SeedSequence, index: int) -> dict[str, Any]:

@@ -25,8 +25,6 @@ Conventions (also stated in shared/DESIGN.md):
 """
 from __future__ import annotations
 
-import contextlib
-import functools
 import math
 import warnings
 from dataclasses import dataclass, fields
@@ -37,16 +35,12 @@ import pandas as pd
 from scipy import stats
 
 from trialcut.errors import ConvergenceError, FitError, ModelSpecificationError, Problem
+from trialcut.stats.blas_threads import one_blas_thread
 from trialcut.stats.covariance import STRUCTURES, make_structure
 from trialcut.stats.mmrm_design import Design, build_design
 from trialcut.stats.mmrm_inference import Inference
 from trialcut.stats.mmrm_likelihood import Likelihood, Maximum, maximise
 from trialcut.stats.names import DF_METHODS, ESTIMATION_METHODS
-
-try:    # optional: keeps BLAS to one thread, see _one_blas_thread
-    from threadpoolctl import ThreadpoolController
-except ImportError:          # pragma: no cover - the fit still works, only slower on a busy machine
-    ThreadpoolController = None
 
 FIXED_EFFECT_COLUMNS = ("term", "estimate", "se", "df", "t", "p")
 MEAN_COLUMNS = ("arm", "visit", "estimate", "se", "df", "lower", "upper")
@@ -265,7 +259,9 @@ def fit_mmrm(data: pd.DataFrame, *, outcome: str = "CHG", subject: str = "USUBJI
                 "second_derivatives": second_derivatives, "robust": robust,
                 "visit_times": None if visit_times is None else dict(visit_times),
                 "max_iterations": max_iterations, "tolerance": tolerance}
-    with warnings.catch_warnings(record=True) as caught, _one_blas_thread():
+    # One BLAS thread (trialcut.stats.blas_threads): the same numbers on any machine, and a
+    # multi-threaded BLAS spends more time waking its threads than on the fit's small products.
+    with warnings.catch_warnings(record=True) as caught, one_blas_thread():
         warnings.simplefilter("always")
         design = build_design(data, outcome=outcome, subject=subject, visit=visit, arm=arm, reference=reference,
                               visits=visits, covariates=covariates, covariates_by_visit=covariates_by_visit,
@@ -280,19 +276,6 @@ def fit_mmrm(data: pd.DataFrame, *, outcome: str = "CHG", subject: str = "USUBJI
 
 def _bias_corrected(second_derivatives) -> bool:
     return isinstance(second_derivatives, str) and second_derivatives == BIAS_CORRECTED
-
-
-def _one_blas_thread():
-    """The fit is many small matrix products; a multi-threaded BLAS spends more time waking its
-    threads than computing (up to 30 times slower on a machine whose cores are busy).  The BLAS
-    libraries are looked up once per process: a lookup per fit cost about 2 ms, more than a
-    simulated trial's whole likelihood maximisation."""
-    return _blas_controller().limit(limits=1, user_api="blas") if ThreadpoolController else contextlib.nullcontext()
-
-
-@functools.lru_cache(maxsize=1)
-def _blas_controller():
-    return ThreadpoolController()
 
 
 def _check_arguments(covariance, method, df, second_derivatives, robust, max_iterations,
