@@ -140,10 +140,8 @@ class FigureDrawing:
                                                 None if span is None else self._read(span),
                                                 note=note or waiting.note, number=waiting.number,
                                                 anchor=waiting.anchor)
-            elif kind == "png":
-                slug, span = notice
-                if span is not None:
-                    self._picture_spans[slug] = span
+            elif kind == "pictures":
+                self._picture_spans = {slug: tuple(span) for slug, span in json.loads(self._read(notice[0])).items()}
             elif kind == "files":
                 self._files = [(name, tuple(span)) for name, span in json.loads(self._read(notice[0]))]
             elif kind == "done":
@@ -157,10 +155,14 @@ class FigureDrawing:
 
     def _read(self, span: Span) -> bytes:
         offset, length = span
-        data = os.pread(self._store.fileno(), length, offset)
-        if len(data) != length:
-            raise OSError(f"the figure child's store ended early ({len(data)} of {length} bytes)")
-        return data
+        parts, got = [], 0
+        while got < length:   # a regular file gives it whole, but a short read is allowed by POSIX
+            part = os.pread(self._store.fileno(), length - got, offset + got)
+            if not part:
+                raise OSError(f"the figure child's store ended early ({got} of {length} bytes)")
+            parts.append(part)
+            got += len(part)
+        return b"".join(parts)
 
     def _close(self, wait: float = 5.0) -> None:
         if self._connection is not None:
@@ -263,12 +265,14 @@ def _child_work(store: _Store, sending, figures: Sequence[FigureImage], pictures
         drawn[figure.slug] = done
         sending.send(("svg", figure.slug, None if done.svg is None else store.put(done.svg), done.note))
         saves.append((figure.slug, picture))
-    saved = {}
+    saved, spans = {}, {}
     for slug, picture in saves:
         png = _picture(picture) if picture is not None else None
         if png is not None:
-            saved[slug] = png
-        sending.send(("png", slug, None if png is None else store.put(png)))
+            saved[slug], spans[slug] = png, store.put(png)
+    # One notice for all the pictures, so the notices waiting in the pipe stay few and short
+    # however many figures there are (the parent reads them only at the end).
+    sending.send(("pictures", store.put(json.dumps(spans).encode("utf-8"))))
     files = then(drawn, lambda: dict(saved)) if then is not None else None
     if files is not None:
         index = [(name, store.put(data)) for name, data in files]
