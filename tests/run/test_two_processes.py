@@ -254,3 +254,20 @@ def test_the_methods_said_to_need_statsmodels_are_methods():
     from trialcut.run.methods import METHODS
 
     assert runner._STATSMODELS_METHODS <= set(METHODS)
+
+
+def test_an_answer_that_does_not_pickle_is_computed_again_here(tmp_path):
+    from trialcut.run.two_processes import run_pieces
+
+    parent = os.getpid()
+
+    def run_one(index, progress):
+        time.sleep(0.05)   # long enough for the child to take a piece
+        if os.getpid() == parent:
+            return index, "here"
+        (tmp_path / f"child_took_{index}").touch()
+        return index, lambda: "a function does not pickle"
+
+    answers = run_pieces(4, run_one, order=[0, 1, 2, 3], progress=None, two_processes=True)
+    assert answers == [(index, "here") for index in range(4)]
+    assert list(tmp_path.glob("child_took_*")), "the child took no piece"

@@ -140,6 +140,8 @@ class _Shared:
                     kind, *message = connection.recv()
                 except (EOFError, OSError):
                     return
+                except Exception:   # noqa: BLE001 - an answer that would not unpickle here (memory):
+                    return          # the child is stopped and its pieces are run here instead
                 if kind == "next":
                     with self.lock:
                         index = self.state.waiting.pop(0) if self.state.waiting else None
