@@ -47,6 +47,8 @@ def command_reproduce(args) -> int:
     console.print(f"reproduction: {outcome.verdict}: {outcome.summary}", markup=False)
     for package in outcome.packages:
         console.print(f"  package {package['package']}: {package['original']} then, {package['now']} now", markup=False)
+    for note in outcome.notes:
+        console.print(f"  set aside: {note}", markup=False)
     if args.to is not None:
         args.to.write_text(json.dumps(outcome.to_dict(), indent=1, ensure_ascii=False, default=str) + "\n",
                            encoding="utf-8")
@@ -89,7 +91,8 @@ def _bundle_sources(args, scratch: Path) -> tuple[Path, Path]:
 def reproduce_run(run_folder: Path, data: Path, scratch: Path, tolerance: float):
     from trialcut.commands import execute_run
     from trialcut.record.pinned import installed_distributions
-    from trialcut.record.reproduce import ReproductionOutcome, compare_results, package_differences
+    from trialcut.record.reproduce import (ReproductionOutcome, compare_results, package_differences,
+                                           set_aside_by_format)
 
     results = json.loads((run_folder / "results.json").read_text(encoding="utf-8"))
     audit = json.loads((run_folder / "audit.json").read_text(encoding="utf-8"))
@@ -104,6 +107,7 @@ def reproduce_run(run_folder: Path, data: Path, scratch: Path, tolerance: float)
         cut_off=date.fromisoformat(cut_off["date"]) if cut_off.get("source") == "given" else None,
         looks_before=run.get("earlier_looks") or []).folder   # the fractions the run used, not the scratch registry's
     again = json.loads((folder / "results.json").read_text(encoding="utf-8"))
+    results, notes = set_aside_by_format(results, again)
     numbers, exact, within, differences = compare_results(results, again, tolerance)
     environment = audit.get("environment") or {}
     then = environment.get("distributions") or environment.get("packages") or {}
@@ -112,4 +116,4 @@ def reproduce_run(run_folder: Path, data: Path, scratch: Path, tolerance: float)
         now = {name: version for name, version in now.items() if name in then}
     return ReproductionOutcome(tolerance=tolerance, numbers=numbers, exact=exact, within=within,
                                differences=tuple(differences),
-                               packages=tuple(package_differences(then, now)))
+                               packages=tuple(package_differences(then, now)), notes=tuple(notes))

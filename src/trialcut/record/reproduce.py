@@ -7,6 +7,10 @@ Two numbers agree *exactly* when they are equal, *within tolerance* when
 ``|a − b| ≤ tolerance · max(1, |a|, |b|)`` (default tolerance 1e-9: the last few of the ~16
 digits a double carries may change with the linear-algebra library or thread count), and
 *differ* otherwise.
+
+A run recorded in an older results format is compared in the current one: what the current format
+no longer keeps is set aside first, with a note (``set_aside_by_format``), never counted as a
+difference.
 """
 from __future__ import annotations
 
@@ -38,6 +42,7 @@ class ReproductionOutcome:
     within: int
     differences: tuple[Difference, ...] = ()
     packages: tuple[dict[str, Any], ...] = field(default=())
+    notes: tuple[str, ...] = ()      # what was set aside before comparing, and why
 
     @property
     def verdict(self) -> str:
@@ -55,7 +60,7 @@ class ReproductionOutcome:
         return {"verdict": self.verdict, "tolerance": self.tolerance, "numbers": self.numbers,
                 "exact": self.exact, "within_tolerance": self.within,
                 "differences": [item.to_dict() for item in self.differences],
-                "packages": list(self.packages)}
+                "packages": list(self.packages), "notes": list(self.notes)}
 
 
 def compare_results(original: dict[str, Any], again: dict[str, Any],
@@ -66,6 +71,35 @@ def compare_results(original: dict[str, Any], again: dict[str, Any],
         for difference in _walk(original.get(section), again.get(section), section, tolerance, counts):
             differences.append(difference)
     return counts["numbers"], counts[EXACT], counts[WITHIN], differences
+
+
+def set_aside_by_format(original: dict[str, Any], again: dict[str, Any]) -> tuple[dict[str, Any], list[str]]:
+    """``original`` without what its older results format kept and ``again``'s no longer does,
+    and a sentence for each thing set aside.  Format 1 kept each repeated-measures fit's residuals
+    twice; format 2 keeps them once, under ``diagnostics.residuals``, which is still compared."""
+    if _results_format(original) >= 2 or _results_format(again) < 2:
+        return original, []
+    count, endpoints = 0, []
+    for endpoint in original.get("endpoints") or []:
+        analyses = []
+        for analysis in endpoint.get("analyses") or []:
+            fit = analysis.get("fit")
+            if isinstance(fit, dict) and "residual_columns" in fit:
+                count += 1
+                analysis = {**analysis, "fit": {k: v for k, v in fit.items() if k != "residual_columns"}}
+            analyses.append(analysis)
+        endpoints.append({**endpoint, "analyses": analyses} if "analyses" in endpoint else endpoint)
+    if not count:
+        return original, []
+    note = (f"the original run was recorded in results format {_results_format(original)}, which also kept the "
+            f"residuals of {count} repeated-measures fit(s) under fit.residual_columns; the current format keeps "
+            f"them once, under diagnostics.residuals, where they were compared")
+    return {**original, "endpoints": endpoints}, [note]
+
+
+def _results_format(results: dict[str, Any]) -> int:
+    value = results.get("format", 1)
+    return value if isinstance(value, int) and not isinstance(value, bool) else 1
 
 
 def _is_number(value: Any) -> bool:

@@ -53,12 +53,10 @@ def run_mmrm(data, analysis, context: RunContext) -> dict[str, Any]:
         "fixed_effects": table(fit.fixed_effects, "Estimated coefficients of the model"),
     }
     tables.update(_covariance_tables(fit))
-    fit_record = plain(fit.to_dict())
-    residuals = fit.residuals()
     return {
         "tables": tables,
-        "fit": _fit_summary(fit_record),
-        "diagnostics": {"residuals": table(residuals, "Residuals and fitted values")},
+        "fit": plain(_fit_summary(fit.to_dict())),
+        "diagnostics": {"residuals": table(fit.residuals(), "Residuals and fitted values")},
     }
 
 
@@ -85,8 +83,11 @@ def _covariance_tables(fit) -> dict[str, Any]:
 
 
 def _fit_summary(fit_record: dict[str, Any]) -> dict[str, Any]:
-    """Keep the fit's scalar facts; its tables are already under ``tables``."""
-    return {k: v for k, v in fit_record.items() if not (isinstance(v, dict) and "columns" in v and "data" in v)}
+    """Keep the fit's scalar facts; its tables are already under ``tables`` and its residuals under
+    ``diagnostics`` (results format 1 kept them here too, the same numbers by column: a fifth of
+    results.json)."""
+    return {k: v for k, v in fit_record.items()
+            if k != "residual_columns" and not (isinstance(v, dict) and "columns" in v and "data" in v)}
 
 
 def run_ancova(data, analysis, context: RunContext) -> dict[str, Any]:

@@ -29,7 +29,9 @@ from trialcut.run.subgroups import subgroup_results
 from trialcut.run.tables import frame_of, plain, table
 from trialcut.run.two_processes import run_pieces
 
-RESULTS_FORMAT = 1
+# 2: a repeated-measures fit's residuals are kept once, under diagnostics.residuals (format 1 also
+# kept them under fit.residual_columns); record/reproduce.py sets the old copy aside.
+RESULTS_FORMAT = 2
 
 
 @dataclass
