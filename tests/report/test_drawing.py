@@ -208,3 +208,41 @@ def test_a_failed_rendering_ends_the_child_and_leaves_what_drawing_here_leaves(r
     assert left["child"] == left["here"]
     assert not any(name.startswith(("report.html", "report.docx", "tables", "figures")) for name in left["child"])
     assert list(scratch.iterdir()) == []
+
+
+KILLED_PARENT = """
+import os, signal, time
+from trialcut.report.drawing import FigureDrawing
+from trialcut.report.figures import FigureImage
+
+parent = os.getpid()
+
+def draw_after_the_parent_is_gone():
+    while os.getppid() == parent:
+        time.sleep(0.01)
+    return b"<svg xmlns='http://www.w3.org/2000/svg'/>"
+
+figures = [FigureImage("quick", "Quick", "", None, job=lambda: b"<svg xmlns='http://www.w3.org/2000/svg'/>"),
+           FigureImage("slow", "Slow", "", None, job=draw_after_the_parent_is_gone)]
+drawing = FigureDrawing(figures, pictures=True, then=lambda drawn, pictures: [])
+drawing.svg("quick")
+os.kill(parent, signal.SIGKILL)
+"""
+
+
+def test_a_killed_parent_leaves_no_temporary_file_and_no_child(scratch):
+    # SIGKILL gives the parent no chance to tidy up: the child's store has no name to leave
+    # behind, and the child is killed with the parent (PR_SET_PDEATHSIG; `communicate` returns
+    # only once every holder of the stderr pipe, the child too, is gone).
+    import signal
+    import subprocess
+    import sys
+
+    environment = {k: v for k, v in os.environ.items() if k != "TRIALCUT_DRAW_IN_PROCESS"}
+    environment["TMPDIR"] = str(scratch)
+    child = subprocess.Popen([sys.executable, "-c", KILLED_PARENT], stdout=subprocess.PIPE,
+                             stderr=subprocess.PIPE, env=environment)
+    _, error = child.communicate(timeout=120)
+    assert child.returncode == -signal.SIGKILL, error.decode()
+    assert b"Traceback" not in error, error.decode()
+    assert list(scratch.iterdir()) == []
