@@ -71,6 +71,9 @@ class _Shared:
             self._work_here(first)
             self._wait_for_child(child)
         finally:
+            with self.lock:
+                done = self.state.child_ended   # it only has to exit; else it is stopped (Ctrl-C, a failure)
+            child.join(timeout=5.0 if done else 0.0)
             if child.is_alive():
                 child.kill()
             child.join()
