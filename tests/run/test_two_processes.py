@@ -80,11 +80,27 @@ def serial(plan_and_cut):
         return _run(plan, cut)
 
 
-def _marking_process(patch, also=None):
-    """Record in each endpoint entry which process computed it (and run ``also`` first)."""
+def _until_exists(marker: Path, seconds: float = 60.0) -> None:
+    waited = 0.0
+    while not marker.exists() and waited < seconds:
+        time.sleep(0.01)
+        waited += 0.01
+
+
+def _marking_process(patch, marker: Path | None = None, also=None):
+    """Record in each endpoint entry which process computed it (and run ``also`` first).
+
+    With a ``marker`` the child touches it on taking an endpoint and this process waits for it
+    before its own: whatever the scheduling, the child then has an endpoint (no timing in tests).
+    """
     original = runner._run_endpoint
+    parent = os.getpid()
 
     def run_endpoint(plan, cut, endpoint, context, timer, run_warnings):
+        if marker is not None and os.getpid() != parent:
+            marker.touch()
+        elif marker is not None:
+            _until_exists(marker)
         if also is not None:
             also(endpoint, context)
         return original(plan, cut, endpoint, context, timer, run_warnings) | {"process": os.getpid()}
@@ -98,9 +114,9 @@ def _without_process(results):
     return results, processes
 
 
-def test_two_processes_give_the_results_of_one(plan_and_cut, serial, monkeypatch):
+def test_two_processes_give_the_results_of_one(plan_and_cut, serial, monkeypatch, tmp_path):
     plan, cut = plan_and_cut
-    _marking_process(monkeypatch)
+    _marking_process(monkeypatch, tmp_path / "child_took_one")
     results, steps = _run(plan, cut)
     results, processes = _without_process(results)
     assert processes - {os.getpid()}, "no endpoint ran in the second process"
@@ -114,9 +130,10 @@ def test_two_processes_give_the_results_of_one(plan_and_cut, serial, monkeypatch
     assert threading.active_count() == 1, "the reading thread is gone: a later fork stays safe"
 
 
-def test_the_childs_progress_reaches_the_parents_reporter(plan_and_cut, monkeypatch):
+def test_the_childs_progress_reaches_the_parents_reporter(plan_and_cut, monkeypatch, tmp_path):
     plan, cut = plan_and_cut
-    _marking_process(monkeypatch, also=lambda endpoint, context: context.progress(f"endpoint {endpoint.id}", 1, 1))
+    _marking_process(monkeypatch, tmp_path / "child_took_one",
+                     also=lambda endpoint, context: context.progress(f"endpoint {endpoint.id}", 1, 1))
     calls = []
     results, _ = _run(plan, cut, progress=lambda label, done, total: calls.append((label, done, total)))
     _, processes = _without_process(results)
@@ -141,7 +158,7 @@ def test_an_endpoint_that_fails_everywhere_raises_as_in_one_process(plan_and_cut
         _run(plan, cut)
 
 
-def test_an_endpoint_that_fails_only_in_the_child_is_run_again_here(plan_and_cut, serial, monkeypatch):
+def test_an_endpoint_that_fails_only_in_the_child_is_run_again_here(plan_and_cut, serial, monkeypatch, tmp_path):
     plan, cut = plan_and_cut
     parent = os.getpid()
 
@@ -149,15 +166,16 @@ def test_an_endpoint_that_fails_only_in_the_child_is_run_again_here(plan_and_cut
         if os.getpid() != parent:
             raise MemoryError("the child ran out of memory")
 
-    _marking_process(monkeypatch, also=fail_in_child)
+    _marking_process(monkeypatch, tmp_path / "child_took_one", also=fail_in_child)
     results, steps = _run(plan, cut)
+    assert (tmp_path / "child_took_one").exists()
     results, processes = _without_process(results)
     assert processes == {parent}
     assert json.dumps(results, sort_keys=True) == json.dumps(serial[0], sort_keys=True)
     assert steps == serial[1]
 
 
-def test_a_killed_child_does_not_hang_the_parent(plan_and_cut, serial, monkeypatch):
+def test_a_killed_child_does_not_hang_the_parent(plan_and_cut, serial, monkeypatch, tmp_path):
     plan, cut = plan_and_cut
     parent = os.getpid()
 
@@ -165,7 +183,7 @@ def test_a_killed_child_does_not_hang_the_parent(plan_and_cut, serial, monkeypat
         if os.getpid() != parent:
             os.kill(os.getpid(), signal.SIGKILL)
 
-    _marking_process(monkeypatch, also=die_in_child)
+    _marking_process(monkeypatch, tmp_path / "child_took_one", also=die_in_child)
     previous = signal.signal(signal.SIGALRM, lambda *_: pytest.fail("the parent hung after its child was killed"))
     signal.alarm(120)
     try:
@@ -261,13 +279,15 @@ def test_an_answer_that_does_not_pickle_is_computed_again_here(tmp_path):
 
     parent = os.getpid()
 
+    marker = tmp_path / "child_took_one"
+
     def run_one(index, progress):
-        time.sleep(0.05)   # long enough for the child to take a piece
         if os.getpid() == parent:
+            _until_exists(marker)   # the child has a piece before this process takes a second one
             return index, "here"
-        (tmp_path / f"child_took_{index}").touch()
+        marker.touch()
         return index, lambda: "a function does not pickle"
 
     answers = run_pieces(4, run_one, order=[0, 1, 2, 3], progress=None, two_processes=True)
     assert answers == [(index, "here") for index in range(4)]
-    assert list(tmp_path.glob("child_took_*")), "the child took no piece"
+    assert marker.exists(), "the child took no piece"
