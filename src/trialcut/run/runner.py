@@ -112,8 +112,12 @@ def _size(plan, endpoint) -> int:
     return 1 + len(endpoint.analyses.sensitivity) + len(getattr(plan, "subgroups", ()) or ())
 
 
-# Methods whose statistics import statsmodels (about 0.5 s of CPU, the one costly import).
+# Methods whose statistics import statsmodels (the costliest import of an analysis), and the
+# statsmodels modules they import: its models, not statsmodels.api (0.09 s against 0.25 s).
 _STATSMODELS_METHODS = frozenset({"ancova", "gee", "rate", "proportions"})
+_STATSMODELS_MODULES = ("statsmodels.regression.linear_model", "statsmodels.genmod.generalized_linear_model",
+                        "statsmodels.genmod.generalized_estimating_equations",
+                        "statsmodels.discrete.discrete_model")
 
 
 def _import_what_both_need(endpoints, first: int) -> None:
@@ -124,7 +128,8 @@ def _import_what_both_need(endpoints, first: int) -> None:
 
     others = set().union(*(methods(e) for index, e in enumerate(endpoints) if index != first))
     if methods(endpoints[first]) & _STATSMODELS_METHODS and others & _STATSMODELS_METHODS:
-        importlib.import_module("statsmodels.api")
+        for module in _STATSMODELS_MODULES:
+            importlib.import_module(module)
 
 
 def _second_core_helps(plan, context: RunContext) -> bool:

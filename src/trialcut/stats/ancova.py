@@ -25,7 +25,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-import statsmodels.api as sm
+from statsmodels.regression.linear_model import OLS
 from scipy import stats as scipy_stats
 
 from trialcut.errors import FitError, ModelSpecificationError, Problem
@@ -233,7 +233,7 @@ def _fit_visit(rows, outcome, arm, arms, covariates, visit_level) -> _VisitFit:
     design = np.column_stack([np.ones(len(rows)), indicators, covariate_block])
     outcomes = rows[outcome].to_numpy(float)
     _qr_solve(design, outcomes)  # refuses a rank-deficient design, which OLS's pinv would hide
-    result = sm.OLS(outcomes, design).fit()
+    result = OLS(outcomes, design).fit()
     return _VisitFit(result, covariate_block.mean(axis=0), len(rows))
 
 

@@ -34,7 +34,8 @@ from typing import Any, Sequence
 
 import numpy as np
 import pandas as pd
-import statsmodels.api as sm
+from statsmodels.genmod import families
+from statsmodels.genmod.generalized_estimating_equations import GEE
 from scipy import stats
 from statsmodels.genmod import cov_struct as working
 from statsmodels.tools.sm_exceptions import ConvergenceWarning
@@ -256,10 +257,10 @@ class _Design:
 
 def _statsmodels_family(family: str, dispersion: float | None):
     if family == "binomial":
-        return sm.families.Binomial()
+        return families.Binomial()
     if family == "poisson":
-        return sm.families.Poisson()
-    return sm.families.NegativeBinomial(alpha=dispersion)
+        return families.Poisson()
+    return families.NegativeBinomial(alpha=dispersion)
 
 
 def _working(correlation: str):
@@ -291,7 +292,7 @@ def _solve(frame, design, outcome, subject, visit, visits, family, correlation, 
 
 
 def _gee(y, matrix, groups, time, family, dispersion, correlation, offset_values, cov_type, start):
-    model = sm.GEE(y, matrix, groups=groups, time=time, family=_statsmodels_family(family, dispersion),
+    model = GEE(y, matrix, groups=groups, time=time, family=_statsmodels_family(family, dispersion),
                    cov_struct=_working(correlation), offset=offset_values)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")

@@ -34,7 +34,8 @@ from typing import Any, Sequence
 
 import numpy as np
 import pandas as pd
-import statsmodels.api as sm
+from statsmodels.genmod import families
+from statsmodels.genmod.generalized_linear_model import GLM
 from statsmodels.stats.contingency_tables import StratifiedTable
 from statsmodels.stats.proportion import proportion_confint
 
@@ -217,7 +218,7 @@ def standardised_difference(y: np.ndarray, design: np.ndarray) -> tuple[float, f
     """g-computation risk difference (column 1 of ``design`` is the arm) and its influence-function SE."""
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        result = sm.GLM(y, design, family=sm.families.Binomial()).fit()
+        result = GLM(y, design, family=families.Binomial()).fit()
     beta = np.asarray(result.params)
     as_treated, as_reference = design.copy(), design.copy()
     as_treated[:, 1], as_reference[:, 1] = 1.0, 0.0

@@ -24,7 +24,9 @@ from typing import Any, Sequence
 
 import numpy as np
 import pandas as pd
-import statsmodels.api as sm
+from statsmodels.discrete.discrete_model import NegativeBinomial
+from statsmodels.genmod import families
+from statsmodels.genmod.generalized_linear_model import GLM
 from statsmodels.tools.sm_exceptions import ConvergenceWarning
 
 from trialcut.errors import FitError, Problem
@@ -131,7 +133,7 @@ def _fit(y, design, log_exposure, family):
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         try:
-            result = sm.GLM(y, design, family=sm.families.Poisson(), offset=log_exposure).fit(cov_type="HC0")
+            result = GLM(y, design, family=families.Poisson(), offset=log_exposure).fit(cov_type="HC0")
         except (ValueError, np.linalg.LinAlgError) as error:
             raise FitError(f"fit_rate: statsmodels could not fit the Poisson model ({error})",
                            [Problem("rate.not_solved", str(error), hint="look for an arm without any events")]
@@ -143,7 +145,7 @@ def _fit(y, design, log_exposure, family):
 def _negative_binomial(y, design, log_exposure):
     """statsmodels' NB2 fit, or None when the dispersion sits at its boundary (no overdispersion)."""
     try:
-        result = sm.NegativeBinomial(y, design, loglike_method="nb2", offset=log_exposure).fit(disp=0, maxiter=200)
+        result = NegativeBinomial(y, design, loglike_method="nb2", offset=log_exposure).fit(disp=0, maxiter=200)
         covariance = np.asarray(result.cov_params())
     except (ValueError, np.linalg.LinAlgError):
         return None
