@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 import contextlib
+import gc
 import importlib
 import os
 import signal
@@ -18,7 +19,7 @@ import time
 import traceback
 from datetime import date
 from pathlib import Path
-from typing import Sequence
+from typing import NoReturn, Sequence
 
 from trialcut import __version__
 from trialcut.commands_bundle import add_bundle_parser
@@ -217,4 +218,16 @@ def _terminate_as_interrupt():
 
 
 def entry_point() -> None:
-    sys.exit(main())
+    leave(main())
+
+
+def leave(status: int) -> NoReturn:
+    """End the process with ``status``, leaving its objects to the operating system.
+
+    A run leaves about half a million objects in reference cycles (the PDF engine's box trees);
+    the interpreter's last garbage collection walked them for 0.6 s of a 300-participant run's
+    11 s.  Frozen objects are never collected, so that pass finds nothing; exit handlers still run
+    and buffered output is still written.
+    """
+    gc.freeze()
+    sys.exit(status)
