@@ -220,11 +220,12 @@ def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: P
                           else earlier_looks(out_root / "registry.sqlite", plan, cut_label)),
     }
     executor, close_executor = _executor(workers, scheduler)
+    datasets: list = []   # each endpoint's analysis dataset, made where the endpoint ran
     try:
         with timer.time("analyses"):
             context = RunContext(root_seed=plan.seed, executor=executor, progress=_progress_printer())
             results = run_plan(
-                plan, cut, context, timer=timer, run_block=run_block,
+                plan, cut, context, timer=timer, run_block=run_block, datasets=datasets,
                 plan_block=cut.blind(_plan_block(loaded, lock)),
                 data_block=cut.summary() | {
                     "participant_hashes": participant_hashes(raw.frame, plan.columns.subject),
@@ -244,7 +245,7 @@ def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: P
         "plan_problems": [], "conformance_problems": [c for c in results["conformance"].get("checks", [])
                                                       if c.get("status") == "failed"],
     }
-    folder = _record(out_root, plan, cut_label, run_id, results, audit, loaded, raw, cut)
+    folder = _record(out_root, plan, cut_label, run_id, results, audit, loaded, raw, cut, datasets)
     # From the results just sealed (the same object written as results.json), not a second read of it.
     return RecordedRun(folder, folder / "report.html", _failed_primaries(results))
 
@@ -281,13 +282,10 @@ def _plan_block(loaded, lock: dict[str, Any]) -> dict[str, Any]:
     }
 
 
-def _record(out_root: Path, plan, cut_label, run_id, results, audit, loaded, raw, cut) -> Path:
+def _record(out_root: Path, plan, cut_label, run_id, results, audit, loaded, raw, cut, datasets) -> Path:
     from trialcut.record.seal import record_run
     from trialcut.record.analysis_data import write_analysis_data
     from trialcut.report import render_documents
-    from trialcut.run.runner import analysis_datasets
-
-    datasets = analysis_datasets(plan, cut)
 
     def write(folder: Path, position) -> None:
         # The report prints the registry row it will take and the chain head it follows:

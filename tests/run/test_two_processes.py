@@ -130,6 +130,22 @@ def test_two_processes_give_the_results_of_one(plan_and_cut, serial, monkeypatch
     assert threading.active_count() == 1, "the reading thread is gone: a later fork stays safe"
 
 
+def test_analysis_datasets_made_where_each_endpoint_ran_equal_those_made_here(plan_and_cut, monkeypatch, tmp_path):
+    # Identity: the datasets the record layer writes do not depend on which process built them.
+    import pandas as pd
+
+    plan, cut = plan_and_cut
+    _marking_process(monkeypatch, tmp_path / "child_took_one")
+    datasets: list = []
+    run_plan(plan, cut, RunContext(root_seed=plan.seed), plan_block={}, data_block={}, run_block={},
+             datasets=datasets)
+    expected = runner.analysis_datasets(plan, cut)
+    assert [d.endpoint for d in datasets] == [e.id for e in plan.endpoints]
+    for got, want in zip(datasets, expected):
+        pd.testing.assert_frame_equal(got.frame, want.frame)
+        assert got.labels == want.labels and got.rules == want.rules
+
+
 def test_the_childs_progress_reaches_the_parents_reporter(plan_and_cut, monkeypatch, tmp_path):
     plan, cut = plan_and_cut
     _marking_process(monkeypatch, tmp_path / "child_took_one",

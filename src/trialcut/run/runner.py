@@ -55,8 +55,13 @@ class StepTimer:
 
 
 def run_plan(plan, cut, context: RunContext, *, plan_block: dict[str, Any], data_block: dict[str, Any],
-             run_block: dict[str, Any], timer: StepTimer | None = None) -> dict[str, Any]:
-    """Run every analysis of every endpoint of ``plan`` on ``cut`` (a prepared DataCut)."""
+             run_block: dict[str, Any], timer: StepTimer | None = None,
+             datasets: list | None = None) -> dict[str, Any]:
+    """Run every analysis of every endpoint of ``plan`` on ``cut`` (a prepared DataCut).
+
+    ``datasets``, when given, receives every endpoint's derived analysis dataset in plan order (as
+    ``analysis_datasets`` builds them), built where the endpoint ran: its data are at hand there.
+    """
     timer = timer or StepTimer()
     results: dict[str, Any] = {
         "format": RESULTS_FORMAT,
@@ -76,27 +81,32 @@ def run_plan(plan, cut, context: RunContext, *, plan_block: dict[str, Any], data
     check_reasons(plan, cut)   # a reason no assumption rule covers stops the run before any fit
     # Each endpoint's entry, warnings and timed steps come back separately (perhaps from the second
     # core) and join the results in plan order: the same results whoever computed them.
-    for entry, endpoint_warnings, steps in _run_endpoints(plan, cut, context, timer):
+    for entry, endpoint_warnings, steps, dataset in _run_endpoints(plan, cut, context, timer,
+                                                                   datasets is not None):
         results["endpoints"].append(entry)
         results["warnings"].extend(endpoint_warnings)
         timer.steps.extend(steps)
+        if datasets is not None:
+            datasets.append(dataset)
     results["multiplicity"] = _multiplicity(plan, results, cut)
     estimand_guard.annotate(plan, results)   # roles, covariate structures, guard-rail warnings
     return results
 
 
-def _run_endpoints(plan, cut, context: RunContext, timer: StepTimer) -> list[tuple[dict, list, list]]:
-    """(entry, run warnings, timer steps) of every endpoint in plan order, on two cores when that helps."""
+def _run_endpoints(plan, cut, context: RunContext, timer: StepTimer,
+                   with_datasets: bool) -> list[tuple[dict, list, list, Any]]:
+    """(entry, run warnings, timer steps, analysis dataset or None) of every endpoint in plan order,
+    on two cores when that helps."""
     endpoints = list(plan.endpoints)
 
-    def run_one(index: int, progress) -> tuple[dict, list, list]:
+    def run_one(index: int, progress) -> tuple[dict, list, list, Any]:
         endpoint, endpoint_warnings, first_step = endpoints[index], [], len(timer.steps)
         with timer.time(f"endpoint {endpoint.id}"):
             entry = _run_endpoint(plan, cut, endpoint, replace(context, progress=progress), timer,
                                   endpoint_warnings)
         steps = timer.steps[first_step:]
         del timer.steps[first_step:]   # the caller adds them back in plan order
-        return entry, endpoint_warnings, steps
+        return entry, endpoint_warnings, steps, _analysis_dataset(plan, cut, endpoint) if with_datasets else None
 
     # Largest first, so that neither process is left with a long endpoint at the end.
     order = sorted(range(len(endpoints)), key=lambda index: -_size(plan, endpoints[index]))
@@ -330,11 +340,12 @@ IMPUTING_METHODS = ("multiple_imputation", "tipping_point")
 
 def analysis_datasets(plan, cut) -> list:
     """The derived analysis dataset of every endpoint, for the record layer to write beside the results."""
+    return [_analysis_dataset(plan, cut, endpoint) for endpoint in plan.endpoints]
+
+
+def _analysis_dataset(plan, cut, endpoint):
     from trialcut.data.analysis_dataset import build_analysis_dataset
 
-    datasets = []
-    for endpoint in plan.endpoints:
-        analyses = [endpoint.analyses.primary, *endpoint.analyses.sensitivity]
-        imputed = frozenset(a.estimand for a in analyses if a.method in IMPUTING_METHODS and a.estimand)
-        datasets.append(build_analysis_dataset(cut, endpoint.id, imputed))
-    return datasets
+    analyses = [endpoint.analyses.primary, *endpoint.analyses.sensitivity]
+    imputed = frozenset(a.estimand for a in analyses if a.method in IMPUTING_METHODS and a.estimand)
+    return build_analysis_dataset(cut, endpoint.id, imputed)
