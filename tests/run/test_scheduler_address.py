@@ -28,20 +28,30 @@ def silent_listener():
     server = socket.socket()
     server.bind(("127.0.0.1", 0))
     server.listen(4)
+    server.settimeout(0.05)
     held: list[socket.socket] = []
+    stop = threading.Event()
 
     def accept() -> None:
-        while True:
+        while not stop.is_set():
             try:
                 held.append(server.accept()[0])
+            except socket.timeout:
+                continue
             except OSError:
                 return
 
-    threading.Thread(target=accept, daemon=True).start()
+    # The thread must end with the test: closing the socket does not wake a blocked accept() on
+    # Linux, and a thread left behind keeps every later test of the process from forking helpers.
+    listening = threading.Thread(target=accept, daemon=True)
+    listening.start()
     yield server.getsockname()[1]
+    stop.set()
+    listening.join(timeout=10)
     server.close()
     for connection in held:
         connection.close()
+    assert not listening.is_alive()
 
 
 def test_a_listener_that_is_not_a_scheduler_is_refused(tmp_path, capsys, monkeypatch, silent_listener):

@@ -80,6 +80,14 @@ def serial(plan_and_cut):
         return _run(plan, cut)
 
 
+@pytest.fixture(autouse=True)
+def _this_process_may_fork():
+    """Fail at once, naming them, if threads left by an earlier test keep this process from forking
+    (the tests below would otherwise wait for a child that never comes)."""
+    others = [t.name for t in threading.enumerate() if t is not threading.current_thread()]
+    assert can_fork(), f"this process cannot fork a helper: threads left running by another test: {others}"
+
+
 def _until_exists(marker: Path, seconds: float = 60.0) -> None:
     waited = 0.0
     while not marker.exists() and waited < seconds:
