@@ -20,6 +20,9 @@ from trialcut.report.drawing import FigureDrawing
 from trialcut.report.figures import FigureImage
 from trialcut.report.render import render_documents
 
+# Run first (conftest.py), while the test process has no other thread: these check a forked child.
+pytestmark = pytest.mark.forks
+
 SVG = b"<svg xmlns='http://www.w3.org/2000/svg'>%s</svg>"
 
 

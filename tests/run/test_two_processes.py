@@ -35,8 +35,9 @@ from trialcut.run.runner import StepTimer, run_plan
 DEMO_PLAN = Path(runner.__file__).resolve().parents[1] / "analysis_plans" / "demo.yaml"
 SERIAL = "TRIALCUT_ANALYSE_IN_PROCESS"
 
-pytestmark = pytest.mark.skipif(not can_fork() or len(os.sched_getaffinity(0)) < 2,
-                                reason="needs fork and two cores")
+# Run first (conftest.py), while the test process has no other thread.
+pytestmark = [pytest.mark.forks, pytest.mark.skipif(not can_fork() or len(os.sched_getaffinity(0)) < 2,
+                                                    reason="needs fork and two cores")]
 
 
 def _quick(analysis):
