@@ -240,7 +240,8 @@ def execute_run(*, plan_path: Path, data_path: Path, cut_label: str, out_root: P
         "command_line": command_line or [], "started_utc": started, "finished_utc": results["run"]["finished_utc"],
         "run_id": run_id, "environment": capture_environment(), "seeds": {"root": plan.seed,
                                                                            "dummy_arms": dummy_arms_seed},
-        "executor": {"workers": workers, "scheduler": scheduler}, "cut_off": cut.summary()["cut_off"],
+        "executor": {"workers": workers, "scheduler": scheduler, "endpoint_processes": timer.endpoint_processes},
+        "cut_off": cut.summary()["cut_off"],
         "lock": cut.blind(lock), "warnings": results["warnings"], "steps": timer.steps,
         "plan_problems": [], "conformance_problems": [c for c in results["conformance"].get("checks", [])
                                                       if c.get("status") == "failed"],

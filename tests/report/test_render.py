@@ -335,6 +335,22 @@ def test_audit_record_reaches_the_appendix(results):
     assert table_by_caption(reader, "Package versions")["rows"] == [["numpy", "1.26.4"]]
 
 
+def test_the_appendix_says_when_endpoints_shared_two_processes(results):
+    # Steps timed in two processes at once add up to more than their whole: the note says why
+    # (common practice: a reader must be able to reconcile every number in a table).
+    def facts_and_note(executor):
+        audit = {"executor": executor, "steps": [{"step": "load plan", "seconds": 0.01}]}
+        text = render_html(build_document(results, audit))
+        facts = dict(table_by_caption(read_html(text), "How the run was made")["rows"])
+        return facts.get("Where the endpoints were analysed"), "two at a time, on two processes" in text
+
+    shared, noted = facts_and_note({"workers": 1, "scheduler": None, "endpoint_processes": 2})
+    assert shared.startswith("shared between the process that ran the plan and a second one") and noted
+    assert facts_and_note({"workers": 1, "scheduler": None, "endpoint_processes": 1}) == (
+        "in the process that ran the plan", False)
+    assert facts_and_note({"workers": 1, "scheduler": None}) == (None, False)   # a run recorded before
+
+
 def test_render_run_without_results_is_an_input_error(tmp_path):
     with pytest.raises(InputError, match="not found"):
         render_run(tmp_path, out=tmp_path / "out")

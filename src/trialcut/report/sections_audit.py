@@ -56,6 +56,7 @@ def run_facts(section: Section, results: Mapping[str, Any], audit: Mapping[str, 
         ("Run began (UTC)", run.get("started_utc") or audit.get("started_utc")),
         ("Run ended (UTC)", run.get("finished_utc") or audit.get("finished_utc")),
         ("Where the imputations were computed", _executor_text(audit.get("executor"))),
+        ("Where the endpoints were analysed", _endpoints_text(audit.get("executor"))),
         ("Problems found in the plan", _problems_text(audit.get("plan_problems"))),
         # The registry's chain head before this run's row: an anchor kept outside the registry.
         ("Registry row of this run, and the chain head it follows",
@@ -74,7 +75,10 @@ def run_facts(section: Section, results: Mapping[str, Any], audit: Mapping[str, 
                                    number_format=timing, labels={"step": "Step", "seconds": "Seconds"},
                                    kinds={"step": "text", "seconds": "sd"},
                                    note="Seconds of wall-clock time, to the millisecond. The time taken to "
-                                        "render this report is recorded in audit.json only."))
+                                        "render this report is recorded in audit.json only."
+                                        + (" The endpoints were analysed two at a time, on two processes: "
+                                           "their times add up to more than all analyses of the plan."
+                                           if _endpoint_processes(audit.get("executor")) > 1 else "")))
 
 
 def _step_labels(results: Mapping[str, Any]):
@@ -106,6 +110,21 @@ def _executor_text(executor: Any) -> str | None:
     workers = executor.get("workers")
     if isinstance(workers, int) and workers > 1:
         return f"in {workers} worker processes on this machine"
+    return "in the process that ran the plan"
+
+
+def _endpoint_processes(executor: Any) -> int:
+    processes = executor.get("endpoint_processes") if isinstance(executor, Mapping) else None
+    return processes if isinstance(processes, int) else 1
+
+
+def _endpoints_text(executor: Any) -> str | None:
+    """Recorded since runs could share their endpoints between two processes; older runs say nothing."""
+    if not isinstance(executor, Mapping) or "endpoint_processes" not in executor:
+        return None
+    if _endpoint_processes(executor) > 1:
+        return ("shared between the process that ran the plan and a second one on another core; "
+                "each analysis draws from its own seed, so the numbers are those of one process")
     return "in the process that ran the plan"
 
 

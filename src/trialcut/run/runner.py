@@ -39,6 +39,8 @@ class StepTimer:
     """Collects how long each step took, for the audit record (not for results)."""
 
     steps: list[dict[str, Any]] = field(default_factory=list)
+    # How many processes shared the endpoints (2: this one and a forked child, at the same time).
+    endpoint_processes: int = 1
 
     def time(self, name: str):
         timer = self
@@ -111,6 +113,7 @@ def _run_endpoints(plan, cut, context: RunContext, timer: StepTimer,
     # Largest first, so that neither process is left with a long endpoint at the end.
     order = sorted(range(len(endpoints)), key=lambda index: -_size(plan, endpoints[index]))
     two_processes = _second_core_helps(plan, context)
+    timer.endpoint_processes = 2 if two_processes and len(endpoints) > 1 else 1
     if two_processes:
         _import_what_both_need(endpoints, first=order[0])
     return run_pieces(len(endpoints), run_one, order=order, progress=context.progress,
