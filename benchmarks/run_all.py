@@ -13,31 +13,49 @@ from __future__ import annotations
 
 import argparse
 import datetime as dt
-import importlib.util
 import json
 import os
 import platform
 import subprocess
 import sys
+import tempfile
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent
 
 
-def discover(only: list[str] | None = None) -> dict[str, object]:
-    modules = {}
-    sys.path.insert(0, str(HERE))
-    for path in sorted(HERE.glob("bench_*.py")):
-        name = path.stem.removeprefix("bench_")
-        if only and name not in only:
-            continue
-        spec = importlib.util.spec_from_file_location(path.stem, path)
-        module = importlib.util.module_from_spec(spec)
-        spec.loader.exec_module(module)
-        if callable(getattr(module, "run", None)):
-            modules[name] = module
-    return modules
+def discover(only: list[str] | None = None) -> dict[str, Path]:
+    """The benchmark modules by name (bench_<name>.py)."""
+    return {path.stem.removeprefix("bench_"): path for path in sorted(HERE.glob("bench_*.py"))
+            if not only or path.stem.removeprefix("bench_") in only}
+
+
+# Each module runs in a fresh interpreter: a library that keeps a thread once used (Dask's
+# offload thread) would stop a later module's process from forking the helpers a run uses
+# (figures, endpoints), and what one module imported or cached would flatter the next.
+_ONE_MODULE = r"""
+import importlib.util, json, sys
+sys.path.insert(0, sys.argv[3])
+spec = importlib.util.spec_from_file_location(sys.argv[1], sys.argv[2])
+module = importlib.util.module_from_spec(spec)
+spec.loader.exec_module(module)
+rows = module.run() if callable(getattr(module, "run", None)) else []
+with open(sys.argv[4], "w", encoding="utf-8") as answer:
+    json.dump(rows, answer)
+"""
+
+
+def run_module(path: Path) -> list[dict]:
+    """The rows of one benchmark module, run in a process of its own (its progress goes to stderr)."""
+    with tempfile.TemporaryDirectory() as scratch:
+        answer = Path(scratch) / "rows.json"
+        sys.stdout.flush()
+        done = subprocess.run([sys.executable, "-c", _ONE_MODULE, path.stem, str(path), str(HERE), str(answer)],
+                              stdout=sys.stderr)
+        if done.returncode != 0:
+            raise RuntimeError(f"exit status {done.returncode} (its messages are above)")
+        return json.loads(answer.read_text(encoding="utf-8"))
 
 
 def machine() -> dict:
@@ -83,10 +101,10 @@ def main(argv: list[str] | None = None) -> int:
     options = parser.parse_args(argv)
     started = dt.datetime.now(dt.timezone.utc)
     rows, failures = [], []
-    for name, module in discover(options.only).items():
+    for name, path in discover(options.only).items():
         try:
             # Each row names its benchmark, so a module need not repeat its own name.
-            rows += [{"benchmark": name} | row for row in module.run()]
+            rows += [{"benchmark": name} | row for row in run_module(path)]
         except Exception as error:  # one broken benchmark must not hide the others' figures
             failures.append({"benchmark": name, "error": f"{type(error).__name__}: {error}"})
     show(rows)
