@@ -283,7 +283,9 @@ def _system_text(environment: Mapping[str, Any]) -> str | None:
 
 def _thread_text(settings: Any) -> str:
     if not isinstance(settings, Mapping) or not settings:
-        return "none (each library chooses its own number of threads)"
+        # Analyses limit the linear-algebra library to one thread whatever the environment says.
+        return ("none (each library chooses its own number of threads, except where an analysis limits "
+                "the linear-algebra library to one: see the table of linear-algebra libraries)")
     return "; ".join(f"{name} = {value}" for name, value in settings.items())
 
 
