@@ -118,7 +118,7 @@ def coverage_chart(summary: Mapping[str, Any]) -> bytes:
             axes.axvline(rows[0]["confidence_level"], color=INK, linewidth=0.8, linestyle="--")
         axes.set_yticks(range(len(rows)), labels, fontsize=7)
         axes.set_ylim(len(rows) - 0.5, -0.5)
-        axes.set_xlabel("Coverage of the confidence interval (grey: nominal level ± 1.96 MC SE)")
+        axes.set_xlabel("Coverage of the confidence interval")
 
     return _draw(draw, height=max(2.4, 0.22 * len(rows) + 1.2))
 
@@ -151,6 +151,8 @@ def _html(summary: Mapping[str, Any], title: str, facts: Sequence[tuple[str, str
                                                    for s in summary["scenarios"]) else "",
              _table(_shown(summary["analyses"], ANALYSIS_COLUMNS)),
              "<h2>Coverage of the confidence intervals</h2>", _image(figures["coverage"], "Coverage"),
+             "<p>Dot: the share of trials whose interval held the true difference. Grey band: the nominal level "
+             "± 1.96 Monte Carlo SE for that many trials; dashed line: the nominal level.</p>",
              "</body></html>"]
     return "\n".join(parts)
 
