@@ -218,7 +218,7 @@ def required_columns(plan) -> dict[str, str]:
 
 def _analysis_columns(plan) -> Iterable[tuple[str, str]]:
     for endpoint in plan.endpoints:
-        for analysis in (endpoint.analyses.primary, *endpoint.analyses.sensitivity):
+        for analysis in endpoint.analyses.every:
             options = analysis.options
             for name in getattr(options, "covariates", ()) + getattr(options, "covariates_by_visit", ()):
                 yield name, f"covariate of analysis {analysis.id}"

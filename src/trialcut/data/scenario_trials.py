@@ -161,7 +161,7 @@ def _reason_columns(plan) -> list[str]:
     """Columns of reasons that imputation analyses read (e.g. why treatment stopped)."""
     found = []
     for endpoint in plan.endpoints:
-        for analysis in (endpoint.analyses.primary, *endpoint.analyses.sensitivity):
+        for analysis in endpoint.analyses.every:
             column = getattr(analysis.options, "reason_column", None)
             if column and column not in found:
                 found.append(column)

@@ -578,6 +578,11 @@ class EndpointAnalyses(Strict):
     primary: Analysis
     sensitivity: tuple[Analysis, ...] = ()
 
+    @property
+    def every(self) -> tuple[Analysis, ...]:
+        """The primary analysis, then the sensitivity analyses, in the plan's order."""
+        return (self.primary, *self.sensitivity)
+
 
 class Endpoint(Strict):
     id: Identifier
@@ -617,7 +622,7 @@ def _endpoint_issues(endpoint: Endpoint) -> Iterator[RuleIssue]:
         yield RuleIssue(("analysed",), "a count endpoint analyses the counts themselves", expected="value",
                         got=repr(endpoint.analysed), code="plan.count_analysed")
     analyses = [("primary",), *[("sensitivity", i) for i in range(len(endpoint.analyses.sensitivity))]]
-    for path, analysis in zip(analyses, [endpoint.analyses.primary, *endpoint.analyses.sensitivity]):
+    for path, analysis in zip(analyses, endpoint.analyses.every):
         allowed = METHOD_ENDPOINT_TYPES.get(analysis.method, ())
         if endpoint.type not in allowed:
             fitting = sorted(m for m, types in METHOD_ENDPOINT_TYPES.items() if endpoint.type in types)

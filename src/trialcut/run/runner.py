@@ -111,18 +111,19 @@ def _run_endpoints(plan, cut, context: RunContext, timer: StepTimer,
         return entry, endpoint_warnings, steps, _analysis_dataset(plan, cut, endpoint) if with_datasets else None
 
     # Largest first, so that neither process is left with a long endpoint at the end.
-    order = sorted(range(len(endpoints)), key=lambda index: -_size(plan, endpoints[index]))
+    order = sorted(range(len(endpoints)), key=lambda index: -_size(endpoints[index]))
     two_processes = _second_core_helps(plan, context)
-    timer.endpoint_processes = 2 if two_processes and len(endpoints) > 1 else 1
+    timer.endpoint_processes = 2 if two_processes else 1
     if two_processes:
         _import_what_both_need(endpoints, first=order[0])
     return run_pieces(len(endpoints), run_one, order=order, progress=context.progress,
                       two_processes=two_processes)
 
 
-def _size(plan, endpoint) -> int:
-    """Rough work of an endpoint: its analyses, and a refit of the primary per subgroup factor."""
-    return 1 + len(endpoint.analyses.sensitivity) + len(getattr(plan, "subgroups", ()) or ())
+def _size(endpoint) -> int:
+    """Rough work of an endpoint: its analyses (every endpoint refits its primary once per subgroup
+    factor of the plan, the same for all, so that does not change the order)."""
+    return len(endpoint.analyses.every)
 
 
 # Methods whose statistics import statsmodels (the costliest import of an analysis), and the
@@ -137,7 +138,7 @@ def _import_what_both_need(endpoints, first: int) -> None:
     """Import statsmodels before forking when this process (which runs endpoint ``first``) needs it
     anyway and another endpoint does too: imported once instead of once in each process."""
     def methods(endpoint) -> set[str]:
-        return {a.method for a in (endpoint.analyses.primary, *endpoint.analyses.sensitivity)}
+        return {a.method for a in endpoint.analyses.every}
 
     others = set().union(*(methods(e) for index, e in enumerate(endpoints) if index != first))
     if methods(endpoints[first]) & _STATSMODELS_METHODS and others & _STATSMODELS_METHODS:
@@ -285,8 +286,7 @@ def _event_labels(plan) -> dict[str, str]:
 
 def _flows(plan, cut, endpoint, events: dict[str, str]) -> list[dict[str, Any]]:
     """One participant flow per (estimand, population) the endpoint's analyses use; the primary's first."""
-    analyses = [endpoint.analyses.primary, *endpoint.analyses.sensitivity]
-    targets = list(dict.fromkeys((a.estimand, _analysis_population(plan, a)) for a in analyses))
+    targets = list(dict.fromkeys((a.estimand, _analysis_population(plan, a)) for a in endpoint.analyses.every))
     flows = []
     for estimand, population in targets:
         data = cut.analysis_data(endpoint.id, estimand_id=estimand, population_id=population)
@@ -349,6 +349,5 @@ def analysis_datasets(plan, cut) -> list:
 def _analysis_dataset(plan, cut, endpoint):
     from trialcut.data.analysis_dataset import build_analysis_dataset
 
-    analyses = [endpoint.analyses.primary, *endpoint.analyses.sensitivity]
-    imputed = frozenset(a.estimand for a in analyses if a.method in IMPUTING_METHODS and a.estimand)
+    imputed = frozenset(a.estimand for a in endpoint.analyses.every if a.method in IMPUTING_METHODS and a.estimand)
     return build_analysis_dataset(cut, endpoint.id, imputed)
