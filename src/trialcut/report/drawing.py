@@ -135,11 +135,7 @@ class FigureDrawing:
                 break
             if kind == "svg":
                 slug, span, note = notice
-                waiting = by_slug[slug]
-                self._drawn[slug] = FigureImage(waiting.slug, waiting.title, waiting.alt,
-                                                None if span is None else self._read(span),
-                                                note=note or waiting.note, number=waiting.number,
-                                                anchor=waiting.anchor)
+                self._drawn[slug] = by_slug[slug].as_drawn(None if span is None else self._read(span), note)
             elif kind == "pictures":
                 self._picture_spans = {slug: tuple(span) for slug, span in json.loads(self._read(notice[0])).items()}
             elif kind == "files":

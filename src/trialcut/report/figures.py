@@ -68,6 +68,11 @@ class FigureImage:
         """This figure drawn here and now; a drawing failure becomes a note, not a failed report."""
         return self.drawn_with_picture()[0] if self.job is not None else self
 
+    def as_drawn(self, svg: bytes | None, note: str = "") -> "FigureImage":
+        """This figure as drawn elsewhere (another process): its SVG, or None with the note of the
+        failure; no longer waiting to be drawn, nor linked."""
+        return replace(self, svg=svg, job=None, link="", note=note or self.note)
+
     def drawn_with_picture(self) -> tuple["FigureImage", Callable[[], bytes] | None]:
         """This figure drawn here and now, and a call that saves the same drawing as PNG (see
         svg_and_picture); None when there is nothing to save (already drawn, or it failed)."""

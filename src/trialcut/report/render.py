@@ -194,9 +194,8 @@ def _other_files(document: Document, pdf_html: str, results: Mapping[str, Any], 
     place shows the reason instead."""
     if not all(figure.svg is not None for figure in drawn.values()):
         return None
-    run = results.get("run") or {}
     # The copy is made from the document as the PDF's HTML was (figures by link, pictures by slug).
-    copy = docx_bytes(document, pictures=pictures, created=run.get("started_utc"), modified=run.get("finished_utc"))
+    copy = _docx_copy(document, results, pictures)
     links = {f.link: f for f in document.figures}
     map_figures(document, lambda f: _drawn_figure(f, drawn))
     # The reader's HTML is the PDF's with each figure inlined (the template's own data URI).
@@ -211,20 +210,22 @@ def _drawn_figure(figure: FigureImage, drawn: Mapping[str, FigureImage]) -> Figu
     if figure.job is None:
         return replace(figure, link="")
     done = drawn[figure.slug]
-    return FigureImage(figure.slug, figure.title, figure.alt, done.svg, note=done.note or figure.note,
-                       number=figure.number, anchor=figure.anchor)
+    return figure.as_drawn(done.svg, done.note)
 
 
 def _with_docx(written: dict[str, Path], document: Document, results: Mapping[str, Any], folder: Path,
                pictures: Mapping[str, bytes] | Callable[[], Mapping[str, bytes]]) -> dict[str, Path]:
-    """The editable copy (report.docx) beside the PDF, dated by the run so a re-render gives the same bytes
-    (``pictures``: see write_docx)."""
-    from trialcut.report.docx_output import write_docx
-
-    run = results.get("run") or {}
-    written["report.docx"] = write_docx(document, folder / "report.docx", pictures=pictures,
-                                        created=run.get("started_utc"), modified=run.get("finished_utc"))
+    """The editable copy (report.docx) beside the PDF."""
+    written.update(write_files([("report.docx", _docx_copy(document, results, pictures))], folder))
     return written
+
+
+def _docx_copy(document: Document, results: Mapping[str, Any],
+               pictures: Mapping[str, bytes] | Callable[[], Mapping[str, bytes]]) -> bytes:
+    """The editable copy's bytes, dated by the run so a re-render gives the same bytes (``pictures``:
+    see docx_bytes)."""
+    run = results.get("run") or {}
+    return docx_bytes(document, pictures=pictures, created=run.get("started_utc"), modified=run.get("finished_utc"))
 
 
 def render_run(run_folder: Path, out: Path | None = None) -> dict[str, Path]:
